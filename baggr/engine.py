@@ -1,0 +1,189 @@
+"""The training loop: members grown in parallel threads, folded into the OOB tallies in member order."""
+from __future__ import annotations
+
+import collections
+import time
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import data
+from .config import Config
+from .draw import Drawer
+from .errors import ConfigError, DataError
+from .events import MemberEvent
+from .predict_kernels import route
+from .rng import STREAM_TREE, stream_state
+from .tally import MemberDelta, Tally
+from .tree import Tree, grow
+
+
+@dataclass
+class Prepared:
+    """A training table turned into what the kernels take."""
+
+    schema: "data.Schema"
+    binning: "data.Binning"
+    codes: np.ndarray      # uint8 (p, n), feature-major
+    y_class: np.ndarray    # int32 (n,) or a dummy
+    y_value: np.ndarray    # float64 (n,) or a dummy
+    task: str
+
+    @property
+    def n_rows(self) -> int:
+        return self.codes.shape[1]
+
+    @property
+    def n_classes(self) -> int:
+        return len(self.schema.classes)
+
+
+def prepare(X, y, config: Config) -> Prepared:
+    """Schema, binning and codes for a training table (the binning never looks at the target)."""
+    schema, targets = data.fit_schema(X, y, task=config.task)
+    binning = data.fit_binning(X, schema, bins=config.bins)
+    codes = data.encode(X, schema, binning)
+    n = codes.shape[1]
+    if n < 2:
+        raise DataError(f"the table has {n} row(s); bagging needs at least 2")
+    if codes.shape[0] == 0:
+        raise DataError("the table has no feature columns besides the target")
+    if schema.task == "classes":
+        y_class, y_value = np.ascontiguousarray(targets, dtype=np.int32), np.zeros(1)
+    else:
+        y_class, y_value = np.zeros(1, np.int32), np.ascontiguousarray(targets, dtype=np.float64)
+    return Prepared(schema, binning, codes, y_class, y_value, schema.task)
+
+
+@dataclass
+class MemberResult:
+    """One grown member: its tree (None in estimate-only runs) and its OOB delta."""
+
+    member: int
+    tree: Tree | None
+    delta: MemberDelta
+    visits: int
+    nodes: int
+    seconds: float
+
+
+class Grower:
+    """Grows any member m from (binned data, config, seed, m) alone: a pure function of m."""
+
+    def __init__(self, prep: Prepared, config: Config):
+        self.prep, self.config = prep, config
+        self.criterion = config.resolved_criterion(prep.task)
+        self.k = config.resolved_features(prep.codes.shape[0], prep.task)
+        self.n_bins = prep.binning.n_bins.astype(np.int32)
+        self.is_cat = prep.binning.is_cat.astype(np.uint8)
+        self.drawer = Drawer(config.draw, prep.n_rows, config.seed, fraction=config.draw_fraction,
+                             y_class=prep.y_class if prep.task == "classes" else None)
+
+    def grow_member(self, m: int) -> MemberResult:
+        t0 = time.perf_counter()
+        p, cfg = self.prep, self.config
+        w = self.drawer.counts(m)
+        tree = grow(p.codes, self.n_bins, self.is_cat, p.y_class, p.y_value, w, task=p.task,
+                    n_classes=max(1, p.n_classes), criterion=self.criterion, features_per_split=self.k,
+                    min_leaf=cfg.min_leaf, depth_limit=cfg.depth_limit,
+                    rng_state=stream_state(cfg.seed, m, STREAM_TREE))
+        rows = np.flatnonzero(w == 0).astype(np.int32)
+        leaves = route(p.codes, rows, tree.left, tree.right, tree.feature, tree.threshold, tree.is_cat,
+                       tree.missing_left, tree.cat_masks)
+        if p.task == "classes":
+            shares = tree.value[leaves]
+            if cfg.vote == "hard":
+                votes = np.zeros(shares.shape, np.int32)
+                votes[np.arange(rows.shape[0]), np.argmax(shares, axis=1)] = 1  # ties: lowest class
+            else:
+                votes = np.ascontiguousarray(shares)
+        else:
+            votes = np.ascontiguousarray(tree.value[leaves, 0])
+        keep = tree if cfg.keep_members else None
+        return MemberResult(m, keep, MemberDelta(m, rows, votes), int(tree.visits), tree.n_nodes,
+                            time.perf_counter() - t0)
+
+    def grow_chunk(self, members) -> tuple[list, list]:
+        """(trees, tally deltas) of a range of members: the seam where other backends plug in."""
+        results = [self.grow_member(m) for m in members]
+        return [r.tree for r in results], [r.delta for r in results]
+
+
+class Training:
+    """A run in progress: grows members from `next_member` on, folding each into the tallies."""
+
+    def __init__(self, X, y, config: Config, *, prepared: Prepared | None = None):
+        if not isinstance(config, Config):
+            raise ConfigError("config must be a baggr.Config")
+        self.config = config
+        self.prep = prepared or prepare(X, y, config)
+        self.grower = Grower(self.prep, config)
+        self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
+                           max(1, self.prep.n_classes), config.vote, capacity=config.members)
+        self.trees: list[Tree] = []
+        self.elapsed = 0.0
+        self.stats = {"visits": 0, "nodes": 0, "grow_seconds": 0.0, "fold_seconds": 0.0, "members": 0}
+
+    @property
+    def next_member(self) -> int:
+        return self.tally.members
+
+    def run(self, on_member=None, should_stop=None, until: int | None = None):
+        """Grow members until `until` (default config.members) or should_stop() is true; returns the Ensemble."""
+        target = self.config.members if until is None else until
+        threads = self.config.resolved_threads()
+        start, t_run = self.next_member, time.perf_counter()
+        elapsed0 = self.elapsed
+        recent = collections.deque(maxlen=20)
+        pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="baggr-member")
+        inflight = collections.deque()
+        nxt = start
+        try:
+            while self.next_member < target:
+                while nxt < target and len(inflight) < threads:
+                    inflight.append(pool.submit(self.grower.grow_member, nxt))
+                    nxt += 1
+                result = inflight.popleft().result()
+                t0 = time.perf_counter()
+                self.tally.fold(result.delta)
+                if result.tree is not None:
+                    self.trees.append(result.tree)
+                self.stats["fold_seconds"] += time.perf_counter() - t0
+                self.stats["grow_seconds"] += result.seconds
+                self.stats["visits"] += result.visits
+                self.stats["nodes"] += result.nodes
+                self.stats["members"] = self.next_member
+                now = time.perf_counter()
+                self.elapsed = elapsed0 + (now - t_run)
+                recent.append(now)
+                if on_member is not None:
+                    on_member(self.event(result.delta.rows.shape[0], recent))
+                if should_stop is not None and should_stop():
+                    break
+        finally:
+            for f in inflight:
+                f.cancel()
+            pool.shutdown(wait=True, cancel_futures=True)
+        return self.ensemble()
+
+    def event(self, oob_rows: int, recent=()) -> MemberEvent:
+        t = self.tally
+        rate = (len(recent) - 1) / (recent[-1] - recent[0]) if len(recent) > 1 and recent[-1] > recent[0] else 0.0
+        ev = MemberEvent(member=t.members, members_target=self.config.members, elapsed=self.elapsed,
+                         error=t.error(), interval=t.interval(), coverage=t.coverage, oob_rows=oob_rows, rate=rate)
+        if t.task == "classes":
+            ev.class_error = t.class_error().tolist()
+            ev.confusion = t.confusion.tolist()
+        else:
+            ev.r2 = t.r2()
+        return ev
+
+    def ensemble(self):
+        from .ensemble import Ensemble
+        return Ensemble.from_training(self)
+
+
+def train(X, y, config: Config | None = None, on_member=None):
+    """Train a bagged tree ensemble and its OOB estimate in one pass; on_member(event) after every member."""
+    return Training(X, y, config or Config()).run(on_member=on_member)

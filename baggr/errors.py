@@ -1,0 +1,17 @@
+"""The errors a user can cause. Every one is a BaggrError with a message that names the problem."""
+
+
+class BaggrError(Exception):
+    """Base of every error a user can cause (bad data, bad settings, bad files)."""
+
+
+class DataError(BaggrError):
+    """The table or target cannot be used as given."""
+
+
+class ConfigError(BaggrError):
+    """A setting is out of range or inconsistent with the data."""
+
+
+class ModelFileError(BaggrError):
+    """A model or checkpoint file is missing, truncated, corrupt or from another format version."""

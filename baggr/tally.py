@@ -1,0 +1,141 @@
+"""Running OOB tallies: every member's OOB votes folded in member order, the curve kept for every size."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import tally_kernels as k
+from .intervals import normal_mean, wilson
+
+
+@dataclass
+class MemberDelta:
+    """What one member adds to the tallies: its OOB rows and the votes (or values) it casts for them."""
+
+    member: int
+    rows: np.ndarray    # int32 OOB rows
+    votes: np.ndarray   # classes: (len(rows), C) float64 or int32; regression: float64 (len(rows),)
+
+
+class Tally:
+    """OOB tallies of the members folded so far, updated in O(OOB rows) per member."""
+
+    ARRAYS = ("votes", "pred", "left_out", "confusion", "class_wrong", "class_covered", "totals",
+              "value_sum", "sq_err", "sums", "curve", "class_curve", "curve_interval")
+
+    def __init__(self, task: str, y: np.ndarray, n_classes: int, vote: str, capacity: int):
+        self.task, self.y, self.n_classes, self.vote = task, y, n_classes, vote
+        n = y.shape[0]
+        self.members = 0
+        self.left_out = np.zeros(n, np.int32)
+        if task == "classes":
+            self.votes = np.zeros((n, n_classes), np.int32 if vote == "hard" else np.float64)
+            self.pred = np.full(n, -1, np.int32)
+            self.confusion = np.zeros((n_classes, n_classes), np.int64)
+            self.class_wrong = np.zeros(n_classes, np.int64)
+            self.class_covered = np.zeros(n_classes, np.int64)
+            self.totals = np.zeros(2, np.int64)
+            self.class_rows = np.bincount(y, minlength=n_classes).astype(np.int64)
+            self.class_curve = np.full((capacity, n_classes), np.nan)
+        else:
+            self.value_sum = np.zeros(n, np.float64)
+            self.sq_err = np.zeros(n, np.float64)
+            self.sums = np.zeros(5, np.float64)
+        self.curve = np.full(capacity, np.nan)
+        self.curve_interval = np.full((capacity, 2), np.nan)
+
+    # -- folding ---------------------------------------------------------------------------------
+    def fold(self, delta: MemberDelta) -> None:
+        """Fold the next member (deltas must come in member order)."""
+        assert delta.member == self.members, "members are folded in order"
+        if self.task == "classes":
+            k.fold_classes(delta.rows, delta.votes, self.y, self.votes, self.pred, self.left_out,
+                           self.confusion, self.class_wrong, self.class_covered, self.totals)
+        else:
+            k.fold_regression(delta.rows, delta.votes, self.y, self.value_sum, self.left_out,
+                              self.sq_err, self.sums)
+        m = self.members
+        self.members += 1
+        self._grow_curve()
+        self.curve[m] = self.error()
+        iv = self.interval()
+        if iv is not None:
+            self.curve_interval[m] = iv
+        if self.task == "classes":
+            self.class_curve[m] = self.class_error()
+
+    def _grow_curve(self) -> None:
+        if self.members <= self.curve.shape[0]:
+            return
+        extra = max(self.members, 2 * self.curve.shape[0]) - self.curve.shape[0]
+        self.curve = np.concatenate([self.curve, np.full(extra, np.nan)])
+        self.curve_interval = np.concatenate([self.curve_interval, np.full((extra, 2), np.nan)])
+        if self.task == "classes":
+            self.class_curve = np.concatenate([self.class_curve, np.full((extra, self.n_classes), np.nan)])
+
+    # -- figures ---------------------------------------------------------------------------------
+    @property
+    def covered(self) -> int:
+        """Rows with at least one OOB vote so far."""
+        return int(self.totals[1]) if self.task == "classes" else int(self.sums[2])
+
+    @property
+    def coverage(self) -> float:
+        return self.covered / self.y.shape[0]
+
+    def error(self) -> float:
+        """Misclassification rate (classes) or MSE (regression) over covered rows; NaN while none."""
+        n = self.covered
+        if n == 0:
+            return float("nan")
+        if self.task == "classes":
+            return float(self.totals[0]) / n
+        return float(self.sums[0]) / n
+
+    def interval(self):
+        """95% interval of error(): Wilson's for a rate, a normal interval for the MSE."""
+        if self.task == "classes":
+            return wilson(int(self.totals[0]), self.covered)
+        return normal_mean(float(self.sums[0]), float(self.sums[1]), float(self.sums[2]))
+
+    def class_error(self) -> np.ndarray:
+        """Per-class OOB error (share of the class's covered rows predicted wrongly; NaN while none)."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(self.class_covered > 0, self.class_wrong / np.maximum(self.class_covered, 1), np.nan)
+
+    def class_interval(self) -> list:
+        return [wilson(int(w), int(c)) for w, c in zip(self.class_wrong, self.class_covered)]
+
+    def r2(self) -> float:
+        """1 - MSE / variance of the covered rows' targets."""
+        n = self.sums[2]
+        if n < 2:
+            return float("nan")
+        var = self.sums[4] / n - (self.sums[3] / n) ** 2
+        return float(1.0 - (self.sums[0] / n) / var) if var > 0 else float("nan")
+
+    # -- checkpoints -----------------------------------------------------------------------------
+    def arrays(self) -> dict:
+        """Every array of the tally, for a checkpoint (curves trimmed to the members folded)."""
+        out = {"members": np.array([self.members], np.int64), "left_out": self.left_out}
+        for name in self.ARRAYS:
+            if hasattr(self, name) and name != "left_out":
+                a = getattr(self, name)
+                out[name] = a[: self.members] if name in ("curve", "class_curve", "curve_interval") else a
+        return out
+
+    def restore(self, arrays: dict) -> None:
+        """Load a checkpoint's arrays (already validated for shape and dtype by the caller)."""
+        self.members = int(arrays["members"][0])
+        for name, a in arrays.items():
+            if name == "members":
+                continue
+            if name in ("curve", "class_curve", "curve_interval"):
+                cur = getattr(self, name)
+                if cur.shape[0] < a.shape[0]:
+                    cur = np.concatenate([cur, np.full((a.shape[0] - cur.shape[0],) + cur.shape[1:], np.nan)])
+                cur[: a.shape[0]] = a
+                setattr(self, name, cur)
+            else:
+                getattr(self, name)[...] = a
