@@ -183,6 +183,40 @@ class Training:
         from .ensemble import Ensemble
         return Ensemble.from_training(self)
 
+    # -- checkpoints -----------------------------------------------------------------------------
+    def checkpoint(self) -> tuple[dict, dict]:
+        """(tally arrays, header fields) that let a later process continue this run bit for bit.
+
+        Kept trees are not included: the caller stores them once each (e.g. in append-only chunk
+        files via Forest.pack(training.trees[a:b])), so a checkpoint costs O(rows), not O(trees).
+        """
+        arrays = {"tally_" + k: v for k, v in self.tally.arrays().items()}
+        header = {"next_member": self.next_member, "elapsed": self.elapsed,
+                  "stats": {k: float(v) for k, v in self.stats.items()}}
+        return arrays, header
+
+    def restore(self, arrays: dict, header: dict, trees: list | None = None) -> None:
+        """Continue from checkpoint() output for the same data and config; trees: the kept members 0..m-1."""
+        from .errors import ModelFileError
+        tally = {k[6:]: v for k, v in arrays.items() if k.startswith("tally_")}
+        for name, a in self.tally.arrays().items():
+            b = tally.get(name)
+            if b is None or b.dtype != a.dtype or b.shape[1:] != a.shape[1:] or \
+                    (name not in ("curve", "class_curve", "curve_interval") and b.shape != a.shape):
+                raise ModelFileError(f"checkpoint array '{name}' does not fit this run's data")
+        m = int(tally["members"][0])
+        if m != header.get("next_member") or m > self.config.members or tally["curve"].shape[0] != m:
+            raise ModelFileError("checkpoint member count is inconsistent")
+        trees = list(trees or [])
+        if self.config.keep_members and len(trees) != m:
+            raise ModelFileError(f"checkpoint has {m} members but {len(trees)} kept trees")
+        self.tally.restore(tally)
+        self.trees = trees if self.config.keep_members else []
+        self.elapsed = float(header.get("elapsed", 0.0))
+        for k, v in header.get("stats", {}).items():
+            if k in self.stats:
+                self.stats[k] = type(self.stats[k])(v)
+
 
 def train(X, y, config: Config | None = None, on_member=None):
     """Train a bagged tree ensemble and its OOB estimate in one pass; on_member(event) after every member."""

@@ -45,6 +45,18 @@ class Forest:
         a["mask_offset"] = np.concatenate([[0], np.cumsum([m.shape[0] for m in masks])]).astype(np.int64)
         return cls(a)
 
+    def unpack(self) -> list:
+        """The members as separate trees (views into the packed arrays)."""
+        from types import SimpleNamespace
+        a, out = self.arrays, []
+        for m in range(self.members):
+            n0, n1 = a["node_offset"][m], a["node_offset"][m + 1]
+            k0, k1 = a["mask_offset"][m], a["mask_offset"][m + 1]
+            t = SimpleNamespace(**{name: a[name][n0:n1] for name in NODE_FIELDS})
+            t.cat_masks = a["cat_masks"][k0:k1]
+            out.append(t)
+        return out
+
     def validate(self, n_features: int, n_out: int) -> None:
         """Check every index a traversal will follow, so scoring a loaded file can never read out of bounds."""
         a = self.arrays
