@@ -93,5 +93,5 @@ def _read_member(zf: zipfile.ZipFile, info: zipfile.ZipInfo, path: str) -> np.nd
         raw = f.read(nbytes)
         if len(raw) != nbytes:
             raise ModelFileError(f"{path}: array {info.filename!r} is truncated")
-    a = np.frombuffer(raw, dtype=dtype).reshape(shape, order="F" if fortran else "C")
+    a = np.frombuffer(bytearray(raw), dtype=dtype).reshape(shape, order="F" if fortran else "C")
     return np.ascontiguousarray(a.astype(dtype.newbyteorder("="), copy=False))
