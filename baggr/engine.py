@@ -41,6 +41,12 @@ class Prepared:
 
 def prepare(X, y, config: Config) -> Prepared:
     """Schema, binning and codes for a training table (the binning never looks at the target)."""
+    try:
+        n_target = len(y)
+    except TypeError:
+        raise DataError("the target must be a column of values (an array, list or Arrow array)") from None
+    if n_target < 2:
+        raise DataError(f"the table has {n_target} row(s); bagging needs at least 2")
     schema, targets = data.fit_schema(X, y, task=config.task)
     binning = data.fit_binning(X, schema, bins=config.bins)
     codes = data.encode(X, schema, binning)
