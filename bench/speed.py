@@ -1,0 +1,105 @@
+"""Training speed on R1 (twonorm, classes) and R3 (Friedman #1, regression), as in DESIGN.md.
+
+Prints members per second at threads 1 and 2, ns per (row, candidate feature) visit, the ratio of
+member time to visits x the histogram-only calibration kernel measured in the same run, the share
+of time spent folding tallies, peak RSS, and cold/warm start times of a fresh process.
+    python bench/speed.py [members]
+"""
+import os
+import subprocess
+import sys
+import tempfile
+import time
+
+import numpy as np
+
+import baggr
+from baggr.jit import kernel
+from util import PeakRSS, friedman1, mib, twonorm
+
+
+@kernel
+def _histogram_only(codes, rows, y, w, feats, hist):
+    """The unavoidable work: one weighted histogram update per (row, candidate feature), gathered rows."""
+    for f in feats:
+        c = codes[f]
+        for i in range(rows.shape[0]):
+            r = rows[i]
+            hist[f, np.int64(c[r]) * 2 + y[r]] += w[r]
+
+
+def calibrate(codes, y, visits_per_member: float) -> float:
+    """ns per visit of _histogram_only over a node-sized gathered row set, repeated to match a member."""
+    n = codes.shape[1]
+    rng = np.random.default_rng(0)
+    w = rng.poisson(1.0, n).astype(np.int32)
+    rows = np.sort(rng.choice(n, n // 2, replace=False)).astype(np.int32)
+    feats = np.arange(4, dtype=np.int64)
+    hist = np.zeros((codes.shape[0], 512), np.int64)
+    _histogram_only(codes, rows[:100], y, w, feats, hist)  # compile
+    reps = max(1, int(visits_per_member / (rows.shape[0] * 4)))
+    t0 = time.perf_counter()
+    for _ in range(reps):
+        _histogram_only(codes, rows, y, w, feats, hist)
+    return (time.perf_counter() - t0) / (reps * rows.shape[0] * 4) * 1e9
+
+
+def run(name, X, y, cfg, members):
+    ens = baggr.train(X[:2000], y[:2000], cfg.replace(members=2))  # warm the kernels
+    results = {}
+    for threads in (1, 2):
+        with PeakRSS() as rss:
+            t0 = time.perf_counter()
+            ens = baggr.train(X, y, cfg.replace(members=members, threads=threads))
+            wall = time.perf_counter() - t0
+        results[threads] = (ens, wall, rss.peak)
+    ens, wall1, peak = results[1]
+    s = ens.stats
+    member_s = s["grow_seconds"] / members
+    visits = s["visits"] / members
+    codes = baggr.data.encode(baggr.data.read_table(X), ens.schema, ens.binning)
+    yy = (np.asarray(y) > np.median(y)).astype(np.int32) if ens.task == "regression" else np.asarray(y, np.int32)
+    cal = calibrate(codes, yy, visits)
+    ns = member_s / visits * 1e9
+    print(f"{name}: {X.shape[0]:,} rows x {X.shape[1]} features, {members} members, "
+          f"features_per_split {cfg.resolved_features(X.shape[1], ens.task)}")
+    print(f"  members/s: threads=1 {members / wall1:.2f}, threads=2 {members / results[2][1]:.2f} "
+          f"(speed-up {wall1 / results[2][1]:.2f}x)")
+    print(f"  member time {member_s * 1e3:.1f} ms, visits/member {visits:,.0f}, {ns:.2f} ns/visit")
+    print(f"  calibration (histogram only) {cal:.2f} ns/visit; ratio member/(visits x cal) {ns / cal:.2f}")
+    print(f"  tally fold share {s['fold_seconds'] / wall1 * 100:.2f}% of wall time (threads=1)")
+    print(f"  nodes/member {s['nodes'] / members:,.0f}; OOB {'error' if ens.task == 'classes' else 'MSE'} "
+          f"{ens.oob.error:.4f}; peak RSS {mib(peak)}")
+
+
+COLD = """
+import time, sys
+t0 = time.perf_counter()
+import numpy as np, baggr
+rng = np.random.default_rng(0)
+X = rng.normal(size=(2000, 10)); y = (X[:, 0] > 0).astype(int)
+first = []
+baggr.train(X, y, baggr.Config(members=3, threads=1), on_member=lambda e: first.append(time.perf_counter()))
+print(first[0] - t0)
+"""
+
+
+def cold_start():
+    with tempfile.TemporaryDirectory() as cache:
+        env = dict(os.environ, NUMBA_CACHE_DIR=cache)
+        times = [float(subprocess.run([sys.executable, "-c", COLD], env=env, capture_output=True,
+                                      text=True, check=True).stdout.split()[-1]) for _ in range(2)]
+    print(f"start to first member: cold cache {times[0]:.1f} s, warm cache {times[1]:.1f} s")
+
+
+def main(members=16):
+    print(time.strftime("%Y-%m-%d"), os.uname().machine, f"{os.cpu_count()} cores")
+    X, y = twonorm(100_000, seed=1)
+    run("R1 twonorm", X, y, baggr.Config(features_per_split=4, seed=1), members)
+    X, y = friedman1(100_000, seed=1)
+    run("R3 Friedman #1", X, y, baggr.Config(seed=1), members)
+    cold_start()
+
+
+if __name__ == "__main__":
+    main(*(int(a) for a in sys.argv[1:]))
