@@ -39,7 +39,7 @@ class Prepared:
         return len(self.schema.classes)
 
 
-def prepare(X, y, config: Config) -> Prepared:
+def prepare(X, y, config: Config, target: str | None = None) -> Prepared:
     """Schema, binning and codes for a training table (the binning never looks at the target)."""
     try:
         n_target = len(y)
@@ -47,7 +47,8 @@ def prepare(X, y, config: Config) -> Prepared:
         raise DataError("the target must be a column of values (an array, list or Arrow array)") from None
     if n_target < 2:
         raise DataError(f"the table has {n_target} row(s); bagging needs at least 2")
-    schema, targets = data.fit_schema(X, y, task=config.task)
+    X = data.read_table(X)  # once: a path is read, a dict converted, a numpy array only wrapped
+    schema, targets = data.fit_schema(X, y, task=config.task, target=target)
     binning = data.fit_binning(X, schema, bins=config.bins)
     codes = data.encode(X, schema, binning)
     n = codes.shape[1]
@@ -119,11 +120,11 @@ class Grower:
 class Training:
     """A run in progress: grows members from `next_member` on, folding each into the tallies."""
 
-    def __init__(self, X, y, config: Config, *, prepared: Prepared | None = None):
+    def __init__(self, X, y, config: Config, *, prepared: Prepared | None = None, target: str | None = None):
         if not isinstance(config, Config):
             raise ConfigError("config must be a baggr.Config")
         self.config = config
-        self.prep = prepared or prepare(X, y, config)
+        self.prep = prepared or prepare(X, y, config, target=target)
         self.grower = Grower(self.prep, config)
         self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
                            max(1, self.prep.n_classes), config.vote, capacity=config.members)

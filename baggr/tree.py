@@ -1,0 +1,139 @@
+"""One tree grown on binned codes: the Tree node arrays and grow(), the checked entry to the kernel."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import ConfigError, DataError
+from .split_kernels import ENTROPY, GINI, VARIANCE
+from .tree_kernels import grow_kernel
+
+CRITERIA = {"gini": GINI, "entropy": ENTROPY, "variance": VARIANCE}
+
+
+@dataclass
+class Tree:
+    """Node arrays of one tree; node 0 is the root and children have larger indices than their parent.
+
+    threshold: numeric split goes left when code <= threshold; categorical split: row of cat_masks
+    holding the left-going level set (levels not in it, seen or unseen, go right).
+    value: class shares (classes) or weighted mean (regression) of the node's in-bag draws.
+    candidates: features scanned at the node (constant ones included; 0 where no search ran,
+    > 0 at a leaf whose search found no split). visits = sum of n_rows * candidates over
+    internal nodes.
+    """
+
+    left: np.ndarray          # int32 [n_nodes], -1 at leaves
+    right: np.ndarray         # int32 [n_nodes], -1 at leaves
+    feature: np.ndarray       # int32 [n_nodes], -1 at leaves
+    threshold: np.ndarray     # int32 [n_nodes]
+    is_cat: np.ndarray        # uint8 [n_nodes], 1 for a categorical split
+    missing_left: np.ndarray  # uint8 [n_nodes], 1 if code 255 goes left
+    value: np.ndarray         # float64 [n_nodes, n_out]
+    n_rows: np.ndarray        # int32 [n_nodes], distinct in-bag rows
+    weight: np.ndarray        # int32 [n_nodes], in-bag draw weight
+    impurity: np.ndarray      # float64 [n_nodes]
+    candidates: np.ndarray    # int32 [n_nodes]
+    cat_masks: np.ndarray     # uint64 [n_masks, 4]
+    visits: int
+
+    @property
+    def n_nodes(self) -> int:
+        """Number of nodes."""
+        return int(self.left.shape[0])
+
+    @property
+    def leaves(self) -> np.ndarray:
+        """Indices of the leaves."""
+        return np.flatnonzero(self.left < 0)
+
+
+def grow(codes, n_bins, is_cat, y_class, y_value, weights, *, task, n_classes, criterion,
+         features_per_split, min_leaf, depth_limit, rng_state, exact_below=48) -> Tree:
+    """Grow one tree on feature-major uint8 codes (255 = missing), weighted by draw counts.
+
+    Codes must be below n_bins[f] or 255 (checked once per table by check_codes, not here:
+    that scan would cost a fair share of a tree). rng_state (uint64[1]) is copied, not advanced.
+    """
+    codes = np.asarray(codes)
+    if codes.dtype != np.uint8 or codes.ndim != 2:
+        raise DataError(f"codes must be a 2-d uint8 array (features, rows), got {codes.dtype} {codes.shape}")
+    codes = np.ascontiguousarray(codes)
+    p, n = codes.shape
+    n_bins = _vector(n_bins, np.int32, p, "n_bins")
+    if p and (n_bins.min() < 0 or n_bins.max() > 255):
+        raise DataError("n_bins must be between 0 and 255 for every feature")
+    is_cat = _vector(is_cat, np.uint8, p, "is_cat")
+    weights = _vector(weights, np.int32, n, "weights")
+    if n and weights.min() < 0:
+        raise DataError("weights (draw counts) must be >= 0")
+    inbag = weights > 0
+    if not inbag.any():
+        raise DataError("no in-bag rows to grow a tree on")
+    if task not in ("classes", "regression"):
+        raise ConfigError(f"task must be 'classes' or 'regression', got {task!r}")
+    if criterion not in CRITERIA:
+        raise ConfigError(f"criterion must be one of {', '.join(CRITERIA)}, got {criterion!r}")
+    if (criterion == "variance") != (task == "regression"):
+        raise ConfigError(f"criterion {criterion!r} does not fit task {task!r}")
+    regression = task == "regression"
+    if regression:
+        y_value = _vector(y_value, np.float64, n, "y_value")
+        if not np.isfinite(y_value[inbag]).all():
+            raise DataError("the regression target has missing or infinite values in in-bag rows")
+        y_class = np.zeros(1, np.int32)
+        n_classes = 1
+    else:
+        y_class = _vector(y_class, np.int32, n, "y_class")
+        if not (isinstance(n_classes, (int, np.integer)) and n_classes >= 1):
+            raise ConfigError(f"n_classes must be a whole number >= 1, got {n_classes!r}")
+        yi = y_class[inbag]
+        if yi.min() < 0 or yi.max() >= n_classes:
+            raise DataError(f"class indices must be between 0 and {n_classes - 1}")
+        y_value = np.zeros(1, np.float64)
+    for name, v, low in (("features_per_split", features_per_split, 1), ("min_leaf", min_leaf, 1)):
+        if not (isinstance(v, (int, np.integer)) and not isinstance(v, bool) and v >= low):
+            raise ConfigError(f"{name} must be a whole number >= {low}, got {v!r}")
+    if depth_limit is not None and not (isinstance(depth_limit, (int, np.integer)) and depth_limit >= 0):
+        raise ConfigError(f"depth_limit must be None or a whole number >= 0, got {depth_limit!r}")
+    if not (isinstance(exact_below, (int, np.integer)) and exact_below >= 0):
+        raise ConfigError(f"exact_below must be a whole number >= 0, got {exact_below!r}")
+    state = np.array(rng_state, dtype=np.uint64).reshape(-1).copy()
+    if state.shape != (1,):
+        raise ConfigError("rng_state must be a uint64 array of one element")
+
+    out = grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, int(regression), int(n_classes),
+                      CRITERIA[criterion], int(min(features_per_split, max(p, 1))), int(min_leaf),
+                      -1 if depth_limit is None else int(depth_limit), state, int(exact_below))
+    (left, right, feature, threshold, node_cat, missing_left, value, n_rows, weight,
+     impurity, candidates, cat_masks, n_nodes, n_masks, visits) = out
+    k = int(n_nodes)
+    return Tree(left[:k].copy(), right[:k].copy(), feature[:k].copy(), threshold[:k].copy(),
+                node_cat[:k].copy(), missing_left[:k].copy(), value[:k].copy(), n_rows[:k].copy(),
+                weight[:k].copy(), impurity[:k].copy(), candidates[:k].copy(),
+                cat_masks[:int(n_masks)].copy(), int(visits))
+
+
+def check_codes(codes, n_bins) -> None:
+    """Raise DataError unless every code of feature f is below n_bins[f] or is 255 (missing)."""
+    codes = np.asarray(codes)
+    n_bins = np.asarray(n_bins)
+    for f in range(codes.shape[0]):
+        c = codes[f]
+        bad = (c >= n_bins[f]) & (c != 255)
+        if bad.any():
+            raise DataError(f"feature {f} has code {int(c[bad][0])} but only {int(n_bins[f])} bins")
+
+
+def _vector(a, dtype, size, name):
+    """a as a contiguous 1-d array of dtype and the given length (values must fit the dtype)."""
+    arr = np.asarray(a)
+    if arr.ndim != 1 or arr.shape[0] != size:
+        raise DataError(f"{name} must be a 1-d array of length {size}, got shape {arr.shape}")
+    if arr.dtype != dtype:
+        cast = arr.astype(dtype)
+        if arr.dtype.kind in "iuf" and np.dtype(dtype).kind in "iu" and not np.array_equal(cast, arr):
+            raise DataError(f"{name} does not fit {np.dtype(dtype).name}")
+        arr = cast
+    return np.ascontiguousarray(arr)
