@@ -1,4 +1,4 @@
-"""Scoring many rows with a packed forest, in row chunks over threads."""
+"""Scoring many rows with a packed forest, in row chunks over threads (the kernel releases the GIL)."""
 from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
@@ -6,34 +6,25 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 
 from .forest import Forest
-from .predict_kernels import route
+from .predict_kernels import score_rows
 
-CHUNK = 65536
+CHUNK = 32768
 
 
-def _score_rows(codes, forest: Forest, rows, hard: bool) -> np.ndarray:
+def _score_range(codes, forest: Forest, lo: int, hi: int, hard: bool) -> np.ndarray:
     a = forest.arrays
-    out = np.zeros((rows.shape[0], forest.n_out), np.float64)
-    for m in range(forest.members):
-        n0, n1 = a["node_offset"][m], a["node_offset"][m + 1]
-        k0, k1 = a["mask_offset"][m], a["mask_offset"][m + 1]
-        leaves = route(codes, rows, a["left"][n0:n1], a["right"][n0:n1], a["feature"][n0:n1],
-                       a["threshold"][n0:n1], a["is_cat"][n0:n1], a["missing_left"][n0:n1], a["cat_masks"][k0:k1])
-        val = a["value"][n0:n1][leaves]
-        if hard:
-            out[np.arange(rows.shape[0]), np.argmax(val, axis=1)] += 1.0
-        else:
-            out += val
-    return out
+    sums, votes = score_rows(codes, lo, hi, a["left"], a["right"], a["feature"], a["threshold"], a["is_cat"],
+                             a["missing_left"], a["cat_masks"], a["value"], a["node_offset"], a["mask_offset"], hard)
+    return votes.astype(np.float64) if hard else sums
 
 
 def score(codes: np.ndarray, forest: Forest, *, hard: bool, threads: int = 1) -> np.ndarray:
-    """Summed votes (hard) or summed leaf values of all members, (n, n_out)."""
+    """Summed hard votes (hard) or summed leaf values of all members, (n, n_out) float64."""
     n = codes.shape[1]
-    chunks = [np.arange(s, min(n, s + CHUNK), dtype=np.int32) for s in range(0, n, CHUNK)]
-    if len(chunks) <= 1 or threads <= 1:
-        parts = [_score_rows(codes, forest, c, hard) for c in chunks]
+    spans = [(s, min(n, s + CHUNK)) for s in range(0, n, CHUNK)]
+    if len(spans) <= 1 or threads <= 1:
+        parts = [_score_range(codes, forest, lo, hi, hard) for lo, hi in spans]
     else:
         with ThreadPoolExecutor(max_workers=threads) as pool:
-            parts = list(pool.map(lambda c: _score_rows(codes, forest, c, hard), chunks))
+            parts = list(pool.map(lambda s: _score_range(codes, forest, s[0], s[1], hard), spans))
     return np.concatenate(parts) if parts else np.zeros((0, forest.n_out))
