@@ -1,0 +1,210 @@
+"""The dashboard of one run directory: `watch(run_dir)`."""
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+from textual.app import App, ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal
+from textual.css.query import NoMatches
+from textual.widgets import Footer
+
+from baggr.journal import RunDirError, job_status, request_stop, stop_requested
+
+from .opening import Opening
+from .messages import JournalAdvanced, JournalRestarted, JournalTrouble
+from .screens import HelpScreen, StopScreen
+from .tail import Tail
+from .view import View, make_view
+from .widgets import (Caution, ClassPanel, ConfusionPanel, CurvePanel, FitPanel, ProcessPanel, ProgressPanel,
+                      RunBar, SidePanel)
+from .widgets.settings import SettingsPanel
+from .widgets.process import ProcessProbe
+
+# Redraws a second: 2.5. A plot build costs about 60 ms on this machine (plotext is pure Python),
+# so drawing on every new line would eat a core next to the job; news waits at most 0.4 s.
+REDRAW_EVERY = 0.4
+PLOT_EVERY = 1.0         # s between plot builds while lines arrive; keys and resizes draw at once
+
+
+class Dashboard(App):
+    """Follows a run's journal and shows its progress, OOB curve, classes and process."""
+
+    TITLE = "baggr"
+    ENABLE_COMMAND_PALETTE = False
+    CSS = """
+    Screen {
+        layout: vertical;
+    }
+    #top {
+        height: 1fr;
+        min-height: 10;
+    }
+    #bottom {
+        height: auto;
+        max-height: 40%;
+    }
+    """
+
+    BINDINGS = [
+        Binding("q", "quit", "leave"),
+        Binding("s", "stop_job", "stop job"),
+        Binding("l", "log_scale", "log axis"),
+        Binding("c", "cycle_class", "next class"),
+        Binding("question_mark", "help", "keys"),
+    ]
+
+    def __init__(self, run_dir, *, get_time=time.time, poll: float = 0.1, opening=None):
+        super().__init__()
+        self.run_dir = Path(run_dir)
+        self.get_time = get_time
+        self.tail = Tail(self.run_dir, self.post_message, poll=poll, opening=opening)
+        self.probe = ProcessProbe()
+        self.log_x = False
+        self.highlight: int | None = None
+        self.status = "waiting"
+        self.redraws = 0            # drawn frames (read by the benchmark)
+        self.first_full_draw: float | None = None   # time.perf_counter() of the first draw after the opening read
+        self.view: View | None = None
+        self.trouble: str | None = None
+
+    def compose(self) -> ComposeResult:
+        yield RunBar(id="runbar")
+        with Horizontal(id="top"):
+            yield CurvePanel(id="curve")
+            yield SidePanel(id="side")
+        yield Caution(id="caution")
+        with Horizontal(id="bottom"):
+            yield ClassPanel(id="classes")
+            yield ConfusionPanel(id="confusion")
+            yield FitPanel(id="fit")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        # Once every panel is composed: a fast opening read must not find half a screen to draw on.
+        self.call_after_refresh(self.tail.start)
+        self.set_interval(REDRAW_EVERY, self.tick)
+
+    def on_unmount(self) -> None:
+        self.tail.stop()
+
+    # -- messages from the tailing thread
+
+    def on_journal_advanced(self, message: JournalAdvanced) -> None:
+        self.tail.waiting.clear()
+        if self.first_full_draw is None and not message.backlog:
+            self.redraw()                 # draw the whole history at once, without waiting for the tick
+
+    def on_journal_restarted(self, message: JournalRestarted) -> None:
+        self.highlight = None
+        self.notify("The journal was replaced or cut short: reading it again from the start.",
+                    severity="warning")
+
+    def on_journal_trouble(self, message: JournalTrouble) -> None:
+        self.trouble = message.text
+        self.notify(message.text, severity="error", timeout=8)
+
+    # -- drawing
+
+    def tick(self) -> None:
+        """Every REDRAW_EVERY seconds: the clock, the process and whatever the journal brought."""
+        if not self.tail.caught_up.is_set():
+            # The opening read: say how far it got and leave the tailing thread the interpreter.
+            self.query_one(RunBar).reading(self.run_dir.name, self.tail.lines)
+            return
+        self.redraw()
+
+    def redraw(self) -> None:
+        try:
+            self._redraw()
+        except NoMatches:               # a panel still being composed: the next tick draws it
+            pass
+
+    def _redraw(self) -> None:
+        curve = self.query_one(CurvePanel)
+        with self.tail.lock:
+            state = self.tail.state
+            self.status = job_status(self.run_dir, state)
+            view = make_view(state, run_name=self.run_dir.name, status=self.status, now=self.get_time(),
+                             width=curve.plot_width, log_x=self.log_x, highlight=self.highlight,
+                             stop_requested=stop_requested(self.run_dir), malformed=self.tail.reader.malformed)
+        self.view = view
+        regression = view.task == "regression"
+        self.query_one(ClassPanel).display = not regression
+        self.query_one(ConfusionPanel).display = not regression
+        self.query_one(FitPanel).display = regression
+        self.query_one(RunBar).show(view)
+        self.query_one(ProgressPanel).show(view)
+        curve.show(view, now=time.monotonic(), every=PLOT_EVERY)
+        self.query_one(Caution).show(view)
+        if regression:
+            self.query_one(FitPanel).show(view)
+        else:
+            narrow = self.size.width < 100
+            # The bottom row gets at most 40% of the screen; its frame takes two lines.
+            room = max(3, int(self.size.height * 0.4) - 2)
+            self.query_one(ClassPanel).show(view, narrow=narrow, room=room)
+            # The class table keeps about 50 columns; the matrix shows row shares if the rest allows.
+            self.query_one(ConfusionPanel).show(view, room=self.size.width - 50)
+        self.query_one(ProcessPanel).show(self.probe.look(view.pid, view.pid_started, view.host))
+        self.query_one(SettingsPanel).show(view)
+        self.redraws += 1
+        if self.first_full_draw is None and self.tail.caught_up.is_set():
+            self.first_full_draw = time.perf_counter()
+
+    # -- keys
+
+    def action_log_scale(self) -> None:
+        self.log_x = not self.log_x
+        self.redraw()
+
+    def action_cycle_class(self) -> None:
+        k = len(self.view.classes) if self.view and self.view.is_classes else 0
+        if not k:
+            self.notify("No classes to highlight in a regression run." if self.view and self.view.task
+                        else "No classes known yet.")
+            return
+        # none -> 0 -> 1 -> ... -> k-1 -> none
+        self.highlight = 0 if self.highlight is None else (None if self.highlight + 1 >= k else self.highlight + 1)
+        self.redraw()
+
+    def action_help(self) -> None:
+        if not isinstance(self.screen, HelpScreen):
+            self.push_screen(HelpScreen())
+
+    def action_stop_job(self) -> None:
+        if self.status != "running":
+            self.notify(f"The job is {self.status}: there is nothing to stop.")
+            return
+        if stop_requested(self.run_dir):
+            self.notify("A stop request is already waiting for the job.")
+            return
+        members = self.view.members if self.view else 0
+        self.push_screen(StopScreen(members), self._stop_answered)
+
+    def _stop_answered(self, yes: bool | None) -> None:
+        if not yes:
+            self.notify("The job goes on.")
+            return
+        try:
+            request_stop(self.run_dir)
+        except OSError as exc:
+            self.notify(f"Could not write the stop request: {exc.strerror or exc}", severity="error")
+            return
+        self.notify("Stop requested: the job ends after the member in hand.")
+        self.redraw()
+
+
+def watch(run_dir, *, get_time=time.time, opening=None) -> int:
+    """Show the dashboard of a run directory until `q`; returns the exit code (0).
+
+    opening: an Opening started earlier (see tui.watch, which starts it before importing Textual).
+    """
+    run_dir = Path(run_dir)
+    if not run_dir.is_dir():
+        raise RunDirError(f"no run directory at {run_dir}")
+    if opening is None:
+        opening = Opening(run_dir)
+    Dashboard(run_dir, get_time=get_time, opening=opening).run()
+    return 0

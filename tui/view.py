@@ -1,0 +1,79 @@
+"""A View: the figures of one redraw, copied out of the shared RunState under its lock."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from baggr.journal import RunState
+
+
+@dataclass
+class View:
+    """Everything the panels draw, as plain values (no references into the live state)."""
+
+    run_name: str
+    status: str                     # waiting, running, finished, stopped, failed, crashed
+    reason: str | None = None
+    task: str | None = None
+    classes: list = field(default_factory=list)
+    rows: int | None = None
+    features: int | None = None
+    members: int = 0
+    members_target: int | None = None
+    error: float | None = None
+    interval: tuple | None = None
+    class_figures: list = field(default_factory=list)
+    coverage: float | None = None
+    confusion: list | None = None
+    r2: float | None = None
+    elapsed: float = 0.0
+    rate: float | None = None
+    eta: float | None = None
+    pid: int | None = None
+    pid_started: float | None = None
+    host: str | None = None
+    resumed: bool = False
+    last_checkpoint: int | None = None
+    quiet_for: float | None = None  # seconds since the last journal line, while running
+    warnings: list = field(default_factory=list)
+    unreadable: int = 0             # malformed lines plus events that did not make sense
+    stop_requested: bool = False
+    log_x: bool = False
+    highlight: int | None = None
+    curves: dict = field(default_factory=dict)   # series -> (xs, ys), downsampled for drawing
+    config: dict | None = None      # the start line's settings
+    version: int = 0                # events folded so far: the curve changed when this did
+
+    @property
+    def is_classes(self) -> bool:
+        return self.task != "regression"
+
+
+def make_view(state: RunState, *, run_name: str, status: str, now: float, width: int, log_x: bool,
+              highlight: int | None, stop_requested: bool, malformed: int) -> View:
+    """Copy the figures out of `state` (call with its lock held); curves downsampled to `width` points."""
+    running = status == "running"
+    elapsed = state.elapsed
+    if running and state.member_t is not None:
+        elapsed += max(0.0, now - state.member_t)   # the clock goes on between member lines
+    curves = {}
+    if state.curve_member:
+        series = ["error", "lo", "hi"]
+        if state.task == "regression":
+            series.append("r2")
+        series += list(range(len(state.curve_class)))
+        for s in series:
+            curves[s] = state.curve(s, width=width, log=log_x)
+    return View(
+        run_name=run_name, status=status, reason=state.reason, task=state.task,
+        classes=list(state.classes), rows=state.rows, features=state.features,
+        members=state.members, members_target=state.members_target,
+        error=state.error, interval=state.interval, class_figures=state.class_figures(),
+        coverage=state.coverage, confusion=[list(r) for r in state.confusion] if state.confusion else None,
+        r2=state.r2, elapsed=elapsed, rate=state.rate, eta=state.eta() if running else None,
+        pid=state.pid, pid_started=state.pid_started, host=state.host, resumed=state.resumed,
+        last_checkpoint=state.last_checkpoint,
+        quiet_for=(now - state.last_t) if running and state.last_t is not None else None,
+        warnings=list(state.warnings)[-3:], unreadable=malformed + state.unreadable,
+        stop_requested=stop_requested, log_x=log_x, highlight=highlight, curves=curves,
+        version=state.events, config=dict(state.config) if isinstance(state.config, dict) else None,
+    )

@@ -1,0 +1,76 @@
+"""Per class: rows, share, OOB error and its Wilson 95% interval."""
+from __future__ import annotations
+
+from rich.table import Table
+from rich.text import Text
+
+from .. import fmt
+from ..view import View
+from .base import Panel
+from .palette import class_colour, class_mark, rgb
+
+COLUMNS = ("class", "rows", "share", "OOB error", "95% interval", "covered")
+NARROW = COLUMNS[:-1]        # below 100 columns of terminal: the covered count makes way
+
+
+def class_rows(v: View) -> list[tuple]:
+    """Table rows: "all" first, then one per class (cells as plain strings)."""
+    out = [("all", fmt.count(v.rows), "100%", fmt.pct(v.error, 2), fmt.span(v.interval, True),
+            fmt.count(sum(sum(r) for r in v.confusion)) if v.confusion else "-")]
+    for f in v.class_figures:
+        out.append((f["name"], fmt.count(f["rows"]), fmt.pct(f["share"]), fmt.pct(f["error"], 2),
+                    fmt.span(f["interval"], True), fmt.count(f["covered"])))
+    return out
+
+
+def window(n: int, room: int, keep: int | None) -> range:
+    """Which of n class rows to show in `room` lines, keeping row `keep` in view."""
+    if n <= room:
+        return range(n)
+    start = 0 if keep is None else min(max(0, keep - room // 2), n - room)
+    return range(start, start + room)
+
+
+def class_table(v: View, narrow: bool, mono: bool, room: int = 1000) -> Table:
+    cols = NARROW if narrow else COLUMNS
+    rows = class_rows(v)
+    t = Table(box=None, padding=(0, 1), show_edge=False, header_style="dim", expand=False)
+    for i, c in enumerate(cols):
+        t.add_column(c, justify="left" if i == 0 else "right", no_wrap=True)
+    shown = window(len(rows) - 1, max(1, room - 2), v.highlight)   # the header and "all" take two lines
+    for i in [0] + [k + 1 for k in shown]:
+        r = rows[i]
+        if i == 0:
+            label = Text.assemble("  " if mono else "   ", (r[0], "bold"))
+        elif mono:
+            label = Text.assemble((class_mark(i - 1) + " ", "bold"), r[0])
+        else:
+            label = Text.assemble(("━━ ", rgb(class_colour(i - 1))), r[0])
+        style = "reverse" if v.highlight is not None and i == v.highlight + 1 else ""
+        t.add_row(label, *r[1:len(cols)], style=style)
+    return t
+
+
+class ClassPanel(Panel):
+    """The per-class table; the highlighted class is shown reversed and kept in view."""
+
+    DEFAULT_CSS = """
+    ClassPanel {
+        height: auto;
+        width: 1fr;
+        border: round $foreground 30%;
+        border-title-color: $text-muted;
+        padding: 0 0;
+    }
+    """
+
+    def on_mount(self) -> None:
+        self.border_title = "by class"
+
+    def show(self, v: View, narrow: bool = False, room: int = 1000) -> None:
+        mono = self.app.no_color
+        n = len(v.class_figures)
+        key = (tuple(class_rows(v)), narrow, mono, room, v.highlight)
+        hidden = max(0, n - max(1, room - 2))
+        if self.put(key, lambda: class_table(v, narrow, mono, room), lines=min(n + 2, room)):
+            self.border_subtitle = f"{hidden} more: c shows them" if hidden else ""

@@ -1,0 +1,72 @@
+"""The confusion matrix of the OOB votes: true class down, voted class across, counts and row shares."""
+from __future__ import annotations
+
+from rich.table import Table
+from rich.text import Text
+
+from ..view import View
+from .base import Panel
+
+
+def short(name: str, n: int = 8) -> str:
+    return name if len(name) <= n else name[: n - 1] + "~"
+
+
+def needed_width(v: View, shares: bool) -> int:
+    """Columns the matrix takes, frame included."""
+    conf = v.confusion or []
+    names = [short(c) for c in v.classes] or ["true"]
+    cell = max([len(f"{c:,}") for row in conf for c in row] + [1]) + (5 if shares else 0)
+    cell = max(cell, max(len(n) for n in names))
+    return max(4, max(len(n) for n in names)) + 2 + len(conf) * (cell + 2) + 2
+
+
+def confusion_table(v: View, room: int = 1000) -> Table | Text:
+    """The matrix as a rich table; row shares beside the counts when `room` columns allow."""
+    conf = v.confusion
+    if not conf:
+        return Text("no OOB votes yet", style="italic")
+    k = len(conf)
+    wide = needed_width(v, True) <= room
+    t = Table(box=None, padding=(0, 1), show_edge=False, header_style="dim")
+    t.add_column("true", no_wrap=True, style="dim")
+    for j in range(k):
+        name = v.classes[j] if j < len(v.classes) else str(j)
+        t.add_column(short(name), justify="right", no_wrap=True)
+    for i, row in enumerate(conf):
+        total = sum(row)
+        cells = []
+        for j, c in enumerate(row):
+            share = c / total if total else 0.0
+            txt = f"{c:,}"
+            if wide:
+                txt += f" {100 * share:3.0f}%"
+            cells.append(Text(txt, style="bold" if i == j else ""))
+        name = v.classes[i] if i < len(v.classes) else str(i)
+        style = "reverse" if v.highlight == i else ""
+        t.add_row(Text(short(name), style=style), *cells)
+    return t
+
+
+class ConfusionPanel(Panel):
+    """Counts of OOB votes by true class (rows) and voted class (columns), with row shares."""
+
+    DEFAULT_CSS = """
+    ConfusionPanel {
+        height: auto;
+        width: auto;
+        max-width: 60%;
+        border: round $foreground 30%;
+        border-title-color: $text-muted;
+        padding: 0 0;
+    }
+    """
+
+    def on_mount(self) -> None:
+        self.border_title = "confusion"
+
+    def show(self, v: View, room: int = 1000) -> None:
+        wide = bool(v.confusion) and needed_width(v, True) <= room
+        key = (str(v.confusion), tuple(v.classes), v.highlight, wide)
+        if self.put(key, lambda: confusion_table(v, room), lines=len(v.confusion or ()) + 1):
+            self.border_subtitle = "" if not v.confusion else ("true class by OOB vote, row %" if wide else "true by vote")

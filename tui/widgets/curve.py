@@ -1,0 +1,221 @@
+"""The OOB error curve over ensemble size: all rows, each class, and the 95% band."""
+from __future__ import annotations
+
+import math
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.containers import Vertical
+from textual_plotext import PlotextPlot
+
+from ..view import View
+from .base import Panel
+from .palette import (BAND, DIMMED, MONO_BAND, MONO_OVERALL, OVERALL, class_colour, class_mark, rgb)
+
+# About e^-1 = 0.368 of the members leave a given row out of their bootstrap draw (Breiman 1996).
+OOB_SHARE = math.exp(-1)
+
+
+def caution(v: View, room: int = 1000) -> str:
+    """The caution about small ensembles; with the present count of judging trees when it fits on the line."""
+    cite = "(Bylander 2002; Janitza & Hornung 2018)."
+    judged = OOB_SHARE * v.members
+    long = f"Early OOB error reads high: each row is judged by only ~0.37 x members trees (now ~{judged:,.0f}) {cite}"
+    if len(long) <= room:
+        return long
+    return f"Early OOB error reads high: each row is judged by only ~0.37 x members trees {cite}"
+
+
+def nice_ticks(lo: float, hi: float, most: int = 6) -> list[int]:
+    """Whole-number ticks 1, 2 or 5 x 10^k apart between lo and hi, at most about `most` of them."""
+    span = max(hi - lo, 1)
+    steps = (m * 10 ** e for e in range(0, 15) for m in (1, 2, 5))
+    step = next(st for st in steps if span / st <= max(1, most - 1))
+    first = int(math.ceil(lo / step) * step)
+    ticks = list(range(first, int(hi) + 1, step))
+    ticks = [t for t in ticks if t >= lo]
+    if lo <= 1 and (not ticks or ticks[0] - 1 >= step / 2):
+        ticks.insert(0, 1)             # the first member is where every curve starts
+    return ticks or [int(lo)]
+
+
+def log_ticks(lo: float, hi: float, width: int = 80) -> tuple[list[float], list[str]]:
+    """Ticks for a log10 member axis between members lo and hi: 1, 10, 100 ... (and 2, 5 where there is room)."""
+    decades = math.log10(max(hi, 1)) - math.log10(max(lo, 1))
+    steps = (1, 2, 5) if decades * 3 * 6 <= width else (1,)
+    ticks, labels = [], []
+    for e in range(int(math.floor(math.log10(max(lo, 1)))), int(math.ceil(math.log10(max(hi, 1)))) + 1):
+        for s in steps:
+            x = s * 10 ** e
+            if lo <= x <= hi:
+                ticks.append(math.log10(x))
+                labels.append(f"{x:,}" if x < 10_000 else f"{x // 1000:,}k")
+    return ticks, labels
+
+
+class CurvePlot(PlotextPlot):
+    """The plot itself (drawn by plotext)."""
+
+    DEFAULT_CSS = """
+    CurvePlot {
+        height: 1fr;
+        min-height: 5;
+    }
+    """
+
+    _drawn = None
+    _painted_key = None
+    _painted = None
+
+    def render(self):
+        # textual-plotext builds the whole plot on every render, and Textual renders a widget again
+        # on any layout pass of the screen (about 60 ms a build here, measured): keep the last build
+        # until the data, the size or the theme change.
+        key = (self._drawn, self.size, self.app.theme)
+        if key != self._painted_key or self._painted is None:
+            self._painted = super().render()
+            self._painted_key = key
+        return self._painted
+
+    _drawn_at = -1e9
+    _last_args = None
+
+    def on_resize(self) -> None:
+        # Ticks are laid out for the width: draw again at once (also after the first layout).
+        if self._last_args is not None:
+            self.draw(*self._last_args)
+
+    def draw(self, v: View, mono: bool, now: float = 0.0, every: float = 0.0) -> None:
+        """Plot the view's curves; new data alone redraws at most every `every` seconds."""
+        self._last_args = (v, mono)
+        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes), self.size)
+        if key == self._drawn:
+            return
+        only_data = self._drawn is not None and key[1:] == self._drawn[1:]
+        if only_data and now - self._drawn_at < every:
+            return
+        self._drawn, self._drawn_at = key, now
+        plt = self.plt
+        plt.clear_figure()      # settings too: the tick choice differs between linear and log
+        plt.frame(False)        # the panel's border is frame enough
+        scale = 100.0 if v.is_classes else 1.0
+        log = v.log_x
+
+        def xs_of(xs):
+            return [math.log10(x) for x in xs] if log else list(xs)
+
+        def put(series, colour, mark):
+            xs, ys = v.curves.get(series, ((), ()))
+            if len(xs) == 0:
+                return
+            plt.plot(xs_of(xs), [y * scale for y in ys], marker=mark, color=colour)
+
+        if v.curves:
+            put("lo", BAND, MONO_BAND if mono else "braille")
+            put("hi", BAND, MONO_BAND if mono else "braille")
+            if v.is_classes:
+                order = [k for k in range(len(v.classes)) if k != v.highlight]
+                if v.highlight is not None:
+                    order.append(v.highlight)          # drawn last: on top
+                for k in order:
+                    dim = v.highlight is not None and k != v.highlight
+                    put(k, DIMMED if dim else class_colour(k), class_mark(k) if mono else "braille")
+            put("error", OVERALL, MONO_OVERALL if mono else "braille")
+            xs = v.curves["error"][0]
+            if len(xs):
+                lo, hi = xs[0], xs[-1]
+                if log:
+                    # plotext's own log scale re-applies itself on every build; the log is taken here instead.
+                    ticks, labels = log_ticks(lo, hi, self.size.width)
+                    if ticks:
+                        plt.xticks(ticks, labels)
+                else:
+                    ticks = nice_ticks(lo, hi, most=max(2, self.size.width // 10))
+                    plt.xticks(ticks, [f"{x:,}" for x in ticks])
+        self.refresh()
+
+
+def curve_key(v: View, mono: bool) -> Text:
+    """One line saying which line is which."""
+    t = Text(no_wrap=True, overflow="ellipsis")
+    t.append((MONO_OVERALL if mono else "━") + " all", style="" if mono else rgb(OVERALL))
+    t.append("  ")
+    t.append((MONO_BAND if mono else "─") + " 95%", style="" if mono else rgb(BAND))
+    if v.is_classes:
+        for k, name in enumerate(v.classes):
+            dim = v.highlight is not None and k != v.highlight
+            t.append("  ")
+            style = "" if mono else rgb(DIMMED if dim else class_colour(k))
+            if v.highlight == k:
+                style += " bold underline"
+            t.append((class_mark(k) if mono else "━") + " " + name, style=style.strip())
+    return t
+
+
+class Caution(Panel):
+    """The line under the curve about small ensembles."""
+
+    DEFAULT_CSS = """
+    Caution {
+        height: auto;
+        padding: 0 1;
+        color: $text-muted;
+    }
+    """
+
+    def show(self, v: View) -> None:
+        room = max(10, self.size.width - 2)
+        text = caution(v, room)
+        self.put(text, lambda: text, lines=-(-len(text) // room))
+
+
+class CurveKey(Panel):
+    """Which line is which."""
+
+    DEFAULT_CSS = """
+    CurveKey {
+        height: 1;
+    }
+    """
+
+    def show(self, v: View, mono: bool) -> None:
+        self.put((tuple(v.classes), v.highlight, mono, v.task), lambda: curve_key(v, mono), lines=1)
+
+
+class CurvePanel(Vertical):
+    """Plot, its key and the caution about small ensembles."""
+
+    DEFAULT_CSS = """
+    CurvePanel {
+        width: 1fr;
+        height: 1fr;
+        border: round $foreground 30%;
+        border-title-color: $text-muted;
+        padding: 0 1;
+    }
+    """
+
+    def compose(self) -> ComposeResult:
+        yield CurvePlot(id="curve-plot")
+        yield CurveKey(id="curve-key")
+
+    def on_mount(self) -> None:
+        self.border_title = "OOB error by ensemble size"
+
+    @property
+    def plot_width(self) -> int:
+        """Points worth drawing: braille has two dots per cell across."""
+        plots = self.query(CurvePlot)
+        return max(40, 2 * plots.first().size.width) if plots else 200
+
+    def show(self, v: View, now: float = 0.0, every: float = 0.0) -> None:
+        mono = self.app.no_color
+        what = "OOB error, % of rows" if v.is_classes else "OOB MSE"
+        title = f"{what} by ensemble size"
+        subtitle = f"members axis: {'log' if v.log_x else 'linear'} (l)"
+        if (title, subtitle) != (self.border_title, self.border_subtitle):   # setting them repaints
+            self.border_title, self.border_subtitle = title, subtitle
+        if not self.query(CurvePlot) or not self.query(CurveKey):
+            return                      # not composed yet: the next redraw draws it
+        self.query_one(CurvePlot).draw(v, mono, now, every)
+        self.query_one(CurveKey).show(v, mono)

@@ -1,0 +1,41 @@
+"""For regression: the OOB figures of the fit in place of the per-class panels."""
+from __future__ import annotations
+
+from rich.table import Table
+from rich.text import Text
+
+from .. import fmt
+from ..view import View
+from .base import Panel
+
+
+def fit_table(v: View) -> Table:
+    g = Table.grid(padding=(0, 2))
+    g.add_column(style="dim", no_wrap=True)
+    g.add_column(no_wrap=True)
+    g.add_row("OOB MSE", Text(fmt.num(v.error), style="bold"))
+    g.add_row("95% interval", fmt.span(v.interval, False))
+    g.add_row("OOB R²", fmt.num(v.r2) if v.r2 is None else f"{v.r2:.4f}")
+    g.add_row("RMSE", "-" if v.error is None else fmt.num(v.error ** 0.5))
+    g.add_row("covered", "-" if v.coverage is None else f"{fmt.pct(v.coverage)} of {fmt.count(v.rows)} rows")
+    return g
+
+
+class FitPanel(Panel):
+    """OOB MSE, its interval, R² and coverage."""
+
+    DEFAULT_CSS = """
+    FitPanel {
+        height: auto;
+        width: 1fr;
+        border: round $foreground 30%;
+        border-title-color: $text-muted;
+        padding: 0 1;
+    }
+    """
+
+    def on_mount(self) -> None:
+        self.border_title = "out-of-bag fit"
+
+    def show(self, v: View) -> None:
+        self.put((v.error, v.interval, v.r2, v.coverage, v.rows), lambda: fit_table(v), lines=5)

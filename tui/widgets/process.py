@@ -1,0 +1,102 @@
+"""The job's process as the operating system sees it: pid, threads, CPU and memory."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import psutil
+from rich.table import Table
+from rich.text import Text
+
+from baggr.journal import pid_alive, same_host
+
+from .. import fmt
+from .base import Panel
+
+
+@dataclass
+class ProcessFigures:
+    """One look at the job's process."""
+
+    pid: int | None
+    host: str | None
+    alive: bool
+    local: bool = True
+    threads: int | None = None
+    cpu: float | None = None        # percent of one core, summed over threads
+    rss: int | None = None
+
+
+class ProcessProbe:
+    """Keeps one psutil handle on the start line's process, so CPU % is measured between looks."""
+
+    def __init__(self):
+        self._key = None
+        self._proc = None
+
+    def look(self, pid, pid_started, host) -> ProcessFigures:
+        if pid is None:
+            return ProcessFigures(None, host, False)
+        if not same_host(host):
+            return ProcessFigures(pid, host, False, local=False)
+        key = (pid, pid_started)
+        if key != self._key:
+            self._key, self._proc = key, None
+            if pid_alive(pid, pid_started):
+                try:
+                    self._proc = psutil.Process(int(pid))
+                    self._proc.cpu_percent(None)     # the first reading is always 0: start the clock
+                except psutil.Error:
+                    self._proc = None
+        proc = self._proc
+        if proc is None:
+            return ProcessFigures(pid, host, False)
+        try:
+            with proc.oneshot():
+                if proc.status() == psutil.STATUS_ZOMBIE:
+                    raise psutil.NoSuchProcess(proc.pid)
+                return ProcessFigures(pid, host, True, threads=proc.num_threads(),
+                                      cpu=proc.cpu_percent(None), rss=proc.memory_info().rss)
+        except psutil.Error:
+            self._proc = None
+            return ProcessFigures(pid, host, False)
+
+
+class ProcessPanel(Panel):
+    """pid, threads, CPU % and memory of the job, or a plain word when it is not running."""
+
+    DEFAULT_CSS = """
+    ProcessPanel {
+        height: auto;
+        border-top: solid $foreground 30%;
+        border-title-color: $text-muted;
+        padding: 0 1;
+    }
+    """
+
+    def on_mount(self) -> None:
+        self.border_title = " job process "
+
+    def show(self, p: ProcessFigures) -> None:
+        # CPU shown in whole percent and memory in MB: repaint only when those change.
+        key = (p.pid, p.host, p.alive, p.local, p.threads, None if p.cpu is None else round(p.cpu),
+               fmt.size(p.rss))
+        self.put(key, lambda: self._grid(p), lines=3 if p.alive else 2)
+
+    def _grid(self, p: ProcessFigures) -> Table:
+        g = Table.grid(padding=(0, 1, 0, 0))
+        g.add_column(style="dim", no_wrap=True, min_width=7)
+        g.add_column(no_wrap=True, overflow="ellipsis")
+        where = f" on {p.host}" if p.host else ""
+        if p.pid is None:
+            g.add_row("pid", Text("none yet", style="italic"))
+        elif not p.local:
+            g.add_row("pid", f"{p.pid}{where}")
+            g.add_row("", Text("other host: not visible here", style="italic"))
+        elif not p.alive:
+            g.add_row("pid", f"{p.pid}{where}")
+            g.add_row("", Text("not running", style="bold"))
+        else:
+            g.add_row("pid", f"{p.pid}{where}")
+            g.add_row("threads", f"{p.threads}   cpu {p.cpu:.0f}%")
+            g.add_row("memory", fmt.size(p.rss))
+        return g

@@ -1,0 +1,63 @@
+"""The top line: which run this is, what it learns, and how the job stands."""
+from __future__ import annotations
+
+from rich.table import Table
+from rich.text import Text
+
+from ..view import View
+from .base import Panel
+from .palette import STATUS_STYLE
+
+STATUS_WORDS = {
+    "waiting": "waiting for the job's first line",
+    "running": "running",
+    "finished": "finished",
+    "stopped": "stopped on request",
+    "failed": "failed",
+    "crashed": "crashed: process gone, no end line",
+}
+
+
+def task_words(v: View) -> str:
+    if v.task is None:
+        return "no start line yet"
+    shape = f"{v.rows:,} rows · {v.features} features" if v.rows is not None and v.features is not None else ""
+    if v.task == "regression":
+        what = "regression"
+    else:
+        what = f"{len(v.classes)} classes"
+    return f"{what} · {shape}" if shape else what
+
+
+class RunBar(Panel):
+    """One line naming the run and its status."""
+
+    DEFAULT_CSS = """
+    RunBar {
+        height: 1;
+        padding: 0 1;
+        background: $panel;
+        color: $text;
+    }
+    """
+
+    def show(self, v: View) -> None:
+        self.put((v.run_name, task_words(v), v.status, v.stop_requested), lambda: self._line(v), lines=1)
+
+    def reading(self, run_name: str, lines: int) -> None:
+        """While the opening read runs."""
+        words = f"  reading the journal: {lines:,} lines" if lines else "  reading the journal..."
+        self.put(("reading", lines), lambda: Text.assemble(("baggr", "dim"), "  ", (run_name, "bold"), words),
+                 lines=1)
+
+    def _line(self, v: View) -> Table:
+        grid = Table.grid(expand=True)
+        grid.add_column(ratio=1, no_wrap=True, overflow="ellipsis")
+        grid.add_column(justify="right", no_wrap=True)
+        left = Text.assemble(("baggr", "dim"), ("  ", ""), (v.run_name, "bold"), ("  ", ""), (task_words(v), ""))
+        words = STATUS_WORDS.get(v.status, v.status)
+        if v.status == "running" and v.stop_requested:
+            words = "running, stop requested"
+        right = Text(words, style=STATUS_STYLE.get(v.status, ""))
+        grid.add_row(left, right)
+        return grid

@@ -1,0 +1,31 @@
+"""The side column: progress above, the job's process below, in one frame."""
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.containers import Vertical
+
+from .process import ProcessPanel
+from .progress import ProgressPanel
+from .settings import SettingsPanel
+
+
+class SidePanel(Vertical):
+    """Progress, process and settings share one frame, to spare rows on a small terminal; what does not fit is cut."""
+
+    DEFAULT_CSS = """
+    SidePanel {
+        width: 34;
+        height: 100%;
+        border: round $foreground 30%;
+        border-title-color: $text-muted;
+        overflow: hidden hidden;
+    }
+    """
+
+    def compose(self) -> ComposeResult:
+        yield ProgressPanel(id="progress")
+        yield ProcessPanel(id="process")
+        yield SettingsPanel(id="settings")
+
+    def on_mount(self) -> None:
+        self.border_title = "progress"
