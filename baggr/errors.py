@@ -15,3 +15,7 @@ class ConfigError(BaggrError):
 
 class ModelFileError(BaggrError):
     """A model or checkpoint file is missing, truncated, corrupt or from another format version."""
+
+
+class RunDirError(BaggrError):
+    """A run directory is missing, busy, or cannot be used as asked."""

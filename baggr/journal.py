@@ -16,7 +16,7 @@ from bisect import bisect_left
 from collections import deque
 from pathlib import Path
 
-from .errors import BaggrError
+from .errors import BaggrError, RunDirError  # noqa: F401  (RunDirError: re-exported)
 from .intervals import wilson
 
 try:  # optional: parses a journal about 4.7x faster than the json module (0.16 s against 0.76 s
@@ -28,10 +28,6 @@ JOURNAL = "journal.jsonl"
 STOP = "stop"
 STATUSES = ("waiting", "running", "finished", "stopped", "failed", "crashed")
 END_STATUSES = ("finished", "stopped", "failed")
-
-
-class RunDirError(BaggrError):
-    """A run directory is missing or cannot be used."""
 
 
 # ---------------------------------------------------------------- writing

@@ -25,6 +25,9 @@ def write_atomic(path, arrays: dict, header: dict) -> None:
             np.savez(f, header=blob, **arrays)
             f.flush()
             os.fsync(f.fileno())
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; a model is as readable as any file written here
         os.replace(tmp, path)
     except BaseException:
         try:

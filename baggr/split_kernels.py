@@ -1,30 +1,35 @@
-"""numba kernels of the split search at one node: per-code statistics and the best prefix split.
-
-A feature's in-bag statistics at a node go into a 256-bin histogram (bin 255 = missing). The
-codes present in the node are then listed in ascending order (`pc[0:J]`) in one of two ways:
-large nodes test every bin for a count; small nodes (the exact path) set a bit per row in a
-256-bit map and read the set bits in order, so neither clearing nor scanning all 256 bins is
-needed. The scans below read only the listed bins, so the two ways give bit-identical splits.
+"""numba kernels of the split search at one node: impurities and the best prefix split of one
+candidate feature, read from its histogram hist[q] (see hist_kernels) at the present codes pc[0:J].
 
 Scores are the weighted child impurity w_L * imp(L) + w_R * imp(R): Gini (1 - sum p_k^2),
 entropy in bits (-sum p_k log2 p_k) or, for regression, the weighted sum of squared deviations,
 computed as Q - (S_L^2 / W_L + S_R^2 / W_R) with y centred at the node mean (Q is the node's
-SSE, fixed at the node).
+SSE, fixed at the node). Ties keep the first split found.
+
+Candidate splits of one feature, in scan order: left = the first j + 1 present codes, for
+j = 0..J-2, each with the node's in-bag missing rows (code 255) first on the left, then on the
+right; then "every present code left, missing alone right". Without in-bag missing rows, missing
+values met later go to the heavier child. Numeric codes are scanned in code order. Categorical
+levels are scanned by their in-bag share of class 1 (two classes) or their mean (regression),
+which finds the best of all level subsets (Breiman et al. 1984, sec. 9.4; Fisher 1958); with
+more classes, by their share of the node's most frequent class, a heuristic that can miss the
+best subset. The orders use the node's in-bag rows only.
 """
+import numba
 import numpy as np
 
-from .jit import kernel
+from .jit import KERNEL, kernel
+
+# Helpers called once per (node, feature) are inlined into the tree kernel at numba's IR level:
+# as separate functions each call increfs and decrefs every array argument (two atomic operations
+# per array), which cost more than the work of a small node. (numba's cache of the tree kernel
+# keys on tree_kernels.py alone; tree_kernels drops it when this file or hist_kernels changes.)
+inline = numba.njit(inline="always", **KERNEL)
 
 GINI = 0
 ENTROPY = 1
 VARIANCE = 2
 MISSING = 255
-
-# de Bruijn sequence for the index of the lowest set bit (Leiserson, Prokop, Randall 1998)
-_DEBRUIJN = np.uint64(0x03F79D71B4CB0A89)
-_BIT_INDEX = np.zeros(64, np.int32)
-for _i in range(64):
-    _BIT_INDEX[((1 << _i) * 0x03F79D71B4CB0A89 % (1 << 64)) >> 58] = _i
 
 
 @kernel
@@ -59,7 +64,7 @@ def impurity_counts(cnt, crit):
     return wimp_counts(cnt, 0, cnt.shape[0], crit) / w
 
 
-@kernel
+@inline
 def _wimp2(a, b, crit):
     """w * impurity of two class counts (floats holding whole numbers)."""
     w = a + b
@@ -73,7 +78,20 @@ def _wimp2(a, b, crit):
     return s
 
 
-@kernel
+@inline
+def _pair2(a, b, c, d, crit):
+    """Score of a two-class split: w * impurity of (a, b) plus that of (c, d), both non-empty.
+
+    Gini over one division: w_L - S_L / w_L + w_R - S_R / w_R = W - (S_L w_R + S_R w_L) / (w_L w_R).
+    """
+    wl = a + b
+    wr = c + d
+    if crit == GINI:
+        return (wl + wr) - ((a * a + b * b) * wr + (c * c + d * d) * wl) / (wl * wr)
+    return _wimp2(a, b, crit) + _wimp2(c, d, crit)
+
+
+@inline
 def _wimp_side(lc, tot, miss, n_classes, crit, right, with_miss):
     """w * impurity of one child: left = lc, right = tot - lc, each plus miss when with_miss."""
     w = 0.0
@@ -103,142 +121,181 @@ def _wimp_side(lc, tot, miss, n_classes, crit, right, with_miss):
 
 # ---- which codes are present ---------------------------------------------------------------------
 
-@kernel
-def bits_to_codes(bits, pc):
-    """Codes of the set bits of a 256-bit map (bit 255, missing, excluded) in ascending order; returns J."""
-    j = 0
-    one = np.uint64(1)
-    for word in range(4):
-        x = bits[word]
-        if word == 3:
-            x &= ~(one << np.uint64(63))
-        while x != 0:
-            low = x & (~x + one)
-            pc[j] = word * 64 + _BIT_INDEX[(low * _DEBRUIJN) >> np.uint64(58)]
-            j += 1
-            x ^= low
-        bits[word] = 0
-    return j
-
-
-@kernel
-def build_classes(codes_f, idx, lab, wt, lo, hi, n_classes, nb, sparse, hist, bits, pc):
-    """Histogram of weighted class counts per code over the node's rows; lists present codes, returns J."""
-    if sparse:
-        one = np.uint64(1)
-        for i in range(lo, hi):
-            b = np.int64(codes_f[idx[i]])
-            hist[b * n_classes + lab[i]] += wt[i]
-            bits[b >> 6] |= one << np.uint64(b & 63)
-        return bits_to_codes(bits, pc)
-    for i in range(lo, hi):
-        hist[np.int64(codes_f[idx[i]]) * n_classes + lab[i]] += wt[i]
-    j = 0
-    if n_classes == 2:
-        for b in range(nb):
-            if hist[2 * b] + hist[2 * b + 1] > 0:
-                pc[j] = b
-                j += 1
-        return j
-    for b in range(nb):
-        o = b * n_classes
-        s = 0
-        for k in range(n_classes):
-            s += hist[o + k]
-        if s > 0:
-            pc[j] = b
-            j += 1
-    return j
-
-
-@kernel
-def build_values(codes_f, idx, wt, ws, lo, hi, nb, sparse, hist_w, hist_s, bits, pc):
-    """Histogram of sum w and sum w*(y - node mean) per code over the node's rows; returns J."""
-    if sparse:
-        one = np.uint64(1)
-        for i in range(lo, hi):
-            b = np.int64(codes_f[idx[i]])
-            hist_w[b] += wt[i]
-            hist_s[b] += ws[i]
-            bits[b >> 6] |= one << np.uint64(b & 63)
-        return bits_to_codes(bits, pc)
-    for i in range(lo, hi):
-        b = codes_f[idx[i]]
-        hist_w[b] += wt[i]
-        hist_s[b] += ws[i]
-    j = 0
-    for b in range(nb):
-        if hist_w[b] > 0:
-            pc[j] = b
-            j += 1
-    return j
-
-
-@kernel
-def clear_classes(J, pc, n_classes, hist):
-    """Zero the listed bins and the missing bin."""
-    for j in range(J):
-        o = pc[j] * n_classes
-        for k in range(n_classes):
-            hist[o + k] = 0
-    for k in range(n_classes):
-        hist[MISSING * n_classes + k] = 0
-
-
-@kernel
-def clear_values(J, pc, hist_w, hist_s):
-    """Zero the listed bins and the missing bin."""
-    for j in range(J):
-        hist_w[pc[j]] = 0
-        hist_s[pc[j]] = 0.0
-    hist_w[MISSING] = 0
-    hist_s[MISSING] = 0.0
-
-
 # ---- level order of a categorical feature ------------------------------------------------------
 
 @kernel
-def sort_levels(J, keys, order):
-    """order[0:J] = positions 0..J-1 sorted by keys ascending, ties by position (stable)."""
+def sort_levels(J, keys, order, pc):
+    """Reorder the present codes pc[0:J] by keys ascending, ties by code (stable); order: scratch."""
     if J > 32:
         o = np.argsort(keys[:J], kind="mergesort")
         for j in range(J):
             order[j] = o[j]
-        return
+    else:
+        for j in range(J):
+            key = keys[j]
+            u = j
+            while u > 0 and keys[order[u - 1]] > key:
+                order[u] = order[u - 1]
+                u -= 1
+            order[u] = j
     for j in range(J):
-        key = keys[j]
-        u = j
-        while u > 0 and keys[order[u - 1]] > key:
-            order[u] = order[u - 1]
-            u -= 1
-        order[u] = j
+        keys[j] = pc[order[j]]
+    for j in range(J):
+        pc[j] = np.int32(keys[j])
 
 
 @kernel
-def level_keys_classes(J, pc, hist, n_classes, key_class, keys):
-    """Ordering key per present level: its in-bag share of key_class (class 1 for two classes)."""
+def level_keys_classes(hist, q, J, pc, n_classes, key_class, keys):
+    """Ordering key per present level: its in-bag share of key_class (class 1 for two classes, the
+    node's most frequent class for more)."""
     for j in range(J):
         o = pc[j] * n_classes
         w = 0
         for k in range(n_classes):
-            w += hist[o + k]
-        keys[j] = np.float64(hist[o + key_class]) / np.float64(w)
+            w += hist[q, o + k]
+        keys[j] = np.float64(hist[q, o + key_class]) / np.float64(w)
 
 
 @kernel
-def level_keys_values(J, pc, hist_w, hist_s, keys):
+def level_keys_values(hist_w, hist_s, q, J, pc, keys):
     """Ordering key per present level: its weighted mean target (centred at the node mean)."""
     for j in range(J):
-        keys[j] = hist_s[pc[j]] / np.float64(hist_w[pc[j]])
+        keys[j] = hist_s[q, pc[j]] / np.float64(hist_w[q, pc[j]])
 
 
 # ---- scans --------------------------------------------------------------------------------------
 
 @kernel
-def scan_classes(J, pc, order, hist, node_cnt, n_classes, crit, min_leaf, best, lc, tot, miss, best_left):
-    """Best prefix split of the present codes pc[order[0..]] (classes) scoring below `best`.
+def _entropy_scores(n, ta, tb, ma, mb, fl, work):
+    """scan_two's score pass for entropy (a function of its own: slow anyway, and kept out of the
+    inlined code that the tree kernel compiles)."""
+    big = np.inf
+    tw = ta + tb
+    mw = ma + mb
+    for j in range(n):
+        a = work[0, j]
+        b = work[1, j]
+        c = ta - a
+        d = tb - b
+        wl = a + b
+        wr = tw - wl
+        if mw > 0:
+            ok = wl + mw >= fl and wr >= fl
+            work[2, j] = _pair2(a + ma, b + mb, c, d, ENTROPY) if ok else big
+            ok = wl >= fl and wr + mw >= fl
+            work[3, j] = _pair2(a, b, c + ma, d + mb, ENTROPY) if ok else big
+        else:
+            work[2, j] = _pair2(a, b, c, d, ENTROPY) if (wl >= fl and wr >= fl) else big
 
-    Returns (score, pos, missing_left): left = codes pc[order[0..pos]]; pos = -1 when none beats
+
+@inline
+def scan_two(hist, q, J, pc, ta, tb, ma, mb, crit, fl, best, work, best_left):
+    """scan_classes for two classes, in passes: prefix counts, every threshold's score
+    (infeasible ones +inf), then the first minimum. Gini's pass has no branch and one division
+    per score, so a compiler can vectorise it.
+
+    ta, tb, ma, mb: class counts of the node's non-missing and missing rows; work: float64 [5, 256].
+
+    With min_leaf 1, thresholds between two codes with the same class proportions are skipped:
+    along such a run the score is a concave function of the weight moved left (w * Gini and
+    w * entropy are concave in the counts), so no threshold inside a run beats both its ends
+    (Breiman et al. 1984, sec. 4.3; Fayyad & Irani 1992), and the ends are kept. Deep nodes hold
+    mostly single-row codes, so this drops most thresholds. (With a larger min_leaf an end may be
+    infeasible, so every threshold is scanned.)
+    """
+    merge = fl <= 1.0
+    n = 0
+    a = 0.0
+    b = 0.0
+    if J >= 2:
+        o = 2 * np.int64(np.uint32(pc[0]))
+        na = np.float64(hist[q, o])
+        nb = np.float64(hist[q, o + 1])
+        for j in range(J - 1):
+            ca = na
+            cb = nb
+            o = 2 * np.int64(np.uint32(pc[np.uint32(j + 1)]))
+            na = np.float64(hist[q, o])
+            nb = np.float64(hist[q, o + 1])
+            a += ca
+            b += cb
+            work[0, n] = a
+            work[1, n] = b
+            work[4, n] = j
+            # branch-free: the slot is overwritten unless this threshold ends a run
+            n += np.int64(ca * nb != na * cb) | np.int64(not merge)
+    tw = ta + tb
+    mw = ma + mb
+    big = np.inf
+    if crit == GINI and mw > 0:
+        for j in range(n):
+            a = work[0, j]
+            b = work[1, j]
+            c = ta - a
+            d = tb - b
+            wl = a + b
+            wr = tw - wl
+            # missing left: (a + ma, b + mb) | (c, d); missing right: (a, b) | (c + ma, d + mb)
+            al = a + ma
+            bl = b + mb
+            x = (tw + mw) - ((al * al + bl * bl) * wr + (c * c + d * d) * (wl + mw)) / ((wl + mw) * wr)
+            work[2, j] = x if (wl + mw >= fl and wr >= fl) else big
+            cr = c + ma
+            dr = d + mb
+            y = (tw + mw) - ((a * a + b * b) * (wr + mw) + (cr * cr + dr * dr) * wl) / (wl * (wr + mw))
+            work[3, j] = y if (wl >= fl and wr + mw >= fl) else big
+    elif crit == GINI:
+        for j in range(n):
+            a = work[0, j]
+            b = work[1, j]
+            c = ta - a
+            d = tb - b
+            wl = a + b
+            wr = tw - wl
+            x = tw - ((a * a + b * b) * wr + (c * c + d * d) * wl) / (wl * wr)
+            work[2, j] = x if (wl >= fl and wr >= fl) else big
+    else:
+        _entropy_scores(n, ta, tb, ma, mb, fl, work)
+    bscore = best
+    bj = -1
+    bml = 0
+    for j in range(n):
+        if work[2, j] < bscore:
+            bscore = work[2, j]
+            bj = j
+            bml = 1
+        if mw > 0 and work[3, j] < bscore:
+            bscore = work[3, j]
+            bj = j
+            bml = 0
+    bpos = -1
+    if bj >= 0:
+        bpos = np.int64(work[4, bj])
+        a = work[0, bj]
+        b = work[1, bj]
+        if mw > 0:
+            best_left[0] = a + (ma if bml else 0.0)
+            best_left[1] = b + (mb if bml else 0.0)
+        else:
+            # no in-bag missing row: unseen missing values follow the heavier child
+            bml = 1 if a + b >= tw - (a + b) else 0
+            best_left[0] = a
+            best_left[1] = b
+    if J >= 1 and mw >= fl and tw >= fl:
+        x = _pair2(ta, tb, ma, mb, crit)
+        if x < bscore:
+            bscore, bpos, bml = x, J - 1, 0
+            best_left[0] = ta
+            best_left[1] = tb
+    return bscore, bpos, bml
+
+
+@kernel
+def scan_classes(hist, q, J, pc, node_cnt, n_classes, crit, min_leaf, best, lc, tot, miss, best_left):
+    """Best prefix split of the present codes pc[0:J], in that order (any number of classes; two
+    classes go through the faster scan_two), scoring below `best`.
+
+    Returns (score, pos, missing_left): left = codes pc[0..pos]; pos = -1 when none beats
     best, and best_left is then untouched; otherwise it holds the left child's class counts.
     pos = J - 1 with missing_left 0 is the split "every present code left, missing alone right".
     """
@@ -246,7 +303,7 @@ def scan_classes(J, pc, order, hist, node_cnt, n_classes, crit, min_leaf, best, 
     tw = 0.0
     mw = 0.0
     for k in range(n_classes):
-        miss[k] = hist[mo + k]
+        miss[k] = hist[q, mo + k]
         tot[k] = node_cnt[k] - miss[k]
         lc[k] = 0.0
         tw += tot[k]
@@ -256,50 +313,10 @@ def scan_classes(J, pc, order, hist, node_cnt, n_classes, crit, min_leaf, best, 
     bpos = -1
     bml = 0
     wl = 0.0
-    if n_classes == 2:
-        a = 0.0
-        b = 0.0
-        ta = tot[0]
-        tb = tot[1]
-        ma = miss[0]
-        mb = miss[1]
-        for j in range(J - 1):
-            o = pc[order[j]] * 2
-            a += hist[o]
-            b += hist[o + 1]
-            wl = a + b
-            wr = tw - wl
-            if mw > 0:
-                if wl + mw >= fl and wr >= fl:
-                    s = _wimp2(a + ma, b + mb, crit) + _wimp2(ta - a, tb - b, crit)
-                    if s < bscore:
-                        bscore, bpos, bml = s, j, 1
-                        best_left[0] = a + ma
-                        best_left[1] = b + mb
-                if wl >= fl and wr + mw >= fl:
-                    s = _wimp2(a, b, crit) + _wimp2(ta - a + ma, tb - b + mb, crit)
-                    if s < bscore:
-                        bscore, bpos, bml = s, j, 0
-                        best_left[0] = a
-                        best_left[1] = b
-            elif wl >= fl and wr >= fl:
-                s = _wimp2(a, b, crit) + _wimp2(ta - a, tb - b, crit)
-                if s < bscore:
-                    # no in-bag missing row: unseen missing values follow the heavier child
-                    bscore, bpos, bml = s, j, (1 if wl >= wr else 0)
-                    best_left[0] = a
-                    best_left[1] = b
-        if J >= 1 and mw >= fl and tw >= fl:
-            s = _wimp2(ta, tb, crit) + _wimp2(ma, mb, crit)
-            if s < bscore:
-                bscore, bpos, bml = s, J - 1, 0
-                best_left[0] = ta
-                best_left[1] = tb
-        return bscore, bpos, bml
     for j in range(J - 1):
-        o = pc[order[j]] * n_classes
+        o = pc[j] * n_classes
         for k in range(n_classes):
-            c = hist[o + k]
+            c = hist[q, o + k]
             lc[k] += c
             wl += c
         wr = tw - wl
@@ -335,47 +352,60 @@ def scan_classes(J, pc, order, hist, node_cnt, n_classes, crit, min_leaf, best, 
     return bscore, bpos, bml
 
 
-@kernel
-def scan_values(J, pc, order, hist_w, hist_s, q, min_leaf, best):
-    """Best prefix split of the present codes pc[order[0..]] (regression); same contract as scan_classes.
+@inline
+def scan_values(hist_w, hist_s, h, J, pc, q, min_leaf, best, work):
+    """Best prefix split of candidate h's present codes pc[0:J] (regression); q: the node's SSE.
 
-    Score = q - (S_L^2 / W_L + S_R^2 / W_R), the children's weighted SSE, with S centred sums.
+    Same contract as scan_classes, in passes as scan_two (without skipping: equal means are rare).
+    Score = q - (S_L^2 W_R + S_R^2 W_L) / (W_L W_R), the children's weighted SSE, with S centred
+    sums (one division per score).
     """
-    tw = 0
+    tw = 0.0
     ts = 0.0
     for j in range(J):
-        tw += hist_w[pc[j]]
-        ts += hist_s[pc[j]]
-    mw = hist_w[MISSING]
-    ms = hist_s[MISSING]
-    bscore = best
-    bpos = -1
-    bml = 0
-    wl = 0
+        tw += hist_w[h, pc[j]]
+        ts += hist_s[h, pc[j]]
+    mw = np.float64(hist_w[h, MISSING])
+    ms = hist_s[h, MISSING]
+    fl = np.float64(min_leaf)
+    n = J - 1
+    wl = 0.0
     sl = 0.0
-    for j in range(J - 1):
-        o = pc[order[j]]
-        wl += hist_w[o]
-        sl += hist_s[o]
+    for j in range(n):
+        o = pc[j]
+        wl += hist_w[h, o]
+        sl += hist_s[h, o]
+        work[0, j] = wl
+        work[1, j] = sl
+    big = np.inf
+    for j in range(n):
+        wl = work[0, j]
+        sl = work[1, j]
         wr = tw - wl
         sr = ts - sl
         if mw > 0:
-            if wl + mw >= min_leaf and wr >= min_leaf:
-                a = sl + ms
-                s = q - (a * a / np.float64(wl + mw) + sr * sr / np.float64(wr))
-                if s < bscore:
-                    bscore, bpos, bml = s, j, 1
-            if wl >= min_leaf and wr + mw >= min_leaf:
-                a = sr + ms
-                s = q - (sl * sl / np.float64(wl) + a * a / np.float64(wr + mw))
-                if s < bscore:
-                    bscore, bpos, bml = s, j, 0
-        elif wl >= min_leaf and wr >= min_leaf:
-            s = q - (sl * sl / np.float64(wl) + sr * sr / np.float64(wr))
-            if s < bscore:
-                bscore, bpos, bml = s, j, (1 if wl >= wr else 0)
-    if J >= 1 and mw >= min_leaf and tw >= min_leaf:
-        s = q - (ts * ts / np.float64(tw) + ms * ms / np.float64(mw))
-        if s < bscore:
-            bscore, bpos, bml = s, J - 1, 0
+            a = sl + ms
+            x = q - (a * a * wr + sr * sr * (wl + mw)) / ((wl + mw) * wr)
+            work[2, j] = x if (wl + mw >= fl and wr >= fl) else big
+            a = sr + ms
+            y = q - (sl * sl * (wr + mw) + a * a * wl) / (wl * (wr + mw))
+            work[3, j] = y if (wl >= fl and wr + mw >= fl) else big
+        else:
+            x = q - (sl * sl * wr + sr * sr * wl) / (wl * wr)
+            work[2, j] = x if (wl >= fl and wr >= fl) else big
+    bscore = best
+    bpos = -1
+    bml = 0
+    for j in range(n):
+        if work[2, j] < bscore:
+            bscore, bpos, bml = work[2, j], j, 1
+        if mw > 0 and work[3, j] < bscore:
+            bscore, bpos, bml = work[3, j], j, 0
+    if bpos >= 0 and mw == 0:
+        # no in-bag missing row: unseen missing values follow the heavier child
+        bml = 1 if work[0, bpos] >= tw - work[0, bpos] else 0
+    if J >= 1 and mw >= fl and tw >= fl:
+        x = q - (ts * ts / tw + ms * ms / mw)
+        if x < bscore:
+            bscore, bpos, bml = x, J - 1, 0
     return bscore, bpos, bml

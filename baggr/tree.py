@@ -54,7 +54,10 @@ def grow(codes, n_bins, is_cat, y_class, y_value, weights, *, task, n_classes, c
     """Grow one tree on feature-major uint8 codes (255 = missing), weighted by draw counts.
 
     Codes must be below n_bins[f] or 255 (checked once per table by check_codes, not here:
-    that scan would cost a fair share of a tree). rng_state (uint64[1]) is copied, not advanced.
+    that scan would cost a fair share of a tree). y_class (classes) or y_value (regression) must
+    be valid for every row; the other may be a 1-element dummy. rng_state (uint64[1]) is copied,
+    not advanced. exact_below: nodes with fewer distinct rows take the exact small-node path
+    (same splits, faster there).
     """
     codes = np.asarray(codes)
     if codes.dtype != np.uint8 or codes.ndim != 2:
@@ -68,8 +71,7 @@ def grow(codes, n_bins, is_cat, y_class, y_value, weights, *, task, n_classes, c
     weights = _vector(weights, np.int32, n, "weights")
     if n and weights.min() < 0:
         raise DataError("weights (draw counts) must be >= 0")
-    inbag = weights > 0
-    if not inbag.any():
+    if n == 0 or weights.max() <= 0:
         raise DataError("no in-bag rows to grow a tree on")
     if task not in ("classes", "regression"):
         raise ConfigError(f"task must be 'classes' or 'regression', got {task!r}")
@@ -80,18 +82,20 @@ def grow(codes, n_bins, is_cat, y_class, y_value, weights, *, task, n_classes, c
     regression = task == "regression"
     if regression:
         y_value = _vector(y_value, np.float64, n, "y_value")
-        if not np.isfinite(y_value[inbag]).all():
-            raise DataError("the regression target has missing or infinite values in in-bag rows")
+        if not np.isfinite(y_value).all():
+            raise DataError("the regression target has missing or infinite values")
         y_class = np.zeros(1, np.int32)
         n_classes = 1
     else:
         y_class = _vector(y_class, np.int32, n, "y_class")
         if not (isinstance(n_classes, (int, np.integer)) and n_classes >= 1):
             raise ConfigError(f"n_classes must be a whole number >= 1, got {n_classes!r}")
-        yi = y_class[inbag]
-        if yi.min() < 0 or yi.max() >= n_classes:
+        if y_class.min() < 0 or y_class.max() >= n_classes:
             raise DataError(f"class indices must be between 0 and {n_classes - 1}")
         y_value = np.zeros(1, np.float64)
+        # the kernel packs (weight << bits for a class index) | class into one int32 per row
+        if int(weights.max()) >= 2 ** 31 >> max(int(n_classes) - 1, 0).bit_length():
+            raise DataError("draw counts are too large for this number of classes")
     for name, v, low in (("features_per_split", features_per_split, 1), ("min_leaf", min_leaf, 1)):
         if not (isinstance(v, (int, np.integer)) and not isinstance(v, bool) and v >= low):
             raise ConfigError(f"{name} must be a whole number >= {low}, got {v!r}")

@@ -1,13 +1,18 @@
-"""R1 speed: grow full trees on twonorm and compare the time per visit with a bare histogram loop.
+"""R1 speed: grow full trees on twonorm and compare the time per visit with bare histogram loops.
 
 twonorm (Breiman 1996, "Bias, variance and arcing classifiers"): 20 features, class 0 ~ N(-a, I),
 class 1 ~ N(+a, I), a = 2 / sqrt(20). 100,000 rows, 255 quantile bins per feature, bootstrap
-draws, full trees (min_leaf 1, no depth limit), features_per_split 4.
+draws, full trees (min_leaf 1, no depth limit), Gini, features_per_split 4.
 
-    python bench/tree_speed.py [--rows 100000] [--members 5] [--threads 1]
+    python bench/tree_speed.py [--rows 100000] [--members 6] [--threads 1] [--exact-below 48]
 
-Prints seconds per tree, visits, ns per visit, the calibration kernel's ns per visit (the
-histogram update alone over the same number of gathered (row, feature) visits) and their ratio.
+Prints the first call (compile or cache load), seconds per tree, visits, ns per visit, and two
+calibrations over the same number of visits, each doing only the histogram update:
+  root:   the root's rows (dense, ascending), as DESIGN.md's performance model measures it;
+  replay: every internal node's own rows and candidate count, so the same gathers (scattered
+          rows in deep nodes) as the tree; the rest of member_time is split search and partition.
+Times are thread CPU times, best of several rounds, calibration interleaved with the trees, so
+that other load on the machine inflates both alike.
 """
 from __future__ import annotations
 
@@ -47,9 +52,15 @@ def quantile_codes(x, bins: int = 255):
     return codes, n_bins
 
 
+def bootstrap(n, m):
+    """Bootstrap draw counts of member m (n draws with replacement from n rows)."""
+    rng = np.random.default_rng([2024, m])
+    return np.bincount(rng.integers(0, n, n), minlength=n).astype(np.int32)
+
+
 @kernel
-def histogram_only(codes, feats, idx, lab, wt, visits):
-    """Bare histogram updates over gathered rows, feature after feature, until `visits` are done."""
+def histogram_root(codes, feats, idx, lab, wt, visits):
+    """Bare histogram updates over the root's rows, feature after feature, until `visits` are done."""
     hist = np.zeros(512, np.int64)
     done = 0
     check = 0
@@ -67,16 +78,80 @@ def histogram_only(codes, feats, idx, lab, wt, visits):
     return check
 
 
-def bootstrap(n, m):
-    """Bootstrap draw counts of member m (n draws with replacement from n rows)."""
-    rng = np.random.default_rng([2024, m])
-    return np.bincount(rng.integers(0, n, n), minlength=n).astype(np.int32)
+@kernel
+def node_members(codes, weights, left, right, feature, threshold, n_nodes):
+    """In-bag rows of every node (numeric splits only), ascending: CSR offsets and rows."""
+    count = np.zeros(n_nodes + 1, np.int64)
+    for r in range(codes.shape[1]):
+        if weights[r] > 0:
+            v = 0
+            while True:
+                count[v + 1] += 1
+                if left[v] < 0:
+                    break
+                c = codes[feature[v], r]
+                v = left[v] if (c != 255 and c <= threshold[v]) else right[v]
+    off = np.cumsum(count)
+    rows = np.empty(off[-1], np.int32)
+    fill = off[:-1].copy()
+    for r in range(codes.shape[1]):
+        if weights[r] > 0:
+            v = 0
+            while True:
+                rows[fill[v]] = r
+                fill[v] += 1
+                if left[v] < 0:
+                    break
+                c = codes[feature[v], r]
+                v = left[v] if (c != 255 and c <= threshold[v]) else right[v]
+    return off, rows
+
+
+@kernel
+def histogram_replay(codes, left, candidates, off, rows, lab, wt, feats):
+    """Bare histogram updates over each internal node's rows, candidates[node] features each.
+
+    lab, wt: class and draw count per position of rows. Each node's rows are first copied to a
+    small buffer with their class and weight aligned, as the tree keeps them.
+    """
+    hist = np.zeros(512, np.int64)
+    b_rows = np.empty(off[1] - off[0], np.int32)
+    b_lab = np.empty(off[1] - off[0], np.int32)
+    b_wt = np.empty(off[1] - off[0], np.int64)
+    seen = np.empty(off[1] - off[0], np.int64)
+    check = 0
+    j = 0
+    for v in range(left.shape[0]):
+        if left[v] < 0:
+            continue
+        m = off[v + 1] - off[v]
+        for t in range(m):
+            b_rows[t] = rows[off[v] + t]
+            b_lab[t] = lab[off[v] + t]
+            b_wt[t] = wt[off[v] + t]
+        for c in range(candidates[v]):
+            codes_f = codes[feats[j % feats.shape[0]]]
+            j += 1
+            for t in range(m):
+                b = np.int64(codes_f[b_rows[t]]) * 2
+                seen[t] = b
+                hist[b + b_lab[t]] += b_wt[t]
+            check += hist[7]
+            if m < 256:  # zero again only the bins touched, as the tree does on small nodes
+                for t in range(m):
+                    hist[seen[t]] = 0
+                    hist[seen[t] + 1] = 0
+            else:
+                for b in range(512):
+                    hist[b] = 0
+    return check
 
 
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rows", type=int, default=100_000)
-    ap.add_argument("--members", type=int, default=5)
+    ap.add_argument("--members", type=int, default=6)
+    ap.add_argument("--rounds", type=int, default=4)
     ap.add_argument("--threads", type=int, default=1)
     ap.add_argument("--exact-below", type=int, default=48)
     args = ap.parse_args()
@@ -85,56 +160,59 @@ def main():
     codes, n_bins = quantile_codes(x)
     is_cat = np.zeros(codes.shape[0], np.uint8)
     n = args.rows
+    draws = [bootstrap(n, m) for m in range(args.members + 1)]
 
     def one(m):
-        w = bootstrap(n, m)
-        t0 = time.perf_counter()
-        tree = grow(codes, n_bins, is_cat, y, np.zeros(1), w, task="classes", n_classes=2, criterion="gini",
-                    features_per_split=4, min_leaf=1, depth_limit=None,
+        t0, c0 = time.perf_counter(), time.thread_time()
+        tree = grow(codes, n_bins, is_cat, y, np.zeros(1), draws[m], task="classes", n_classes=2,
+                    criterion="gini", features_per_split=4, min_leaf=1, depth_limit=None,
                     rng_state=stream_state(7, m, STREAM_TREE), exact_below=args.exact_below)
-        return time.perf_counter() - t0, tree
+        return time.perf_counter() - t0, time.thread_time() - c0, tree
 
-    t0 = time.perf_counter()
-    first, _ = one(0)
-    print(f"first call (compile or cache load + one tree): {first:.2f} s")
+    first, _, _ = one(0)
+    print(f"first call (compile, or load from the cache, + one tree): {first:.2f} s")
 
-    times, visits, nodes, rows_in = [], [], [], []
-    t_wall = time.perf_counter()
-    with ThreadPoolExecutor(max_workers=args.threads) as pool:
-        for dt, tree in pool.map(one, range(1, args.members + 1)):
-            times.append(dt)
-            visits.append(tree.visits)
-            nodes.append(tree.n_nodes)
-            rows_in.append(int(tree.n_rows[0]))
-    wall = time.perf_counter() - t_wall
-    sec = float(np.mean(times))
-    v = float(np.mean(visits))
-    ns = sec / v * 1e9
-    inner = sum(int((tree.left >= 0).sum()) for tree in [tree])
+    members = range(1, args.members + 1)
+    cpu = {m: np.inf for m in members}
+    trees = {}
+    cal_root = cal_replay = np.inf  # per visit, measured on member 1's tree
+    feats = np.random.default_rng(3).integers(0, codes.shape[0], 4096).astype(np.int64)
+    w1 = draws[1]
+    idx = np.flatnonzero(w1 > 0).astype(np.int32)
+    lab, wt = y[idx].astype(np.int32), w1[idx].astype(np.int64)
+    histogram_root(codes, feats, idx, lab, wt, 1000)  # compile
+    wall = []
+    for _ in range(args.rounds):
+        t0 = time.perf_counter()
+        with ThreadPoolExecutor(max_workers=args.threads) as pool:
+            for m, (dt, ct, tree) in zip(members, pool.map(one, members)):
+                cpu[m] = min(cpu[m], ct)
+                trees[m] = tree
+        wall.append((time.perf_counter() - t0) / args.members)
+        t = trees[1]
+        c0 = time.thread_time()
+        histogram_root(codes, feats, idx, lab, wt, t.visits)
+        cal_root = min(cal_root, (time.thread_time() - c0) / t.visits)
+        off, rows = node_members(codes, w1, t.left, t.right, t.feature, t.threshold, t.n_nodes)
+        r_lab, r_wt = y[rows].astype(np.int32), w1[rows].astype(np.int64)
+        c0 = time.thread_time()
+        histogram_replay(codes, t.left, t.candidates, off, rows, r_lab, r_wt, feats)
+        cal_replay = min(cal_replay, (time.thread_time() - c0) / t.visits)
+
+    sec = float(np.mean([cpu[m] for m in members]))
+    visits = float(np.mean([trees[m].visits for m in members]))
+    t1 = trees[1]
+    ns = sec / visits * 1e9
     print(f"R1 twonorm: {n} rows x {codes.shape[0]} features, full trees, features_per_split 4, "
-          f"threads {args.threads}")
-    print(f"seconds per tree:   {sec:.4f}  (wall {wall / args.members:.4f} per tree over {args.members})")
-    print(f"nodes per tree:     {np.mean(nodes):.0f}   (last tree: {inner} internal), "
-          f"distinct in-bag rows {np.mean(rows_in):.0f}")
-    print(f"visits per tree:    {v:.0f}")
-    print(f"ns per visit:       {ns:.3f}")
-
-    # calibration: the same number of visits, root rows gathered (ascending), random features
-    w = bootstrap(n, 1)
-    idx = np.flatnonzero(w > 0).astype(np.int32)
-    lab = y[idx].astype(np.int32)
-    wt = w[idx].astype(np.int64)
-    feats = np.random.default_rng(3).integers(0, codes.shape[0], 1000).astype(np.int64)
-    histogram_only(codes, feats, idx, lab, wt, 1000)  # compile
-    best = np.inf
-    for _ in range(3):
-        c0 = time.perf_counter()
-        histogram_only(codes, feats, idx, lab, wt, int(v))
-        best = min(best, time.perf_counter() - c0)
-    cal = best / v * 1e9
-    print(f"calibration ns/visit (histogram update only): {cal:.3f}")
-    print(f"ratio member_time / (visits * calibration):   {sec / (v * best / v):.2f}")
-    print(f"total bench time: {time.perf_counter() - t0:.1f} s")
+          f"exact_below {args.exact_below}, threads {args.threads}")
+    print(f"seconds per tree (thread CPU, best of {args.rounds}): {sec:.4f}   wall per tree: {min(wall):.4f}")
+    print(f"nodes per tree: {np.mean([t.n_nodes for t in trees.values()]):.0f}   "
+          f"distinct in-bag rows: {t1.n_rows[0]}")
+    print(f"visits per tree: {visits:.0f}   ns per visit: {sec / visits * 1e9:.3f}")
+    print(f"calibration, root rows:   {cal_root * 1e9:.3f} ns/visit   "
+          f"ratio member_time / (visits * calibration): {ns / (cal_root * 1e9):.2f}")
+    print(f"calibration, node replay: {cal_replay * 1e9:.3f} ns/visit   "
+          f"ratio member_time / (visits * calibration): {ns / (cal_replay * 1e9):.2f}")
 
 
 if __name__ == "__main__":

@@ -161,3 +161,42 @@ def penguins_csv_path():
         if str(f).replace("\\", "/").endswith("data/penguins.csv"):
             return f.locate()
     raise FileNotFoundError("palmerpenguins' penguins.csv is not installed")
+
+
+# ## runs, report ------------------------------------------------------------------------------
+# The early-stop rule, the "settled at" size and the OOB error rate written out from their
+# definitions, one ensemble size at a time; Wilson's interval from its formula (Wilson 1927,
+# "Probable inference, the law of succession, and statistical inference", JASA 22, eq. for the
+# score interval).
+
+def stable_rule(curve, lo, hi, m, min_members=50, floor=25, part=5) -> bool:
+    """True when after m members the last max(floor, m // part) curve values lie within +-(hi-lo)/2 of curve[m-1]."""
+    if m < min_members:
+        return False
+    w = min(m, max(floor, m // part))
+    e = curve[m - 1]
+    h = (hi[m - 1] - lo[m - 1]) / 2.0
+    return all(abs(curve[k] - e) <= h for k in range(m - w, m))
+
+
+def settled_at(curve, lo, hi):
+    """Smallest size s (1-based) with lo <= curve[k] <= hi for every k >= s - 1; None if the last point is outside."""
+    for s in range(1, len(curve) + 1):
+        if all(lo <= curve[k] <= hi for k in range(s - 1, len(curve))):
+            return s
+    return None
+
+
+def oob_error_rate(pred, y) -> float:
+    """Share of rows with an OOB prediction (not None) whose prediction differs from the true label."""
+    pairs = [(p, t) for p, t in zip(pred, y) if p is not None]
+    return sum(p != t for p, t in pairs) / len(pairs)
+
+
+def wilson_interval(k: int, n: int, z: float = 1.959963984540054):
+    """Wilson score interval for k successes in n trials."""
+    import math
+    p = k / n
+    centre = (p + z * z / (2 * n)) / (1 + z * z / n)
+    half = z / (1 + z * z / n) * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
+    return centre - half, centre + half

@@ -86,22 +86,22 @@ def _check_root(rng, seed, task, n_classes, criterion, allow_cat, must_match):
 def test_root_split_equals_brute_force(task, n_classes, criterion):
     rng = np.random.default_rng(1234 + n_classes + len(criterion))
     kinds = [_check_root(rng, s, task, n_classes, criterion, True, True) for s in range(120)]
-    # the check must have bitten: most cases split and many have a unique optimum
-    assert kinds.count("unique") >= 30
+    # the check must have bitten: most cases split and have a unique optimum
+    assert kinds.count("unique") >= 90
 
 
 @pytest.mark.parametrize("criterion", ["gini", "entropy"])
 def test_three_classes_numeric_equals_brute_force(criterion):
     rng = np.random.default_rng(77)
     kinds = [_check_root(rng, s, "classes", 3, criterion, False, True) for s in range(60)]
-    assert kinds.count("unique") >= 15
+    assert kinds.count("unique") >= 45
 
 
 @pytest.mark.parametrize("criterion", ["gini", "entropy"])
 def test_three_classes_categorical_no_better_than_brute_force(criterion):
     rng = np.random.default_rng(78)
     kinds = [_check_root(rng, s, "classes", 3, criterion, True, False) for s in range(60)]
-    assert kinds.count("heuristic") >= 30
+    assert kinds.count("heuristic") >= 45
 
 
 def _tree_arrays(t):
@@ -112,7 +112,7 @@ def _tree_arrays(t):
 @pytest.mark.parametrize("task,n_classes,criterion", [
     ("classes", 2, "gini"), ("classes", 3, "entropy"), ("regression", 1, "variance"),
 ])
-def test_histogram_and_sort_paths_grow_identical_trees(task, n_classes, criterion):
+def test_histogram_and_exact_paths_grow_identical_trees(task, n_classes, criterion):
     rng = np.random.default_rng(5)
     n, p = 600, 6
     n_bins = np.array([40, 7, 255, 12, 3, 9], np.int32)
@@ -126,7 +126,8 @@ def test_histogram_and_sort_paths_grow_identical_trees(task, n_classes, criterio
         weights = rng.poisson(1.0, n).astype(np.int32)
         kw = dict(task=task, n_classes=n_classes, criterion=criterion, features_per_split=2,
                   min_leaf=1 + m % 2, depth_limit=None, rng_state=stream_state(9, m, STREAM_TREE))
-        trees = [grow(codes, n_bins, is_cat, y_class, y_value, weights, exact_below=e, **kw) for e in (0, 48, 64)]
+        trees = [grow(codes, n_bins, is_cat, y_class, y_value, weights, exact_below=e, **kw)
+                 for e in (0, 48, 64, 10 ** 6)]
         for other in trees[1:]:
             for a, b in zip(_tree_arrays(trees[0]), _tree_arrays(other)):
                 np.testing.assert_array_equal(a, b)  # bit-identical: same splits, same order of additions

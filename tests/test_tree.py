@@ -132,6 +132,23 @@ def test_same_rng_state_same_tree_and_different_state_different_tree():
     assert not (a.n_nodes == c.n_nodes and np.array_equal(a.feature, c.feature))  # the state drives the draw
 
 
+def test_trees_grown_in_threads_equal_trees_grown_one_by_one():
+    # the kernel releases the GIL and keeps no state between calls (DESIGN.md: member m depends
+    # only on data, config, seed and m)
+    from concurrent.futures import ThreadPoolExecutor
+    rng = np.random.default_rng(8)
+    codes, n_bins, is_cat, y_class, y_value = _table(rng, 2000)
+    draws = [rng.poisson(1.0, 2000).astype(np.int32) for _ in range(6)]
+    one = [_grow(codes, n_bins, is_cat, y_class, y_value, w, seed=m) for m, w in enumerate(draws)]
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        many = list(pool.map(lambda a: _grow(codes, n_bins, is_cat, y_class, y_value, a[1], seed=a[0]),
+                             enumerate(draws)))
+    for a, b in zip(one, many):
+        np.testing.assert_array_equal(a.feature, b.feature)
+        np.testing.assert_array_equal(a.threshold, b.threshold)
+        np.testing.assert_array_equal(a.value, b.value)
+
+
 def test_visits_recount():
     rng = np.random.default_rng(5)
     codes, n_bins, is_cat, y_class, y_value = _table(rng, 900)
