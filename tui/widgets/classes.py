@@ -10,7 +10,8 @@ from .base import Panel
 from .palette import class_colour, class_mark, rgb
 
 COLUMNS = ("class", "rows", "share", "OOB error", "95% interval", "covered")
-NARROW = COLUMNS[:-1]        # below 100 columns of terminal: the covered count makes way
+NARROW = COLUMNS[:-1]        # when the full table does not fit, the covered count makes way first
+NARROWEST = ("class", "rows", "OOB error", "95% interval")
 
 
 def class_rows(v: View) -> list[tuple]:
@@ -31,8 +32,8 @@ def window(n: int, room: int, keep: int | None) -> range:
     return range(start, start + room)
 
 
-def class_table(v: View, narrow: bool, mono: bool, room: int = 1000) -> Table:
-    cols = NARROW if narrow else COLUMNS
+def class_table(v: View, narrow: bool, mono: bool, room: int = 1000, cols=None) -> Table:
+    cols = cols or (NARROW if narrow else COLUMNS)
     rows = class_rows(v)
     t = Table(box=None, padding=(0, 1), show_edge=False, header_style="dim", expand=False)
     for i, c in enumerate(cols):
@@ -47,7 +48,7 @@ def class_table(v: View, narrow: bool, mono: bool, room: int = 1000) -> Table:
         else:
             label = Text.assemble(("━━ ", rgb(class_colour(i - 1))), r[0])
         style = "reverse" if v.highlight is not None and i == v.highlight + 1 else ""
-        t.add_row(label, *r[1:len(cols)], style=style)
+        t.add_row(label, *(r[COLUMNS.index(c)] for c in cols[1:]), style=style)
     return t
 
 
@@ -70,7 +71,18 @@ class ClassPanel(Panel):
     def show(self, v: View, narrow: bool = False, room: int = 1000) -> None:
         mono = self.app.no_color
         n = len(v.class_figures)
-        key = (tuple(class_rows(v)), narrow, mono, room, v.highlight)
+        key = (tuple(class_rows(v)), narrow, mono, room, v.highlight, self.content_size.width)
         hidden = max(0, n - max(1, room - 2))
-        if self.put(key, lambda: class_table(v, narrow, mono, room), lines=min(n + 2, room)):
+        if self.put(key, lambda: self._fitting(v, narrow, mono, room), lines=min(n + 2, room)):
             self.border_subtitle = f"{hidden} more: c shows them" if hidden else ""
+
+    def _fitting(self, v: View, narrow: bool, mono: bool, room: int) -> Table:
+        """The widest column set whose table fits the panel (cells are never cut short)."""
+        avail = self.content_size.width
+        if avail <= 0:
+            return class_table(v, narrow, mono, room)
+        for cols in (COLUMNS, NARROW, NARROWEST):
+            t = class_table(v, narrow, mono, room, cols)
+            if self.app.console.measure(t).maximum <= avail:
+                return t
+        return t

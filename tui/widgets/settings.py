@@ -12,9 +12,13 @@ SHOWN = ("members", "features_per_split", "min_leaf", "depth_limit", "draw", "bi
          "keep_members")
 
 
+# What None means for each setting (Config's docs), so the panel never shows a bare dash.
+UNSET = {"features_per_split": "auto", "depth_limit": "none", "threads": "all cores"}
+
+
 def settings_rows(v: View) -> list[tuple[str, str]]:
     cfg = v.config or {}
-    return [(k, "-" if cfg.get(k) is None else str(cfg[k])) for k in SHOWN if k in cfg]
+    return [(k, UNSET.get(k, "-") if cfg.get(k) is None else str(cfg[k])) for k in SHOWN if k in cfg]
 
 
 class SettingsPanel(Panel):
