@@ -286,7 +286,7 @@ def _after_watching(rd) -> int:
 def _attach(rd) -> int:
     """The dashboard on rd, or (while it cannot be imported) a progress bar following the journal."""
     try:
-        from tui.app import watch
+        from tui import watch  # starts reading a long journal while Textual loads
     except ImportError:
         watch = None
     if watch is not None:
