@@ -22,6 +22,7 @@ class Parser(argparse.ArgumentParser):
     """argparse that reports a usage mistake in one line (exit 2), like every other user error."""
 
     def error(self, message):
+        message = message.replace(", '_job'", "")  # the detached job's own entry is not for people
         sys.stderr.write(f"baggr: error: {message} (see: {self.prog} --help)\n")
         sys.exit(2)
 
