@@ -15,22 +15,13 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
 
 from baggr import npzfile
 from baggr.config import Config
 from baggr.engine import Training
 from baggr.forest import Forest
 from baggr.runs import Checkpointer, RunDir, RunSettings
-
-
-def twonorm(rows: int, seed: int = 1):
-    """Breiman's twonorm (Breiman 1996, "Bias, variance and arcing classifiers"): N(+-a, I) in 20-d, a = 2/sqrt(20)."""
-    rng = np.random.default_rng(seed)
-    y = rng.integers(0, 2, rows)
-    a = 2.0 / np.sqrt(20.0)
-    X = rng.normal(size=(rows, 20)) + np.where(y[:, None] == 1, a, -a)
-    return X, y
+from util import twonorm
 
 
 def one_run(X, y, config, settings, folder, background=True):
@@ -53,7 +44,7 @@ def one_run(X, y, config, settings, folder, background=True):
 
 
 def main(members: int = 120, rows: int = 100_000, repeats: int = 2) -> None:
-    X, y = twonorm(rows)
+    X, y = twonorm(rows, seed=1)
     config = Config(members=members, features_per_split=4, seed=0)
     Training(X[:2000], y[:2000], config.replace(members=2)).run()   # compile outside the measured runs
     settings = RunSettings()
