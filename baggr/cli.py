@@ -286,10 +286,14 @@ def _after_watching(rd) -> int:
 
 def _attach(rd) -> int:
     """The dashboard on rd, or (while it cannot be imported) a progress bar following the journal."""
-    try:
-        from tui import watch  # starts reading a long journal while Textual loads
-    except ImportError:
-        watch = None
+    import importlib.util
+    try:  # find, not import: tui.watch starts reading a long journal before Textual loads
+        found = importlib.util.find_spec("tui.app") is not None
+    except (ImportError, ValueError):
+        found = False
+    watch = None
+    if found:
+        from tui import watch
     if watch is not None:
         return int(watch(str(rd.path)) or 0)
     from . import progress as prog

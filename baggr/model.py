@@ -9,7 +9,7 @@ import numpy as np
 from . import __version__, data, npzfile
 from .config import Config
 from .errors import BaggrError, ModelFileError
-from .forest import FIELDS, Forest
+from .forest import Forest
 from .oob import OOB
 
 FORMAT = "baggr-model"

@@ -3,11 +3,11 @@ from __future__ import annotations
 
 import json
 import os
-import tempfile
 import zipfile
 
 import numpy as np
 
+from .atomic import replace_atomic
 from .errors import ModelFileError
 
 ALLOWED_KINDS = "biuf"     # bool, ints, unsigned ints, floats: never objects
@@ -16,33 +16,8 @@ MAX_HEADER = 16 << 20
 
 def write_atomic(path, arrays: dict, header: dict) -> None:
     """Write arrays plus a JSON header to path via a temp file, fsync and rename (never a torn file)."""
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
     blob = np.frombuffer(json.dumps(header, allow_nan=False).encode(), dtype=np.uint8)
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".npz", dir=folder)
-    try:
-        with os.fdopen(fd, "wb") as f:
-            np.savez(f, header=blob, **arrays)
-            f.flush()
-            os.fsync(f.fileno())
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; a model is as readable as any file written here
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-    try:  # make the rename itself durable
-        dfd = os.open(folder, os.O_RDONLY)
-        try:
-            os.fsync(dfd)
-        finally:
-            os.close(dfd)
-    except OSError:
-        pass
+    replace_atomic(path, lambda f: np.savez(f, header=blob, **arrays), suffix=".npz")
 
 
 def read(path, what: str = "model file") -> tuple[dict, dict]:

@@ -19,7 +19,6 @@ import signal
 import socket
 import subprocess
 import sys
-import tempfile
 import time
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -27,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__, npzfile
+from .atomic import replace_atomic
 from .config import Config
 from .errors import BaggrError, DataError, ModelFileError, RunDirError  # noqa: F401
 
@@ -49,8 +49,6 @@ FAULT_CHECKPOINT = "BAGGR_FAULT_CHECKPOINT"  # "enospc" or "enospc:N": the N-th 
 FAULT_KILL = "BAGGR_FAULT_KILL"              # "member:N", "chunk:N" or "model": SIGKILL itself there
 
 
-_UMASK = os.umask(0o022)
-os.umask(_UMASK)                             # read once at import: umask() cannot be read without setting it
 
 
 class DiskFullError(BaggrError):
@@ -125,22 +123,10 @@ def fingerprint(path) -> dict:
 
 def write_json_atomic(path, obj) -> None:
     """Write JSON via a temp file, fsync and rename, so a reader never sees half a file."""
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".json", dir=path.parent)
-    try:
-        os.fchmod(fd, 0o666 & ~_UMASK)     # mkstemp makes 0600; a run's files are as shareable as any other
-        with os.fdopen(fd, "w") as f:
-            json.dump(obj, f, indent=1, allow_nan=False)
-            f.write("\n")
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+    def write(f):
+        json.dump(obj, f, indent=1, allow_nan=False)
+        f.write("\n")
+    replace_atomic(path, write, mode="w", suffix=".json")
 
 
 def default_run_dir(data_path, root="runs") -> Path:

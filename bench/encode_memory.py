@@ -5,7 +5,6 @@ input's size, with and without the uint8 codes themselves (1/8 of a float64 inpu
     python bench/encode_memory.py [rows] [features]
 """
 import sys
-import threading
 import time
 from pathlib import Path
 
@@ -14,29 +13,7 @@ import psutil
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # runs from a checkout without installing
 from baggr.data import encode, fit_binning, fit_schema, read_table
-
-
-class PeakRSS:
-    """Samples this process's resident memory every millisecond in a thread; keeps the maximum."""
-
-    def __init__(self):
-        self.proc, self.peak, self._stop = psutil.Process(), 0, threading.Event()
-
-    def __enter__(self):
-        self.peak = self.proc.memory_info().rss
-        self._t = threading.Thread(target=self._run, daemon=True)
-        self._t.start()
-        return self
-
-    def _run(self):
-        while not self._stop.is_set():
-            self.peak = max(self.peak, self.proc.memory_info().rss)
-            time.sleep(0.001)
-
-    def __exit__(self, *exc):
-        self._stop.set()
-        self._t.join()
-        self.peak = max(self.peak, self.proc.memory_info().rss)
+from util import PeakRSS
 
 
 def main(n=1_000_000, p=50):
