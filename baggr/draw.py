@@ -25,7 +25,11 @@ class Drawer:
 
     def counts(self, member: int) -> np.ndarray:
         """int32 draw count per row for member m (0 = out of bag)."""
-        out = np.zeros(self.n_rows, dtype=np.int32)
+        return self.counts_into(member, np.zeros(self.n_rows, dtype=np.int32))
+
+    def counts_into(self, member: int, out: np.ndarray) -> np.ndarray:
+        """Member m's draw counts written into out (int32, n_rows; any contents): a reused buffer."""
+        out[:] = 0
         state = stream_state(self.seed, member, STREAM_DRAW)
         if self.scheme == "bootstrap":
             k.bootstrap_counts(self.n_rows, self.n_rows, state, out)

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import collections
+import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -13,10 +14,9 @@ from .config import Config
 from .draw import Drawer
 from .errors import ConfigError, DataError
 from .events import MemberEvent
-from .predict_kernels import route
 from .rng import STREAM_TREE, stream_state
 from .tally import MemberDelta, Tally
-from .tree import Tree, grow
+from .tree import Learner, Scratch, Tree
 
 
 @dataclass
@@ -86,29 +86,45 @@ class Grower:
         self.is_cat = prep.binning.is_cat.astype(np.uint8)
         self.drawer = Drawer(config.draw, prep.n_rows, config.seed, fraction=config.draw_fraction,
                              y_class=prep.y_class if prep.task == "classes" else None)
+        self.learner = Learner.make(prep.codes, self.n_bins, self.is_cat, prep.y_class, prep.y_value,
+                                    task=prep.task, n_classes=max(1, prep.n_classes), criterion=self.criterion,
+                                    features_per_split=self.k, min_leaf=config.min_leaf,
+                                    depth_limit=config.depth_limit)
+        # what each OOB row gets from its leaf: a class index (hard votes), class shares, or a value
+        self.oob = "class" if prep.task == "classes" and config.vote == "hard" else "value"
+        # one set of working arrays per thread, reused member after member (no page faults, no zeroing)
+        self._spare: list[Scratch] = []
+        self._lock = threading.Lock()
+
+    def _scratch(self) -> Scratch:
+        with self._lock:
+            if self._spare:
+                return self._spare.pop()
+        return self.learner.scratch(keep=self.config.keep_members)
+
+    def release(self) -> None:
+        """Drop the working arrays (a finished run keeps no per-thread memory)."""
+        with self._lock:
+            self._spare.clear()
 
     def grow_member(self, m: int) -> MemberResult:
         t0 = time.perf_counter()
-        p, cfg = self.prep, self.config
-        w = self.drawer.counts(m)
-        tree = grow(p.codes, self.n_bins, self.is_cat, p.y_class, p.y_value, w, task=p.task,
-                    n_classes=max(1, p.n_classes), criterion=self.criterion, features_per_split=self.k,
-                    min_leaf=cfg.min_leaf, depth_limit=cfg.depth_limit,
-                    rng_state=stream_state(cfg.seed, m, STREAM_TREE))
-        rows = np.flatnonzero(w == 0).astype(np.int32)
-        leaves = route(p.codes, rows, tree.left, tree.right, tree.feature, tree.threshold, tree.is_cat,
-                       tree.missing_left, tree.cat_masks)
-        if p.task == "classes":
-            shares = tree.value[leaves]
-            if cfg.vote == "hard":
-                votes = np.zeros(shares.shape, np.int32)
-                votes[np.arange(rows.shape[0]), np.argmax(shares, axis=1)] = 1  # ties: lowest class
-            else:
-                votes = np.ascontiguousarray(shares)
+        cfg = self.config
+        s = self._scratch()
+        try:
+            w = self.drawer.counts_into(m, s.weights)
+            g = self.learner.grow(w, stream_state(cfg.seed, m, STREAM_TREE), keep=cfg.keep_members,
+                                  oob=self.oob, scratch=s)
+        finally:
+            with self._lock:
+                self._spare.append(s)
+        if self.oob == "class":
+            votes = g.oob_int
+        elif self.prep.task == "classes":
+            votes = g.oob_value
         else:
-            votes = np.ascontiguousarray(tree.value[leaves, 0])
-        keep = tree if cfg.keep_members else None
-        return MemberResult(m, keep, MemberDelta(m, rows, votes), int(tree.visits), tree.n_nodes,
+            votes = g.oob_value[:, 0]
+        return MemberResult(m, g.tree, MemberDelta(m, g.oob_rows, votes), g.visits, g.n_nodes,
                             time.perf_counter() - t0)
 
     def grow_chunk(self, members) -> tuple[list, list]:
@@ -148,7 +164,9 @@ class Training:
         nxt = start
         try:
             while self.next_member < target:
-                while nxt < target and len(inflight) < threads:
+                # one member more than threads in flight: a worker that finishes starts the next
+                # at once, while this thread folds (in member order) the one before
+                while nxt < target and len(inflight) < threads + 1:
                     inflight.append(pool.submit(self.grower.grow_member, nxt))
                     nxt += 1
                 result = inflight.popleft().result()
@@ -172,6 +190,7 @@ class Training:
             for f in inflight:
                 f.cancel()
             pool.shutdown(wait=True, cancel_futures=True)
+            self.grower.release()
         return self.ensemble()
 
     def event(self, oob_rows: int, recent=()) -> MemberEvent:

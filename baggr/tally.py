@@ -15,7 +15,8 @@ class MemberDelta:
 
     member: int
     rows: np.ndarray    # int32 OOB rows
-    votes: np.ndarray   # classes: (len(rows), C) float64 or int32; regression: float64 (len(rows),)
+    votes: np.ndarray   # classes: int32 class per row (hard votes), or (len(rows), C) float64 shares or
+                        # int32 one-hot; regression: float64 (len(rows),)
 
 
 class Tally:
@@ -38,6 +39,8 @@ class Tally:
             self.totals = np.zeros(2, np.int64)
             self.class_rows = np.bincount(y, minlength=n_classes).astype(np.int64)
             self.class_curve = np.full((capacity, n_classes), np.nan)
+            self._no_votes = np.zeros((0, n_classes), self.votes.dtype)
+            self._no_class = np.zeros(0, np.int32)
         else:
             self.value_sum = np.zeros(n, np.float64)
             self.sq_err = np.zeros(n, np.float64)
@@ -50,7 +53,11 @@ class Tally:
         """Fold the next member (deltas must come in member order)."""
         assert delta.member == self.members, "members are folded in order"
         if self.task == "classes":
-            k.fold_classes(delta.rows, delta.votes, self.y, self.votes, self.pred, self.left_out,
+            if delta.votes.ndim == 1:  # hard votes as one class index per row
+                row_votes, row_class = self._no_votes, delta.votes
+            else:
+                row_votes, row_class = delta.votes, self._no_class
+            k.fold_classes(delta.rows, row_votes, row_class, self.y, self.votes, self.pred, self.left_out,
                            self.confusion, self.class_wrong, self.class_covered, self.totals)
         else:
             k.fold_regression(delta.rows, delta.votes, self.y, self.value_sum, self.left_out,

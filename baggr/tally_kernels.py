@@ -1,10 +1,14 @@
 """numba kernels that fold one member's out-of-bag votes into the running tallies, in O(OOB rows)."""
+import numba
 import numpy as np
 
-from .jit import kernel
+from .jit import KERNEL, kernel
+
+# inlined at numba's IR level: a call per row would count references to every array, atomically
+inline = numba.njit(inline="always", **KERNEL)
 
 
-@kernel
+@inline
 def _argmax_row(votes, r):
     """Class with the most votes for row r; ties go to the lowest class index."""
     best = 0
@@ -15,37 +19,50 @@ def _argmax_row(votes, r):
 
 
 @kernel
-def fold_classes(rows, row_votes, y, votes, pred, left_out, confusion, class_wrong, class_covered, totals):
+def fold_classes(rows, row_votes, row_class, y, votes, pred, left_out, confusion, class_wrong, class_covered,
+                 totals):
     """Add one member's votes for its OOB rows and update every running count incrementally.
 
     rows: int32 OOB rows; row_votes: (len(rows), C) votes the member casts for each (one-hot for hard
-    votes, leaf class shares otherwise); votes: (n, C) running tally; pred: int32 current OOB class per
-    row (-1: never out of bag); confusion[true, pred]; totals = [wrong, covered] (int64).
+    votes, leaf class shares otherwise), or empty (0, C) when row_class holds one int32 hard-vote
+    class per row instead; votes: (n, C) running tally; pred: int32 current OOB class per row
+    (-1: never out of bag); confusion[true, pred]; totals = [wrong, covered] (int64).
     """
     n_classes = votes.shape[1]
+    by_class = row_votes.shape[0] < rows.shape[0]
     for i in range(rows.shape[0]):
         r = rows[i]
-        for c in range(n_classes):
-            votes[r, c] += row_votes[i, c]
-        left_out[r] += 1
-        t = y[r]
         old = pred[r]
-        new = _argmax_row(votes, r)
-        if old == new:
-            continue
-        if old < 0:
-            totals[1] += 1
-            class_covered[t] += 1
+        if by_class:
+            # one more vote for class c: the lowest-index maximum is now c or stays old
+            c = row_class[i]
+            votes[r, c] += 1
+            if old < 0 or votes[r, c] > votes[r, old] or (votes[r, c] == votes[r, old] and c < old):
+                new = c
+            else:
+                new = old
         else:
-            confusion[t, old] -= 1
-            if old != t:
-                totals[0] -= 1
-                class_wrong[t] -= 1
-        confusion[t, new] += 1
-        if new != t:
-            totals[0] += 1
-            class_wrong[t] += 1
-        pred[r] = new
+            for c in range(n_classes):
+                votes[r, c] += row_votes[i, c]
+            new = _argmax_row(votes, r)
+        left_out[r] += 1
+        if new != old:
+            t = y[r]
+            if old >= 0:
+                confusion[t, old] -= 1
+            confusion[t, new] += 1
+            pred[r] = new
+    # the other counts follow from the confusion matrix: recounted once, not updated per row
+    totals[0] = 0
+    totals[1] = 0
+    for t in range(n_classes):
+        covered = 0
+        for c in range(n_classes):
+            covered += confusion[t, c]
+        class_covered[t] = covered
+        class_wrong[t] = covered - confusion[t, t]
+        totals[0] += class_wrong[t]
+        totals[1] += covered
 
 
 @kernel

@@ -1,9 +1,12 @@
-"""numba kernel that grows one tree on binned codes, weighted by a member's draw counts.
+"""numba kernel that grows one tree on binned codes, weighted by a member's draw counts, and sends
+the member's out-of-bag rows down it on the way.
 
 Depth-first with an explicit stack over an index of the distinct in-bag rows (a node is a
 contiguous range of that index). Each split moves the node's range into a second buffer, left
 rows forward and right rows backward, so every node's rows stay in monotone row order and the
-gathered reads of codes[f, row] walk through memory in one direction.
+gathered reads of codes[f, row] walk through memory in one direction. The out-of-bag rows ride
+along: each node also owns a range of their positions, partitioned in place by the same rule, so
+a leaf writes its vote for its own out-of-bag rows and no separate routing pass is needed.
 """
 import hashlib
 from pathlib import Path
@@ -22,107 +25,194 @@ from .split_kernels import (
 )
 
 HIST_BYTES = 32768  # histogram scratch per batch of candidate features (about an L1 cache)
+# columns of the node records kept while a tree grows (one int32 row and one float64 row per node)
+L, R, FEAT, THR, ROWS, WGT, CAND, FLAGS = 0, 1, 2, 3, 4, 5, 6, 7
+# columns of a pending node on the depth-first stack
+S_NODE, S_LO, S_HI, S_DEPTH, S_OLO, S_OHI = 0, 1, 2, 3, 4, 5
+# what the kernel writes for each out-of-bag row: its leaf, the leaf's hard-vote class, or the leaf's values
+OOB_LEAF, OOB_CLASS, OOB_VALUE = 0, 1, 2
+# status codes
+OK, NO_ROWS, TOO_HEAVY = 0, 1, 2
 
 
-@inline
-def _goes_left(code, feat_cat, thr, mleft, mask):
-    """1 if a code goes to the left child of a split, else 0 (mask: the left level set when categorical)."""
-    miss = np.int64(code == MISSING) & np.int64(mleft)
-    if feat_cat:
-        # level codes are at most 254, so bit 255 of a mask is never set
-        return np.int64((mask[code >> 6] >> np.uint64(code & 63)) & np.uint64(1)) | miss
-    return np.int64(code <= thr) | miss
+@kernel
+def side_table(feat_cat, thr, mleft, mask, side):
+    """side[c] = 1 if code c goes to the left child of a split, else 0: numeric, left when
+    c <= thr; categorical, left when c is in the level set mask; missing (255), left if mleft."""
+    for c in range(255):
+        if feat_cat:
+            # level codes are at most 254, so bit 255 of a mask is never set
+            side[c] = np.uint8((mask[c >> 6] >> np.uint64(c & 63)) & np.uint64(1))
+        else:
+            side[c] = np.uint8(c <= thr)
+    side[MISSING] = np.uint8(mleft)
 
 
-@inline
-def _partition(codes, f, feat_cat, thr, mleft, mask, lo, hi, idx, lw, yv, src, regression):
-    """Partition positions lo..hi-1 into the other buffer: left rows forward from lo, right rows
-    backward from hi - 1; returns the first right position.
+# The partitions are functions of their own, not inlined into the tree kernel: there the row loop
+# kept spilling its pointers to the stack, at three times the instructions per row. They work in
+# place (Lomuto's scheme, branch-free: every row swaps with the first right one, so a right row only
+# trades places inside the right part): one buffer per array, half the memory of moving the rows
+# into a second buffer, at the same speed. Class counts do not depend on the order of a node's
+# rows; sums of floats (regression) follow it, and it is the same for every run.
 
-    Branch-free (the side a row takes is unpredictable): the slot is chosen by a select and only
-    the counter of the row's side moves.
-    """
+@kernel
+def partition_rows(codes_f, side, lo, hi, idx, lw):
+    """Partition positions lo..hi-1 (left rows first) by side[code] of the split feature's codes
+    codes_f; returns the first right position."""
     nl = lo
-    nr = hi - 1
-    uf = np.uint64(f)
-    a = np.uint64(src)
-    b = np.uint64(1 - src)
     for i in range(lo, hi):
         u = np.uint64(i)
-        r = idx[a, u]
-        g = _goes_left(np.int64(codes[uf, np.uint64(r)]), feat_cat, thr, mleft, mask)
-        slot = np.uint64(nl if g else nr)
-        idx[b, slot] = r
-        lw[b, slot] = lw[a, u]
-        if regression:
-            yv[b, slot] = yv[a, u]
+        r = idx[u]
+        v = lw[u]
+        g = np.int64(side[np.uint64(codes_f[np.uint64(r)])])
+        w = np.uint64(nl)
+        idx[u] = idx[w]
+        lw[u] = lw[w]
+        idx[w] = r
+        lw[w] = v
         nl += g
-        nr -= 1 - g
+    return nl
+
+
+@kernel
+def partition_rows_y(codes_f, side, lo, hi, idx, lw, yv):
+    """partition_rows that also moves each row's target (regression)."""
+    nl = lo
+    for i in range(lo, hi):
+        u = np.uint64(i)
+        r = idx[u]
+        v = lw[u]
+        y = yv[u]
+        g = np.int64(side[np.uint64(codes_f[np.uint64(r)])])
+        w = np.uint64(nl)
+        idx[u] = idx[w]
+        lw[u] = lw[w]
+        yv[u] = yv[w]
+        idx[w] = r
+        lw[w] = v
+        yv[w] = y
+        nl += g
+    return nl
+
+
+@kernel
+def partition_oob(codes_f, side, lo, hi, opos, oob_rows):
+    """Partition the out-of-bag positions opos[lo:hi] (indices into oob_rows) in the same way."""
+    nl = lo
+    for i in range(lo, hi):
+        u = np.uint64(i)
+        e = opos[u]
+        g = np.int64(side[np.uint64(codes_f[np.uint64(oob_rows[np.uint64(e)])])])
+        w = np.uint64(nl)
+        opos[u] = opos[w]
+        opos[w] = e
+        nl += g
     return nl
 
 
 @kernel
 def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_classes, crit,
-                features_per_split, min_leaf, depth_limit, rng_state, exact_below):
-    """Grow one tree; returns the untrimmed node arrays, n_nodes, n_masks and visits.
+                features_per_split, min_leaf, depth_limit, rng_state, exact_below, keep, oob_mode,
+                rows_buf, lw_buf, yv, ws, ni, nf, stk, stkc):
+    """Grow one tree and send its out-of-bag rows (weights == 0) down it on the way.
 
     regression: 0/1; crit: split_kernels.GINI/ENTROPY/VARIANCE; depth_limit < 0: none.
     Nodes with fewer than exact_below distinct rows list their codes from a bit map (exact path).
+    keep: 0 skips the node arrays (estimate-only runs need only the out-of-bag votes).
+    oob_mode: OOB_LEAF (int32 leaf per OOB row), OOB_CLASS (int32 hard-vote class: the leaf's
+    most frequent class, ties to the lowest) or OOB_VALUE (float64 leaf values, [k, n_out]).
+    rows_buf .. stkc: scratch, reused across calls; any that is too small is replaced by a fresh
+    array. rows_buf (int32, >= n) holds the in-bag rows, lw_buf (int32, >= n) their packed draw
+    counts and then the out-of-bag positions. weights may be rows_buf itself: row r's entry is
+    read before any entry at or after r is written.
+
+    Returns (left, right, feature, threshold, is_cat, missing_left, value, n_rows, weight,
+    impurity, candidates, cat_masks) trimmed (empty when keep is 0), n_nodes, visits, oob_rows
+    (ascending), oob_int, oob_val, status (OK, NO_ROWS, TOO_HEAVY: a draw count too large to
+    pack with the class).
     """
     p = codes.shape[0]
     n = codes.shape[1]
     n_out = 1 if regression else n_classes
     C = 1 if regression else n_classes
-
-    d = 0
-    for r in range(n):
-        if weights[r] > 0:
-            d += 1
     # lw packs a row's draw count and class, (weight << shift) | class, so a visit reads one int32
     shift = 0
     while (1 << shift) < C:
         shift += 1
-    # two buffers: a node at depth t holds its rows in buffer t % 2 and partitions into the other
-    # (one 2-d array each rather than two arrays picked per node: numba counts references to
-    # array variables, with atomic operations, every time one is reassigned)
-    idx = np.empty((2, d), np.int32)
-    lw = np.empty((2, d), np.int32)
-    yv = np.empty((2, d if regression else 0), np.float64)
-    t = 0
-    for r in range(n):
-        if weights[r] > 0:
-            idx[0, t] = r
-            if regression:
-                lw[0, t] = weights[r]
-                yv[0, t] = y_value[r]
-            else:
-                lw[0, t] = (weights[r] << shift) | y_class[r]
-            t += 1
+    limit = (1 << (31 - shift)) if not regression else (1 << 31) - 1
 
-    # np.empty, filled node by node: pages past the last node are never touched
-    max_nodes = 2 * d - 1
-    left = np.empty(max_nodes, np.int32)
-    right = np.empty(max_nodes, np.int32)
-    feature = np.empty(max_nodes, np.int32)
-    threshold = np.empty(max_nodes, np.int32)
-    node_cat = np.empty(max_nodes, np.uint8)
-    missing_left = np.empty(max_nodes, np.uint8)
-    value = np.empty((max_nodes, n_out), np.float64)
-    n_rows = np.empty(max_nodes, np.int32)
-    weight = np.empty(max_nodes, np.int32)
-    impurity = np.empty(max_nodes, np.float64)
-    candidates = np.empty(max_nodes, np.int32)
+    d = 0
+    total = np.int64(0)
+    heavy = False
+    for r in range(n):
+        wr = weights[r]
+        if wr > 0:
+            d += 1
+            total += wr
+            heavy |= wr >= limit
+    k_oob = n - d
+    oob_rows = np.empty(k_oob, np.int32)
+    oob_int = np.empty(k_oob if oob_mode != OOB_VALUE else 0, np.int32)
+    oob_val = np.empty((k_oob if oob_mode == OOB_VALUE else 0, n_out), np.float64)
+    status = OK
+    if d == 0:
+        status = NO_ROWS
+    elif heavy or total >= (1 << 31):
+        status = TOO_HEAVY
+    max_nodes = max(2 * d - 1, 1)
     any_cat = False
     for f in range(p):
         if is_cat[f]:
             any_cat = True
-    cat_masks = np.empty((d if any_cat else 0, 4), np.uint64)
+    n_keep = max_nodes if keep else 1
+    # scratch too small for this call: replaced (the caller's pool sizes it for its table)
+    if rows_buf.shape[0] < n:
+        rows_buf = np.empty(n, np.int32)
+    if lw_buf.shape[0] < n:
+        lw_buf = np.empty(n, np.int32)
+    if regression and yv.shape[0] < d:
+        yv = np.empty(d, np.float64)
+    if regression and ws.shape[0] < d:
+        ws = np.empty(d, np.float64)
+    idx = rows_buf[:d]
+    lw = lw_buf[:d]
+    opos = lw_buf[d:n]
+    if ni.shape[0] < n_keep:
+        ni = np.empty((n_keep, 8), np.int32)
+    if nf.shape[0] < n_keep or nf.shape[1] < n_out + 1:
+        nf = np.empty((n_keep, n_out + 1), np.float64)
+    if stk.shape[0] < d + 1:
+        stk = np.empty((d + 1, 6), np.int32)
+    if stkc.shape[0] < d + 1 or stkc.shape[1] < C:
+        stkc = np.empty((d + 1, C), np.float64)
+    cat_masks = np.empty((d if (any_cat and keep) else 0, 4), np.uint64)
+    if status != OK:
+        return (np.empty(0, np.int32), np.empty(0, np.int32), np.empty(0, np.int32), np.empty(0, np.int32),
+                np.empty(0, np.uint8), np.empty(0, np.uint8), np.empty((0, n_out), np.float64),
+                np.empty(0, np.int32), np.empty(0, np.int32), np.empty(0, np.float64), np.empty(0, np.int32),
+                cat_masks, 0, np.int64(0), oob_rows, oob_int, oob_val, status)
+
+    t = 0
+    o = 0
+    for r in range(n):
+        wr = weights[r]
+        if wr > 0:
+            idx[t] = r  # t <= r: when weights is rows_buf, entry r is already read
+            if regression:
+                lw[t] = wr
+                yv[t] = y_value[r]
+            else:
+                lw[t] = (wr << shift) | y_class[r]
+            t += 1
+        else:
+            oob_rows[o] = r
+            opos[o] = o
+            o += 1
 
     # scratch reused by every node; each histogram is zeroed again after use (its listed bins or all)
-    nbatch = max(1, min(8, features_per_split, HIST_BYTES // (2048 * C)))
-    ws = np.empty(d if regression else 0, np.float64)
-    hist = np.zeros((nbatch if not regression else 1, 256 * C), np.int64)
-    hist_w = np.zeros((nbatch if regression else 1, 256), np.int64)
+    nbatch = max(1, min(8, features_per_split, HIST_BYTES // (1024 * C)))
+    hist = np.zeros((nbatch if not regression else 1, 256 * C), np.int32)
+    hist_w = np.zeros((nbatch if regression else 1, 256), np.int32)
     hist_s = np.zeros((nbatch if regression else 1, 256), np.float64)
     bits = np.zeros((nbatch, 4), np.uint64)
     batch = np.zeros(nbatch, np.int64)
@@ -133,28 +223,27 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
     cand_left = np.zeros(C, np.float64)
     best_left = np.zeros(C, np.float64)
     nodecnt = np.zeros(C, np.float64)
+    nodeval = np.zeros(n_out, np.float64)
     lkeys = np.zeros(256, np.float64)
     work = np.empty((5, 256), np.float64)
     order = np.zeros(256, np.int32)
     best_mask = np.zeros(4, np.uint64)
+    side = np.zeros(256, np.uint8)
     perm = np.arange(p).astype(np.int32)
 
     # depth-first: at most one pending sibling per level, so depth + 2 <= d + 1 entries
-    stack_node = np.empty(d + 1, np.int32)
-    stack_lo = np.empty(d + 1, np.int32)
-    stack_hi = np.empty(d + 1, np.int32)
-    stack_depth = np.empty(d + 1, np.int32)
-    stack_cnt = np.empty((d + 1, C), np.float64)  # class counts of a pending node, known from its split
-    stack_node[0] = 0
-    stack_lo[0] = 0
-    stack_hi[0] = d
-    stack_depth[0] = 0
+    stk[0, S_NODE] = 0
+    stk[0, S_LO] = 0
+    stk[0, S_HI] = d
+    stk[0, S_DEPTH] = 0
+    stk[0, S_OLO] = 0
+    stk[0, S_OHI] = k_oob
     for k in range(C):
-        stack_cnt[0, k] = 0.0
+        stkc[0, k] = 0.0
     if not regression:
         lmask = (1 << shift) - 1
         for i in range(d):
-            stack_cnt[0, lw[0, i] & lmask] += lw[0, i] >> shift
+            stkc[0, lw[i] & lmask] += lw[i] >> shift
     sp = 1
     n_nodes = 1
     n_masks = 0
@@ -162,19 +251,20 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
 
     while sp > 0:
         sp -= 1
-        node = stack_node[sp]
-        lo = stack_lo[sp]
-        hi = stack_hi[sp]
-        depth = stack_depth[sp]
+        node = stk[sp, S_NODE]
+        lo = stk[sp, S_LO]
+        hi = stk[sp, S_HI]
+        depth = stk[sp, S_DEPTH]
+        olo = stk[sp, S_OLO]
+        ohi = stk[sp, S_OHI]
         m = hi - lo
-        src = depth & 1  # the buffer holding this node's rows
-        left[node] = -1
-        right[node] = -1
-        feature[node] = -1
-        threshold[node] = -1
-        node_cat[node] = 0
-        missing_left[node] = 0
-        candidates[node] = 0
+        rec = node if keep else 0  # estimate-only: every node's record goes to one slot
+        ni[rec, L] = -1
+        ni[rec, R] = -1
+        ni[rec, FEAT] = -1
+        ni[rec, THR] = -1
+        ni[rec, FLAGS] = 0
+        ni[rec, CAND] = 0
 
         # node statistics
         w = 0.0
@@ -184,162 +274,215 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
         key_class = 0
         if regression:
             s = 0.0
-            ymin = yv[src, lo]
-            ymax = yv[src, lo]
+            ymin = yv[lo]
+            ymax = yv[lo]
             iw = np.int64(0)
             for i in range(lo, hi):
-                iw += lw[src, i]
-                s += np.float64(lw[src, i]) * yv[src, i]
-                ymin = min(ymin, yv[src, i])
-                ymax = max(ymax, yv[src, i])
+                iw += lw[i]
+                s += np.float64(lw[i]) * yv[i]
+                ymin = min(ymin, yv[i])
+                ymax = max(ymax, yv[i])
             w = np.float64(iw)
             mu = s / w
             for i in range(lo, hi):
-                dv = yv[src, i] - mu
-                ws[i] = np.float64(lw[src, i]) * dv
+                dv = yv[i] - mu
+                ws[i] = np.float64(lw[i]) * dv
                 q += ws[i] * dv
-            value[node, 0] = mu
-            impurity[node] = q / w
+            nodeval[0] = mu
+            nf[rec, n_out] = q / w
             pure = ymin == ymax
             parent = q
         else:
             kmax = 0
             for k in range(C):
-                nodecnt[k] = stack_cnt[sp, k]
+                nodecnt[k] = stkc[sp, k]
                 w += nodecnt[k]
                 if nodecnt[k] > nodecnt[kmax]:
                     kmax = k
             for k in range(C):
-                value[node, k] = nodecnt[k] / w
+                nodeval[k] = nodecnt[k] / w
             pure = nodecnt[kmax] == w
             parent = wimp_counts(nodecnt, 0, C, crit)
-            impurity[node] = parent / w
+            nf[rec, n_out] = parent / w
             key_class = 1 if C == 2 else kmax
-        n_rows[node] = m
-        weight[node] = np.int32(w)
+        for k in range(n_out):
+            nf[rec, k] = nodeval[k]
+        ni[rec, ROWS] = m
+        ni[rec, WGT] = np.int32(w)
 
-        if pure or w < 2 * min_leaf or depth == depth_limit:
-            continue
-
-        # Split search over features drawn afresh at this node (partial Fisher-Yates). Candidates
-        # are drawn in batches of those still needed, so the draws, the features scanned and their
-        # order are exactly those of drawing one at a time until features_per_split non-constant
-        # ones have been evaluated.
-        best = parent - (1e-12 * parent + 1e-15)
         best_f = -1
-        best_ml = 0
-        best_thr = 0
-        scanned = 0
-        evaluated = 0
-        j = 0
-        sparse = m < exact_below
-        while evaluated < features_per_split and j < p:
-            need = min(features_per_split - evaluated, nbatch)
-            nb_batch = 0
-            while nb_batch < need and j < p:
-                r = j + below(rng_state, p - j)
-                f = perm[r]
-                perm[r] = perm[j]
-                perm[j] = f
-                j += 1
-                if n_bins[f] > 1:  # a feature with one bin can never split: not scanned
-                    batch[nb_batch] = f
-                    nb_batch += 1
-            if regression:
-                build_values(codes, idx, lw, src, ws, lo, hi, batch, nb_batch, sparse, hist_w, hist_s, bits)
-            else:
-                build_classes(codes, idx, lw, src, shift, lo, hi, C, batch, nb_batch, sparse, hist, bits)
-            scanned += nb_batch
-            for h in range(nb_batch):
-                f = batch[h]
-                nb = n_bins[f]
+        if not (pure or w < 2 * min_leaf or depth == depth_limit):
+            # Split search over features drawn afresh at this node (partial Fisher-Yates). Candidates
+            # are drawn in batches of those still needed, so the draws, the features scanned and their
+            # order are exactly those of drawing one at a time until features_per_split non-constant
+            # ones have been evaluated.
+            best = parent - (1e-12 * parent + 1e-15)
+            best_ml = 0
+            best_thr = 0
+            scanned = 0
+            evaluated = 0
+            j = 0
+            sparse = m < exact_below
+            while evaluated < features_per_split and j < p:
+                need = min(features_per_split - evaluated, nbatch)
+                nb_batch = 0
+                while nb_batch < need and j < p:
+                    r = j + below(rng_state, p - j)
+                    f = perm[r]
+                    perm[r] = perm[j]
+                    perm[j] = f
+                    j += 1
+                    if n_bins[f] > 1:  # a feature with one bin can never split: not scanned
+                        batch[nb_batch] = f
+                        nb_batch += 1
                 if regression:
-                    J = list_values(hist_w, h, nb, sparse, bits, pc)
-                    has_miss = hist_w[h, MISSING] > 0
+                    build_values(codes, idx, lw, ws, lo, hi, batch, nb_batch, sparse, hist_w, hist_s, bits)
                 else:
-                    J = list_classes(hist, h, nb, C, sparse, bits, pc)
-                    has_miss = False
-                    for k in range(C):
-                        if hist[h, MISSING * C + k] > 0:
-                            has_miss = True
-                if J + (1 if has_miss else 0) > 1:  # a feature constant in the node does not count
-                    evaluated += 1
-                    fc = is_cat[f] != 0
-                    if fc:  # scan the levels in order of their target share or mean
-                        if regression:
-                            level_keys_values(hist_w, hist_s, h, J, pc, lkeys)
-                        else:
-                            level_keys_classes(hist, h, J, pc, C, key_class, lkeys)
-                        sort_levels(J, lkeys, order, pc)
+                    build_classes(codes, idx, lw, shift, lo, hi, C, batch, nb_batch, sparse, hist, bits)
+                scanned += nb_batch
+                for h in range(nb_batch):
+                    f = batch[h]
+                    nb = n_bins[f]
                     if regression:
-                        sc, pos, ml = scan_values(hist_w, hist_s, h, J, pc, q, min_leaf, best, work)
-                    elif C == 2:
-                        ma = np.float64(hist[h, 2 * MISSING])
-                        mb = np.float64(hist[h, 2 * MISSING + 1])
-                        sc, pos, ml = scan_two(hist, h, J, pc, nodecnt[0] - ma, nodecnt[1] - mb, ma, mb, crit,
-                                               np.float64(min_leaf), best, work, cand_left)
+                        J = list_values(hist_w, h, nb, sparse, bits, pc)
+                        has_miss = hist_w[h, MISSING] > 0
                     else:
-                        sc, pos, ml = scan_classes(hist, h, J, pc, nodecnt, C, crit, min_leaf, best, lc, tot, miss,
-                                                   cand_left)
-                    if pos >= 0:
-                        best = sc
-                        best_f = f
-                        best_ml = ml
+                        J = list_classes(hist, h, nb, C, sparse, bits, pc)
+                        has_miss = False
                         for k in range(C):
-                            best_left[k] = cand_left[k]
-                        if fc:
-                            for u in range(4):
-                                best_mask[u] = 0
-                            for u in range(pos + 1):
-                                code = pc[u]
-                                best_mask[code >> 6] |= np.uint64(1) << np.uint64(code & 63)
+                            if hist[h, MISSING * C + k] > 0:
+                                has_miss = True
+                    if J + (1 if has_miss else 0) > 1:  # a feature constant in the node does not count
+                        evaluated += 1
+                        fc = is_cat[f] != 0
+                        if fc:  # scan the levels in order of their target share or mean
+                            if regression:
+                                level_keys_values(hist_w, hist_s, h, J, pc, lkeys)
+                            else:
+                                level_keys_classes(hist, h, J, pc, C, key_class, lkeys)
+                            sort_levels(J, lkeys, order, pc)
+                        if regression:
+                            sc, pos, ml = scan_values(hist_w, hist_s, h, J, pc, q, min_leaf, best, work)
+                        elif C == 2:
+                            ma = np.float64(hist[h, 2 * MISSING])
+                            mb = np.float64(hist[h, 2 * MISSING + 1])
+                            sc, pos, ml = scan_two(hist, h, J, pc, nodecnt[0] - ma, nodecnt[1] - mb, ma, mb, crit,
+                                                   np.float64(min_leaf), best, work, cand_left)
                         else:
-                            best_thr = pc[pos]  # threshold: the largest present code going left
-                if regression:
-                    clear_values(hist_w, hist_s, h, J, pc, sparse)
-                else:
-                    clear_classes(hist, h, J, pc, C, sparse)
-        candidates[node] = scanned
+                            sc, pos, ml = scan_classes(hist, h, J, pc, nodecnt, C, crit, min_leaf, best, lc, tot,
+                                                       miss, cand_left)
+                        if pos >= 0:
+                            best = sc
+                            best_f = f
+                            best_ml = ml
+                            for k in range(C):
+                                best_left[k] = cand_left[k]
+                            if fc:
+                                for u in range(4):
+                                    best_mask[u] = 0
+                                for u in range(pos + 1):
+                                    code = pc[u]
+                                    best_mask[code >> 6] |= np.uint64(1) << np.uint64(code & 63)
+                            else:
+                                best_thr = pc[pos]  # threshold: the largest present code going left
+                    if regression:
+                        clear_values(hist_w, hist_s, h, J, pc, sparse)
+                    else:
+                        clear_classes(hist, h, J, pc, C, sparse)
+            ni[rec, CAND] = scanned
+            if best_f >= 0:
+                visits += np.int64(m) * scanned
+
         if best_f < 0:
+            # a leaf: its out-of-bag rows get its vote
+            if oob_mode == OOB_LEAF:
+                for i in range(olo, ohi):
+                    oob_int[opos[i]] = node
+            elif oob_mode == OOB_CLASS:
+                top = 0
+                for k in range(1, n_out):
+                    if nodeval[k] > nodeval[top]:
+                        top = k
+                for i in range(olo, ohi):
+                    oob_int[opos[i]] = top
+            else:
+                for i in range(olo, ohi):
+                    for k in range(n_out):
+                        oob_val[opos[i], k] = nodeval[k]
             continue
 
         # split: record, partition, push the children (right first, so the left is grown first)
-        visits += np.int64(m) * scanned
         fc = is_cat[best_f] != 0
         if fc:
             thr = n_masks
-            for u in range(4):
-                cat_masks[n_masks, u] = best_mask[u]
-            n_masks += 1
+            if keep:
+                for u in range(4):
+                    cat_masks[n_masks, u] = best_mask[u]
+                n_masks += 1
         else:
             thr = best_thr
-        feature[node] = best_f
-        threshold[node] = thr
-        node_cat[node] = 1 if fc else 0
-        missing_left[node] = best_ml
-        mid = _partition(codes, best_f, fc, thr, best_ml, best_mask, lo, hi, idx, lw, yv, src, regression)
+        ni[rec, FEAT] = best_f
+        ni[rec, THR] = thr
+        ni[rec, FLAGS] = (1 if fc else 0) | (best_ml << 1)
+        side_table(fc, thr, best_ml, best_mask, side)
+        cf = codes[best_f]
+        if regression:
+            mid = partition_rows_y(cf, side, lo, hi, idx, lw, yv)
+        else:
+            mid = partition_rows(cf, side, lo, hi, idx, lw)
+        omid = partition_oob(cf, side, olo, ohi, opos, oob_rows)
         lnode = n_nodes
         rnode = n_nodes + 1
         n_nodes += 2
-        left[node] = lnode
-        right[node] = rnode
-        stack_node[sp] = rnode
-        stack_lo[sp] = mid
-        stack_hi[sp] = hi
-        stack_depth[sp] = depth + 1
+        ni[rec, L] = lnode
+        ni[rec, R] = rnode
+        stk[sp, S_NODE] = rnode
+        stk[sp, S_LO] = mid
+        stk[sp, S_HI] = hi
+        stk[sp, S_DEPTH] = depth + 1
+        stk[sp, S_OLO] = omid
+        stk[sp, S_OHI] = ohi
         for k in range(C):
-            stack_cnt[sp, k] = nodecnt[k] - best_left[k]
+            stkc[sp, k] = nodecnt[k] - best_left[k]
         sp += 1
-        stack_node[sp] = lnode
-        stack_lo[sp] = lo
-        stack_hi[sp] = mid
-        stack_depth[sp] = depth + 1
+        stk[sp, S_NODE] = lnode
+        stk[sp, S_LO] = lo
+        stk[sp, S_HI] = mid
+        stk[sp, S_DEPTH] = depth + 1
+        stk[sp, S_OLO] = olo
+        stk[sp, S_OHI] = omid
         for k in range(C):
-            stack_cnt[sp, k] = best_left[k]
+            stkc[sp, k] = best_left[k]
         sp += 1
 
+    kn = n_nodes if keep else 0
+    left = np.empty(kn, np.int32)
+    right = np.empty(kn, np.int32)
+    feature = np.empty(kn, np.int32)
+    threshold = np.empty(kn, np.int32)
+    node_cat = np.empty(kn, np.uint8)
+    missing_left = np.empty(kn, np.uint8)
+    value = np.empty((kn, n_out), np.float64)
+    n_rows = np.empty(kn, np.int32)
+    weight = np.empty(kn, np.int32)
+    impurity = np.empty(kn, np.float64)
+    candidates = np.empty(kn, np.int32)
+    for v in range(kn):
+        left[v] = ni[v, L]
+        right[v] = ni[v, R]
+        feature[v] = ni[v, FEAT]
+        threshold[v] = ni[v, THR]
+        node_cat[v] = ni[v, FLAGS] & 1
+        missing_left[v] = ni[v, FLAGS] >> 1
+        for k in range(n_out):
+            value[v, k] = nf[v, k]
+        n_rows[v] = ni[v, ROWS]
+        weight[v] = ni[v, WGT]
+        impurity[v] = nf[v, n_out]
+        candidates[v] = ni[v, CAND]
+    masks = cat_masks[:n_masks].copy()
     return (left, right, feature, threshold, node_cat, missing_left, value, n_rows, weight,
-            impurity, candidates, cat_masks, n_nodes, n_masks, visits)
+            impurity, candidates, masks, n_nodes, visits, oob_rows, oob_int, oob_val, status)
 
 
 def _drop_stale_cache():
