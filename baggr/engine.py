@@ -63,6 +63,26 @@ def prepare(X, y, config: Config, target: str | None = None) -> Prepared:
     return Prepared(schema, binning, codes, y_class, y_value, schema.task)
 
 
+EXTRA_MEMBER_ROWS = 1 << 19
+
+
+def _trim_heap() -> None:
+    """Hand memory freed by the C heap back to the system (glibc keeps the freed temporaries of
+    binning, tens of MiB on large tables, resident otherwise); a no-op where that is unavailable."""
+    global _malloc_trim
+    if _malloc_trim is None:
+        try:
+            import ctypes
+            _malloc_trim = ctypes.CDLL(None).malloc_trim
+        except (OSError, AttributeError):
+            _malloc_trim = False
+    if _malloc_trim:
+        _malloc_trim(0)
+
+
+_malloc_trim = None
+
+
 @dataclass
 class MemberResult:
     """One grown member: its tree (None in estimate-only runs) and its OOB delta."""
@@ -159,14 +179,17 @@ class Training:
         start, t_run = self.next_member, time.perf_counter()
         elapsed0 = self.elapsed
         recent = collections.deque(maxlen=20)
+        _trim_heap()
+        # one member more than threads in flight: a worker that finishes starts the next at once,
+        # while this thread folds (in member order) the one before; not on large tables, where the
+        # fold is a small part of a member and each waiting delta holds 8 bytes per OOB row
+        extra = 1 if self.prep.n_rows <= EXTRA_MEMBER_ROWS else 0
         pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="baggr-member")
         inflight = collections.deque()
         nxt = start
         try:
             while self.next_member < target:
-                # one member more than threads in flight: a worker that finishes starts the next
-                # at once, while this thread folds (in member order) the one before
-                while nxt < target and len(inflight) < threads + 1:
+                while nxt < target and len(inflight) < threads + extra:
                     inflight.append(pool.submit(self.grower.grow_member, nxt))
                     nxt += 1
                 result = inflight.popleft().result()
@@ -182,8 +205,10 @@ class Training:
                 now = time.perf_counter()
                 self.elapsed = elapsed0 + (now - t_run)
                 recent.append(now)
+                oob_rows = result.delta.rows.shape[0]
+                result = None  # folded: its delta need not live on while the next one is awaited
                 if on_member is not None:
-                    on_member(self.event(result.delta.rows.shape[0], recent))
+                    on_member(self.event(oob_rows, recent))
                 if should_stop is not None and should_stop():
                     break
         finally:
@@ -191,6 +216,7 @@ class Training:
                 f.cancel()
             pool.shutdown(wait=True, cancel_futures=True)
             self.grower.release()
+            _trim_heap()
         return self.ensemble()
 
     def event(self, oob_rows: int, recent=()) -> MemberEvent:

@@ -15,6 +15,7 @@ wraparound it otherwise adds to every access (several operations per visit).
 """
 import numpy as np
 
+from .jit import kernel
 from .split_kernels import MISSING, inline
 
 # de Bruijn sequence for the index of the lowest set bit (Leiserson, Prokop, Randall 1998)
@@ -30,14 +31,15 @@ def _set_bit(bits, q, b):
     bits[q, b >> 6] |= np.uint64(1) << np.uint64(b & 63)
 
 
-@inline
-def build_classes(codes, idx, lw, shift, lo, hi, n_classes, batch, n_batch, sparse, hist, bits):
+@kernel
+def build_classes(codes, idx, lw, src, shift, lo, hi, n_classes, batch, n_batch, sparse, hist, bits):
     """Class-count histograms hist[q] of candidates batch[0:n_batch] over node positions lo..hi-1.
 
-    The node's rows are idx[lo:hi]; lw packs each row's draw count and class:
+    The node's rows are idx[src, lo:hi]; lw packs each row's draw count and class:
     (weight << shift) | class. sparse: also mark the codes seen in bits[q].
     """
     mask = (1 << shift) - 1
+    a = np.uint64(src)
     for q in range(n_batch):
         f = np.uint64(batch[q])
         if n_classes == 2:
@@ -45,34 +47,35 @@ def build_classes(codes, idx, lw, shift, lo, hi, n_classes, batch, n_batch, spar
             if sparse:
                 for i in range(lo, hi):
                     u = np.uint64(i)
-                    b = np.int64(codes[f, np.uint64(idx[u])])
-                    v = lw[u]
+                    b = np.int64(codes[f, np.uint64(idx[a, u])])
+                    v = lw[a, u]
                     hist[q, 2 * b + (v & 1)] += v >> 1
                     _set_bit(bits, q, b)
             else:
                 for i in range(lo, hi):
                     u = np.uint64(i)
-                    v = lw[u]
-                    hist[q, 2 * np.int64(codes[f, np.uint64(idx[u])]) + (v & 1)] += v >> 1
+                    v = lw[a, u]
+                    hist[q, 2 * np.int64(codes[f, np.uint64(idx[a, u])]) + (v & 1)] += v >> 1
         else:
             for i in range(lo, hi):
                 u = np.uint64(i)
-                b = np.int64(codes[f, np.uint64(idx[u])])
-                v = lw[u]
+                b = np.int64(codes[f, np.uint64(idx[a, u])])
+                v = lw[a, u]
                 hist[q, b * n_classes + (v & mask)] += v >> shift
                 if sparse:
                     _set_bit(bits, q, b)
 
 
-@inline
-def build_values(codes, idx, wt, ws, lo, hi, batch, n_batch, sparse, hist_w, hist_s, bits):
+@kernel
+def build_values(codes, idx, wt, src, ws, lo, hi, batch, n_batch, sparse, hist_w, hist_s, bits):
     """Regression histograms (sum w, sum w*(y - node mean)) of candidates batch[0:n_batch]."""
+    a = np.uint64(src)
     for q in range(n_batch):
         f = np.uint64(batch[q])
         for i in range(lo, hi):
             u = np.uint64(i)
-            b = np.int64(codes[f, np.uint64(idx[u])])
-            hist_w[q, b] += wt[u]
+            b = np.int64(codes[f, np.uint64(idx[a, u])])
+            hist_w[q, b] += wt[a, u]
             hist_s[q, b] += ws[u]
             if sparse:
                 _set_bit(bits, q, b)
@@ -96,7 +99,7 @@ def bits_to_codes(bits, q, pc):
     return j
 
 
-@inline
+@kernel
 def list_classes(hist, q, nb, n_classes, sparse, bits, pc):
     """List the codes present in hist[q] in ascending order; returns J (branch-free on large nodes)."""
     if sparse:
@@ -117,7 +120,7 @@ def list_classes(hist, q, nb, n_classes, sparse, bits, pc):
     return j
 
 
-@inline
+@kernel
 def list_values(hist_w, q, nb, sparse, bits, pc):
     """List the codes present in hist_w[q] in ascending order; returns J."""
     if sparse:

@@ -33,21 +33,21 @@ MISSING = 255
 
 
 @kernel
-def wimp_counts(cnt, off, n_classes, crit):
-    """w * impurity of the class counts cnt[off:off+n_classes] (Gini or entropy in bits)."""
+def wimp_counts(cnt, n_classes, crit):
+    """w * impurity of the class counts cnt[0:n_classes] (Gini or entropy in bits)."""
     w = 0.0
     for k in range(n_classes):
-        w += cnt[off + k]
+        w += cnt[k]
     if w <= 0:
         return 0.0
     s = 0.0
     if crit == GINI:
         for k in range(n_classes):
-            c = np.float64(cnt[off + k])
+            c = np.float64(cnt[k])
             s += c * c
         return w - s / w
     for k in range(n_classes):
-        c = np.float64(cnt[off + k])
+        c = np.float64(cnt[k])
         if c > 0:
             s += c * np.log2(w / c)
     return s
@@ -56,26 +56,32 @@ def wimp_counts(cnt, off, n_classes, crit):
 @kernel
 def impurity_counts(cnt, crit):
     """Impurity of a class count vector: Gini (1 - sum p^2) or entropy in bits."""
+    n = cnt.shape[0]
     w = 0.0
-    for k in range(cnt.shape[0]):
+    for k in range(n):
         w += cnt[k]
     if w <= 0:
         return 0.0
-    return wimp_counts(cnt, 0, cnt.shape[0], crit) / w
+    return wimp_counts(cnt, n, crit) / w
 
 
-@inline
-def _wimp2(a, b, crit):
-    """w * impurity of two class counts (floats holding whole numbers)."""
-    w = a + b
-    if crit == GINI:
-        return w - (a * a + b * b) / w
+@kernel
+def _ent_pair(a, b, c, d):
+    """w * entropy (bits) of two class counts (a, b) plus that of (c, d) (floats holding whole
+    numbers). One function, not inlined: four copies of it cost seconds of compile time."""
     s = 0.0
+    w = a + b
     if a > 0:
         s += a * np.log2(w / a)
     if b > 0:
         s += b * np.log2(w / b)
-    return s
+    t = 0.0
+    w = c + d
+    if c > 0:
+        t += c * np.log2(w / c)
+    if d > 0:
+        t += d * np.log2(w / d)
+    return s + t
 
 
 @inline
@@ -88,35 +94,7 @@ def _pair2(a, b, c, d, crit):
     wr = c + d
     if crit == GINI:
         return (wl + wr) - ((a * a + b * b) * wr + (c * c + d * d) * wl) / (wl * wr)
-    return _wimp2(a, b, crit) + _wimp2(c, d, crit)
-
-
-@inline
-def _wimp_side(lc, tot, miss, n_classes, crit, right, with_miss):
-    """w * impurity of one child: left = lc, right = tot - lc, each plus miss when with_miss."""
-    w = 0.0
-    for k in range(n_classes):
-        c = tot[k] - lc[k] if right else lc[k]
-        if with_miss:
-            c += miss[k]
-        w += c
-    if w <= 0:
-        return 0.0
-    s = 0.0
-    if crit == GINI:
-        for k in range(n_classes):
-            c = tot[k] - lc[k] if right else lc[k]
-            if with_miss:
-                c += miss[k]
-            s += c * c
-        return w - s / w
-    for k in range(n_classes):
-        c = tot[k] - lc[k] if right else lc[k]
-        if with_miss:
-            c += miss[k]
-        if c > 0:
-            s += c * np.log2(w / c)
-    return s
+    return _ent_pair(a, b, c, d)
 
 
 # ---- which codes are present ---------------------------------------------------------------------
@@ -125,19 +103,15 @@ def _wimp_side(lc, tot, miss, n_classes, crit, right, with_miss):
 
 @kernel
 def sort_levels(J, keys, order, pc):
-    """Reorder the present codes pc[0:J] by keys ascending, ties by code (stable); order: scratch."""
-    if J > 32:
-        o = np.argsort(keys[:J], kind="mergesort")
-        for j in range(J):
-            order[j] = o[j]
-    else:
-        for j in range(J):
-            key = keys[j]
-            u = j
-            while u > 0 and keys[order[u - 1]] > key:
-                order[u] = order[u - 1]
-                u -= 1
-            order[u] = j
+    """Reorder the present codes pc[0:J] by keys ascending, ties by code (stable); order: int32
+    scratch of 256. Insertion sort: at most 254 levels, and a small loop compiles fast."""
+    for j in range(J):
+        key = keys[j]
+        u = j
+        while u > 0 and keys[order[u - 1]] > key:
+            order[u] = order[u - 1]
+            u -= 1
+        order[u] = j
     for j in range(J):
         keys[j] = pc[order[j]]
     for j in range(J):
@@ -181,14 +155,14 @@ def _entropy_scores(n, ta, tb, ma, mb, fl, work):
         wr = tw - wl
         if mw > 0:
             ok = wl + mw >= fl and wr >= fl
-            work[2, j] = _pair2(a + ma, b + mb, c, d, ENTROPY) if ok else big
+            work[2, j] = _ent_pair(a + ma, b + mb, c, d) if ok else big
             ok = wl >= fl and wr + mw >= fl
-            work[3, j] = _pair2(a, b, c + ma, d + mb, ENTROPY) if ok else big
+            work[3, j] = _ent_pair(a, b, c + ma, d + mb) if ok else big
         else:
-            work[2, j] = _pair2(a, b, c, d, ENTROPY) if (wl >= fl and wr >= fl) else big
+            work[2, j] = _ent_pair(a, b, c, d) if (wl >= fl and wr >= fl) else big
 
 
-@inline
+@kernel
 def scan_two(hist, q, J, pc, ta, tb, ma, mb, crit, fl, best, work, best_left):
     """scan_classes for two classes, in passes: prefix counts, every threshold's score
     (infeasible ones +inf), then the first minimum. Gini's pass has no branch and one division
@@ -308,6 +282,10 @@ def scan_classes(hist, q, J, pc, node_cnt, n_classes, crit, min_leaf, best, lc, 
         lc[k] = 0.0
         tw += tot[k]
         mw += miss[k]
+    # the two children's counts of the split under test (one impurity function, not one inlined
+    # copy per way of forming them: that cost seconds of compile time)
+    a = np.empty(n_classes)
+    b = np.empty(n_classes)
     fl = np.float64(min_leaf)
     bscore = best
     bpos = -1
@@ -322,29 +300,37 @@ def scan_classes(hist, q, J, pc, node_cnt, n_classes, crit, min_leaf, best, lc, 
         wr = tw - wl
         if mw > 0:
             if wl + mw >= fl and wr >= fl:
-                s = (_wimp_side(lc, tot, miss, n_classes, crit, False, True)
-                     + _wimp_side(lc, tot, miss, n_classes, crit, True, False))
+                for k in range(n_classes):
+                    a[k] = lc[k] + miss[k]
+                    b[k] = tot[k] - lc[k]
+                s = wimp_counts(a, n_classes, crit) + wimp_counts(b, n_classes, crit)
                 if s < bscore:
                     bscore, bpos, bml = s, j, 1
                     for k in range(n_classes):
                         best_left[k] = lc[k] + miss[k]
             if wl >= fl and wr + mw >= fl:
-                s = (_wimp_side(lc, tot, miss, n_classes, crit, False, False)
-                     + _wimp_side(lc, tot, miss, n_classes, crit, True, True))
+                for k in range(n_classes):
+                    a[k] = lc[k]
+                    b[k] = (tot[k] - lc[k]) + miss[k]
+                s = wimp_counts(a, n_classes, crit) + wimp_counts(b, n_classes, crit)
                 if s < bscore:
                     bscore, bpos, bml = s, j, 0
                     for k in range(n_classes):
                         best_left[k] = lc[k]
         elif wl >= fl and wr >= fl:
-            s = (_wimp_side(lc, tot, miss, n_classes, crit, False, False)
-                 + _wimp_side(lc, tot, miss, n_classes, crit, True, False))
+            for k in range(n_classes):
+                a[k] = lc[k]
+                b[k] = tot[k] - lc[k]
+            s = wimp_counts(a, n_classes, crit) + wimp_counts(b, n_classes, crit)
             if s < bscore:
                 bscore, bpos, bml = s, j, (1 if wl >= wr else 0)
                 for k in range(n_classes):
                     best_left[k] = lc[k]
     if J >= 1 and mw >= fl and tw >= fl:
-        s = (_wimp_side(tot, tot, miss, n_classes, crit, False, False)
-             + _wimp_side(tot, tot, miss, n_classes, crit, True, True))
+        for k in range(n_classes):
+            a[k] = tot[k]
+            b[k] = (tot[k] - tot[k]) + miss[k]
+        s = wimp_counts(a, n_classes, crit) + wimp_counts(b, n_classes, crit)
         if s < bscore:
             bscore, bpos, bml = s, J - 1, 0
             for k in range(n_classes):
@@ -352,7 +338,7 @@ def scan_classes(hist, q, J, pc, node_cnt, n_classes, crit, min_leaf, best, lc, 
     return bscore, bpos, bml
 
 
-@inline
+@kernel
 def scan_values(hist_w, hist_s, h, J, pc, q, min_leaf, best, work):
     """Best prefix split of candidate h's present codes pc[0:J] (regression); q: the node's SSE.
 

@@ -29,10 +29,13 @@ class Tally:
         self.task, self.y, self.n_classes, self.vote = task, y, n_classes, vote
         n = y.shape[0]
         self.members = 0
-        self.left_out = np.zeros(n, np.int32)
+        # hard votes count one per OOB vote: times left out and OOB class follow from them, so
+        # they are not stored (two int32 per row less on a large table), only derived when read
+        self._derived = task == "classes" and vote == "hard"
+        self._left_out = np.zeros(0 if self._derived else n, np.int32)
         if task == "classes":
             self.votes = np.zeros((n, n_classes), np.int32 if vote == "hard" else np.float64)
-            self.pred = np.full(n, -1, np.int32)
+            self._pred = np.full(0 if self._derived else n, -1, np.int32)
             self.confusion = np.zeros((n_classes, n_classes), np.int64)
             self.class_wrong = np.zeros(n_classes, np.int64)
             self.class_covered = np.zeros(n_classes, np.int64)
@@ -48,6 +51,20 @@ class Tally:
         self.curve = np.full(capacity, np.nan)
         self.curve_interval = np.full((capacity, 2), np.nan)
 
+    @property
+    def left_out(self) -> np.ndarray:
+        """int32 times each row was out of bag."""
+        if self._derived:
+            return self.votes.sum(axis=1, dtype=np.int32)
+        return self._left_out
+
+    @property
+    def pred(self) -> np.ndarray:
+        """int32 current OOB class per row (ties to the lowest class; -1: never out of bag)."""
+        if self._derived:
+            return np.where(self.votes.any(axis=1), np.argmax(self.votes, axis=1), -1).astype(np.int32)
+        return self._pred
+
     # -- folding ---------------------------------------------------------------------------------
     def fold(self, delta: MemberDelta) -> None:
         """Fold the next member (deltas must come in member order)."""
@@ -57,10 +74,10 @@ class Tally:
                 row_votes, row_class = self._no_votes, delta.votes
             else:
                 row_votes, row_class = delta.votes, self._no_class
-            k.fold_classes(delta.rows, row_votes, row_class, self.y, self.votes, self.pred, self.left_out,
+            k.fold_classes(delta.rows, row_votes, row_class, self.y, self.votes, self._pred, self._left_out,
                            self.confusion, self.class_wrong, self.class_covered, self.totals)
         else:
-            k.fold_regression(delta.rows, delta.votes, self.y, self.value_sum, self.left_out,
+            k.fold_regression(delta.rows, delta.votes, self.y, self.value_sum, self._left_out,
                               self.sq_err, self.sums)
         m = self.members
         self.members += 1
@@ -138,6 +155,8 @@ class Tally:
         for name, a in arrays.items():
             if name == "members":
                 continue
+            if self._derived and name in ("pred", "left_out"):
+                continue  # they follow from the votes
             if name in ("curve", "class_curve", "curve_interval"):
                 cur = getattr(self, name)
                 if cur.shape[0] < a.shape[0]:

@@ -27,31 +27,50 @@ def fold_classes(rows, row_votes, row_class, y, votes, pred, left_out, confusion
     votes, leaf class shares otherwise), or empty (0, C) when row_class holds one int32 hard-vote
     class per row instead; votes: (n, C) running tally; pred: int32 current OOB class per row
     (-1: never out of bag); confusion[true, pred]; totals = [wrong, covered] (int64).
+    pred and left_out empty (hard votes): not kept; a row's old class is read off its votes.
     """
     n_classes = votes.shape[1]
     by_class = row_votes.shape[0] < rows.shape[0]
+    derive = pred.shape[0] == 0
     for i in range(rows.shape[0]):
         r = rows[i]
-        old = pred[r]
+        if derive and n_classes == 2:
+            # branch-free: which class leads is as good as a coin toss from row to row
+            a = votes[r, 0]
+            b = votes[r, 1]
+            old = np.int64(b > a) if a + b > 0 else np.int64(-1)
+        elif derive:
+            tot = votes[r, 0]
+            old = 0
+            for c in range(1, n_classes):
+                tot += votes[r, c]
+                if votes[r, c] > votes[r, old]:
+                    old = c
+            if tot == 0:
+                old = -1
+        else:
+            old = np.int64(pred[r])
         if by_class:
             # one more vote for class c: the lowest-index maximum is now c or stays old
-            c = row_class[i]
+            c = np.int64(row_class[i])
             votes[r, c] += 1
-            if old < 0 or votes[r, c] > votes[r, old] or (votes[r, c] == votes[r, old] and c < old):
-                new = c
-            else:
-                new = old
+            vc = votes[r, c]
+            vo = votes[r, max(old, 0)]
+            take = (old < 0) | (vc > vo) | ((vc == vo) & (c < old))
+            new = c if take else old
         else:
             for c in range(n_classes):
                 votes[r, c] += row_votes[i, c]
             new = _argmax_row(votes, r)
-        left_out[r] += 1
+        if not derive:
+            left_out[r] += 1
         if new != old:
             t = y[r]
             if old >= 0:
                 confusion[t, old] -= 1
             confusion[t, new] += 1
-            pred[r] = new
+            if not derive:
+                pred[r] = new
     # the other counts follow from the confusion matrix: recounted once, not updated per row
     totals[0] = 0
     totals[1] = 0

@@ -2,6 +2,7 @@
 checked once, then tree after tree with reused scratch and the out-of-bag votes cast on the way)."""
 from __future__ import annotations
 
+import mmap
 from dataclasses import dataclass
 
 import numpy as np
@@ -62,41 +63,52 @@ class Grown:
     n_nodes: int
 
 
+def _pages(shape, dtype) -> np.ndarray:
+    """An uninitialised array on its own anonymous mapping of small pages.
+
+    Only the pages the kernel touches become resident. (numpy asks for huge pages on arrays of
+    4 MiB and more, and a touch anywhere in a 2 MiB huge page makes all of it resident: a
+    scratch array used up to two thirds of its length would then count in full.)
+    """
+    size = int(np.prod(shape)) * np.dtype(dtype).itemsize
+    if size < 1 << 20:
+        return np.empty(shape, dtype)
+    return np.frombuffer(mmap.mmap(-1, size), dtype=dtype).reshape(shape)
+
+
 class Scratch:
     """Working arrays of the tree kernel for one table, reused tree after tree by one thread.
 
-    np.empty reserves address space only: pages are touched (and count as resident) as far as the
+    Address space only is reserved: pages are touched (and count as resident) as far as the
     largest tree so far needed them, and no tree pays for page faults or zeroing again.
     """
 
     def __init__(self, n_rows: int, n_out: int, regression: bool, keep: bool):
         n = max(int(n_rows), 1)
-        self.rows = np.empty(n, np.int32)
-        self.lw = np.empty(n, np.int32)
-        self.yv = np.empty(n if regression else 0, np.float64)
-        self.ws = np.empty(n if regression else 0, np.float64)
+        self.idx = _pages((2, n), np.int32)
+        self.lw = _pages((2, n), np.int32)
+        self.yv = _pages((2, n if regression else 0), np.float64)
+        self.ws = _pages(n if regression else 0, np.float64)
         cap = 2 * n - 1 if keep else 1
-        self.ni = np.empty((cap, 8), np.int32)
-        self.nf = np.empty((cap, n_out + 1), np.float64)
-        self.stk = np.empty((n + 1, 6), np.int32)
-        self.stkc = np.empty((n + 1, 1 if regression else n_out), np.float64)
+        self.ni = _pages((cap, 8), np.int32)
+        self.nf = _pages((cap, n_out + 1), np.float64)
+        self.stk = _pages((n + 1, 6), np.int32)
+        self.stkc = _pages((n + 1, 1 if regression else n_out), np.float64)
 
     @property
     def weights(self) -> np.ndarray:
-        """An int32 array to write a draw into: the kernel reads each entry before it reuses it."""
-        return self.rows
+        """An int32 row to write a draw into: the kernel reads each entry before it reuses it."""
+        return self.lw[0]
 
 
-_NO_SCRATCH = None
-
-
-def _empty_scratch():
-    global _NO_SCRATCH
-    if _NO_SCRATCH is None:
-        _NO_SCRATCH = Scratch(1, 1, False, False)
-        _NO_SCRATCH.ni = np.empty((0, 8), np.int32)
-        _NO_SCRATCH.nf = np.empty((0, 2), np.float64)
-    return _NO_SCRATCH
+def _no_scratch() -> Scratch:
+    """Empty working arrays: the kernel allocates its own (safe for calls from many threads at once)."""
+    s = Scratch.__new__(Scratch)
+    s.idx, s.lw = np.empty((2, 0), np.int32), np.empty((2, 0), np.int32)
+    s.yv, s.ws = np.empty((2, 0), np.float64), np.empty(0, np.float64)
+    s.ni, s.nf = np.empty((0, 8), np.int32), np.empty((0, 2), np.float64)
+    s.stk, s.stkc = np.empty((0, 6), np.int32), np.empty((0, 1), np.float64)
+    return s
 
 
 OOB_MODES = {"leaf": OOB_LEAF, "class": OOB_CLASS, "value": OOB_VALUE}
@@ -177,11 +189,11 @@ class Learner:
         rng_state (uint64[1]) is advanced. oob: what each out-of-bag row gets, "leaf", "class" (the
         leaf's most frequent class, ties to the lowest) or "value" (the leaf's values).
         """
-        s = scratch or _empty_scratch()
+        s = scratch or _no_scratch()
         out = grow_kernel(self.codes, self.n_bins, self.is_cat, self.y_class, self.y_value, weights,
                           int(self.regression), self.n_classes, self.crit, self.features_per_split, self.min_leaf,
                           self.depth_limit, rng_state, self.exact_below, int(bool(keep)), OOB_MODES[oob],
-                          s.rows, s.lw, s.yv, s.ws, s.ni, s.nf, s.stk, s.stkc)
+                          s.idx, s.lw, s.yv, s.ws, s.ni, s.nf, s.stk, s.stkc)
         (left, right, feature, threshold, node_cat, missing_left, value, n_rows, weight, impurity, candidates,
          cat_masks, n_nodes, visits, oob_rows, oob_int, oob_value, status) = out
         if status == NO_ROWS:

@@ -49,63 +49,65 @@ def side_table(feat_cat, thr, mleft, mask, side):
 
 
 # The partitions are functions of their own, not inlined into the tree kernel: there the row loop
-# kept spilling its pointers to the stack, at three times the instructions per row. They work in
-# place (Lomuto's scheme, branch-free: every row swaps with the first right one, so a right row only
-# trades places inside the right part): one buffer per array, half the memory of moving the rows
-# into a second buffer, at the same speed. Class counts do not depend on the order of a node's
-# rows; sums of floats (regression) follow it, and it is the same for every run.
+# kept spilling its pointers to the stack, at three times the instructions per row.
 
 @kernel
-def partition_rows(codes_f, side, lo, hi, idx, lw):
-    """Partition positions lo..hi-1 (left rows first) by side[code] of the split feature's codes
-    codes_f; returns the first right position."""
+def partition_rows(codes_f, side, lo, hi, src_idx, src_lw, dst_idx, dst_lw):
+    """Partition positions lo..hi-1 into the other buffer: left rows forward from lo, right rows
+    backward from hi - 1; returns the first right position. codes_f: the split feature's codes.
+
+    Branch-free (the side a row takes is unpredictable): the slot is chosen by a select and only
+    the counter of the row's side moves.
+    """
     nl = lo
+    nr = hi - 1
     for i in range(lo, hi):
         u = np.uint64(i)
-        r = idx[u]
-        v = lw[u]
+        r = src_idx[u]
         g = np.int64(side[np.uint64(codes_f[np.uint64(r)])])
-        w = np.uint64(nl)
-        idx[u] = idx[w]
-        lw[u] = lw[w]
-        idx[w] = r
-        lw[w] = v
+        dst = np.uint64(nl if g else nr)
+        dst_idx[dst] = r
+        dst_lw[dst] = src_lw[u]
         nl += g
+        nr -= 1 - g
     return nl
 
 
 @kernel
-def partition_rows_y(codes_f, side, lo, hi, idx, lw, yv):
+def partition_rows_y(codes_f, side, lo, hi, src_idx, src_lw, src_yv, dst_idx, dst_lw, dst_yv):
     """partition_rows that also moves each row's target (regression)."""
     nl = lo
+    nr = hi - 1
     for i in range(lo, hi):
         u = np.uint64(i)
-        r = idx[u]
-        v = lw[u]
-        y = yv[u]
+        r = src_idx[u]
         g = np.int64(side[np.uint64(codes_f[np.uint64(r)])])
-        w = np.uint64(nl)
-        idx[u] = idx[w]
-        lw[u] = lw[w]
-        yv[u] = yv[w]
-        idx[w] = r
-        lw[w] = v
-        yv[w] = y
+        dst = np.uint64(nl if g else nr)
+        dst_idx[dst] = r
+        dst_lw[dst] = src_lw[u]
+        dst_yv[dst] = src_yv[u]
         nl += g
+        nr -= 1 - g
     return nl
 
 
 @kernel
-def partition_oob(codes_f, side, lo, hi, opos, oob_rows):
-    """Partition the out-of-bag positions opos[lo:hi] (indices into oob_rows) in the same way."""
+def partition_oob(codes_f, side, lo, hi, opos, orow):
+    """Partition the out-of-bag positions opos[lo:hi] (indices into the ascending OOB rows) and
+    their rows orow[lo:hi] in place, left first; returns the first right position. Lomuto's scheme,
+    branch-free: every row swaps with the first right one, so a right row only trades places
+    inside the right part."""
     nl = lo
     for i in range(lo, hi):
         u = np.uint64(i)
         e = opos[u]
-        g = np.int64(side[np.uint64(codes_f[np.uint64(oob_rows[np.uint64(e)])])])
+        r = orow[u]
+        g = np.int64(side[np.uint64(codes_f[np.uint64(r)])])
         w = np.uint64(nl)
         opos[u] = opos[w]
+        orow[u] = orow[w]
         opos[w] = e
+        orow[w] = r
         nl += g
     return nl
 
@@ -113,7 +115,7 @@ def partition_oob(codes_f, side, lo, hi, opos, oob_rows):
 @kernel
 def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_classes, crit,
                 features_per_split, min_leaf, depth_limit, rng_state, exact_below, keep, oob_mode,
-                rows_buf, lw_buf, yv, ws, ni, nf, stk, stkc):
+                idx, lw, yv, ws, ni, nf, stk, stkc):
     """Grow one tree and send its out-of-bag rows (weights == 0) down it on the way.
 
     regression: 0/1; crit: split_kernels.GINI/ENTROPY/VARIANCE; depth_limit < 0: none.
@@ -121,10 +123,10 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
     keep: 0 skips the node arrays (estimate-only runs need only the out-of-bag votes).
     oob_mode: OOB_LEAF (int32 leaf per OOB row), OOB_CLASS (int32 hard-vote class: the leaf's
     most frequent class, ties to the lowest) or OOB_VALUE (float64 leaf values, [k, n_out]).
-    rows_buf .. stkc: scratch, reused across calls; any that is too small is replaced by a fresh
-    array. rows_buf (int32, >= n) holds the in-bag rows, lw_buf (int32, >= n) their packed draw
-    counts and then the out-of-bag positions. weights may be rows_buf itself: row r's entry is
-    read before any entry at or after r is written.
+    idx .. stkc: scratch, reused across calls; any that is too small is replaced by a fresh array.
+    idx, lw (int32, 2 x >= n): a node's in-bag rows and their packed draw counts sit in row
+    depth % 2 of each; lw[0, d:n] and idx[1, d:n] hold the out-of-bag positions and rows. weights may be lw[0]
+    (then the table's n int32 serve the draw, the rows' packed counts and the out-of-bag positions).
 
     Returns (left, right, feature, threshold, is_cat, missing_left, value, n_rows, weight,
     impurity, candidates, cat_masks) trimmed (empty when keep is 0), n_nodes, visits, oob_rows
@@ -166,17 +168,16 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
             any_cat = True
     n_keep = max_nodes if keep else 1
     # scratch too small for this call: replaced (the caller's pool sizes it for its table)
-    if rows_buf.shape[0] < n:
-        rows_buf = np.empty(n, np.int32)
-    if lw_buf.shape[0] < n:
-        lw_buf = np.empty(n, np.int32)
-    if regression and yv.shape[0] < d:
-        yv = np.empty(d, np.float64)
+    if idx.shape[1] < n:
+        idx = np.empty((2, n), np.int32)
+    if lw.shape[1] < n:
+        lw = np.empty((2, n), np.int32)
+    if regression and yv.shape[1] < d:
+        yv = np.empty((2, d), np.float64)
     if regression and ws.shape[0] < d:
         ws = np.empty(d, np.float64)
-    idx = rows_buf[:d]
-    lw = lw_buf[:d]
-    opos = lw_buf[d:n]
+    opos = lw[0, d:n]  # free in both buffers: in-bag rows take [0, d)
+    orow = idx[1, d:n]
     if ni.shape[0] < n_keep:
         ni = np.empty((n_keep, 8), np.int32)
     if nf.shape[0] < n_keep or nf.shape[1] < n_out + 1:
@@ -197,17 +198,19 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
     for r in range(n):
         wr = weights[r]
         if wr > 0:
-            idx[t] = r  # t <= r: when weights is rows_buf, entry r is already read
+            idx[0, t] = r  # t <= r: when weights is lw[0], entry r is read before it is written
             if regression:
-                lw[t] = wr
-                yv[t] = y_value[r]
+                lw[0, t] = wr
+                yv[0, t] = y_value[r]
             else:
-                lw[t] = (wr << shift) | y_class[r]
+                lw[0, t] = (wr << shift) | y_class[r]
             t += 1
         else:
             oob_rows[o] = r
-            opos[o] = o
             o += 1
+    for o in range(k_oob):  # after the loop: when weights is lw[0], these entries may still be unread
+        opos[o] = o
+        orow[o] = oob_rows[o]
 
     # scratch reused by every node; each histogram is zeroed again after use (its listed bins or all)
     nbatch = max(1, min(8, features_per_split, HIST_BYTES // (1024 * C)))
@@ -243,7 +246,7 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
     if not regression:
         lmask = (1 << shift) - 1
         for i in range(d):
-            stkc[0, lw[i] & lmask] += lw[i] >> shift
+            stkc[0, lw[0, i] & lmask] += lw[0, i] >> shift
     sp = 1
     n_nodes = 1
     n_masks = 0
@@ -258,6 +261,7 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
         olo = stk[sp, S_OLO]
         ohi = stk[sp, S_OHI]
         m = hi - lo
+        src = depth & 1  # the buffer holding this node's rows
         rec = node if keep else 0  # estimate-only: every node's record goes to one slot
         ni[rec, L] = -1
         ni[rec, R] = -1
@@ -274,19 +278,19 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
         key_class = 0
         if regression:
             s = 0.0
-            ymin = yv[lo]
-            ymax = yv[lo]
+            ymin = yv[src, lo]
+            ymax = yv[src, lo]
             iw = np.int64(0)
             for i in range(lo, hi):
-                iw += lw[i]
-                s += np.float64(lw[i]) * yv[i]
-                ymin = min(ymin, yv[i])
-                ymax = max(ymax, yv[i])
+                iw += lw[src, i]
+                s += np.float64(lw[src, i]) * yv[src, i]
+                ymin = min(ymin, yv[src, i])
+                ymax = max(ymax, yv[src, i])
             w = np.float64(iw)
             mu = s / w
             for i in range(lo, hi):
-                dv = yv[i] - mu
-                ws[i] = np.float64(lw[i]) * dv
+                dv = yv[src, i] - mu
+                ws[i] = np.float64(lw[src, i]) * dv
                 q += ws[i] * dv
             nodeval[0] = mu
             nf[rec, n_out] = q / w
@@ -302,7 +306,7 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
             for k in range(C):
                 nodeval[k] = nodecnt[k] / w
             pure = nodecnt[kmax] == w
-            parent = wimp_counts(nodecnt, 0, C, crit)
+            parent = wimp_counts(nodecnt, C, crit)
             nf[rec, n_out] = parent / w
             key_class = 1 if C == 2 else kmax
         for k in range(n_out):
@@ -336,9 +340,9 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
                         batch[nb_batch] = f
                         nb_batch += 1
                 if regression:
-                    build_values(codes, idx, lw, ws, lo, hi, batch, nb_batch, sparse, hist_w, hist_s, bits)
+                    build_values(codes, idx, lw, src, ws, lo, hi, batch, nb_batch, sparse, hist_w, hist_s, bits)
                 else:
-                    build_classes(codes, idx, lw, shift, lo, hi, C, batch, nb_batch, sparse, hist, bits)
+                    build_classes(codes, idx, lw, src, shift, lo, hi, C, batch, nb_batch, sparse, hist, bits)
                 scanned += nb_batch
                 for h in range(nb_batch):
                     f = batch[h]
@@ -427,10 +431,11 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
         side_table(fc, thr, best_ml, best_mask, side)
         cf = codes[best_f]
         if regression:
-            mid = partition_rows_y(cf, side, lo, hi, idx, lw, yv)
+            mid = partition_rows_y(cf, side, lo, hi, idx[src], lw[src], yv[src], idx[1 - src], lw[1 - src],
+                                   yv[1 - src])
         else:
-            mid = partition_rows(cf, side, lo, hi, idx, lw)
-        omid = partition_oob(cf, side, olo, ohi, opos, oob_rows)
+            mid = partition_rows(cf, side, lo, hi, idx[src], lw[src], idx[1 - src], lw[1 - src])
+        omid = partition_oob(cf, side, olo, ohi, opos, orow)
         lnode = n_nodes
         rnode = n_nodes + 1
         n_nodes += 2
