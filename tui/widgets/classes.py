@@ -1,12 +1,13 @@
 """Per class: rows, share, OOB error and its Wilson 95% interval."""
 from __future__ import annotations
 
-from rich.table import Table
+from rich.cells import cell_len
 from rich.text import Text
 
 from .. import fmt
 from ..view import View
 from .base import Panel
+from .texttable import text_table
 from .palette import class_colour, class_mark, rgb
 
 COLUMNS = ("class", "rows", "share", "OOB error", "95% interval", "covered")
@@ -32,13 +33,11 @@ def window(n: int, room: int, keep: int | None) -> range:
     return range(start, start + room)
 
 
-def class_table(v: View, narrow: bool, mono: bool, room: int = 1000, cols=None) -> Table:
+def class_table(v: View, narrow: bool, mono: bool, room: int = 1000, cols=None) -> Text:
     cols = cols or (NARROW if narrow else COLUMNS)
     rows = class_rows(v)
-    t = Table(box=None, padding=(0, 1), show_edge=False, header_style="dim", expand=False)
-    for i, c in enumerate(cols):
-        t.add_column(c, justify="left" if i == 0 else "right", no_wrap=True)
     shown = window(len(rows) - 1, max(1, room - 2), v.highlight)   # the header and "all" take two lines
+    body, styles = [], []
     for i in [0] + [k + 1 for k in shown]:
         r = rows[i]
         if i == 0:
@@ -47,9 +46,9 @@ def class_table(v: View, narrow: bool, mono: bool, room: int = 1000, cols=None) 
             label = Text.assemble((class_mark(i - 1) + " ", "bold"), r[0])
         else:
             label = Text.assemble(("━━ ", rgb(class_colour(i - 1))), r[0])
-        style = "reverse" if v.highlight is not None and i == v.highlight + 1 else ""
-        t.add_row(label, *(r[COLUMNS.index(c)] for c in cols[1:]), style=style)
-    return t
+        styles.append("reverse" if v.highlight is not None and i == v.highlight + 1 else "")
+        body.append([label, *(r[COLUMNS.index(c)] for c in cols[1:])])
+    return text_table(body, header=list(cols), gap=2, row_styles=styles)
 
 
 class ClassPanel(Panel):
@@ -61,14 +60,22 @@ class ClassPanel(Panel):
         width: 1fr;
         border: round $foreground 30%;
         border-title-color: $text-muted;
-        padding: 0 0;
+        padding: 0 1;
     }
     """
 
     def on_mount(self) -> None:
         self.border_title = "by class"
 
+    _last = None
+
+    def on_resize(self) -> None:
+        # Which columns fit depends on the width the layout gave: fit again once it is known.
+        if self._last is not None:
+            self.show(*self._last)
+
     def show(self, v: View, narrow: bool = False, room: int = 1000) -> None:
+        self._last = (v, narrow, room)
         mono = self.app.no_color
         n = len(v.class_figures)
         key = (tuple(class_rows(v)), narrow, mono, room, v.highlight, self.content_size.width)
@@ -76,13 +83,11 @@ class ClassPanel(Panel):
         if self.put(key, lambda: self._fitting(v, narrow, mono, room), lines=min(n + 2, room)):
             self.border_subtitle = f"{hidden} more: c shows them" if hidden else ""
 
-    def _fitting(self, v: View, narrow: bool, mono: bool, room: int) -> Table:
+    def _fitting(self, v: View, narrow: bool, mono: bool, room: int) -> Text:
         """The widest column set whose table fits the panel (cells are never cut short)."""
         avail = self.content_size.width
-        if avail <= 0:
-            return class_table(v, narrow, mono, room)
         for cols in (COLUMNS, NARROW, NARROWEST):
             t = class_table(v, narrow, mono, room, cols)
-            if self.app.console.measure(t).maximum <= avail:
+            if avail <= 0 or max(cell_len(x) for x in t.plain.split("\n")) <= avail:
                 return t
         return t

@@ -1,11 +1,11 @@
 """The confusion matrix of the OOB votes: true class down, voted class across, counts and row shares."""
 from __future__ import annotations
 
-from rich.table import Table
 from rich.text import Text
 
 from ..view import View
 from .base import Panel
+from .texttable import text_table
 
 
 def short(name: str, n: int = 8) -> str:
@@ -21,18 +21,15 @@ def needed_width(v: View, shares: bool) -> int:
     return max(4, max(len(n) for n in names)) + 2 + len(conf) * (cell + 2) + 2
 
 
-def confusion_table(v: View, room: int = 1000) -> Table | Text:
-    """The matrix as a rich table; row shares beside the counts when `room` columns allow."""
+def confusion_table(v: View, room: int = 1000) -> Text:
+    """The matrix as aligned text; row shares beside the counts when `room` columns allow."""
     conf = v.confusion
     if not conf:
         return Text("no OOB votes yet", style="italic")
     k = len(conf)
     wide = needed_width(v, True) <= room
-    t = Table(box=None, padding=(0, 1), show_edge=False, header_style="dim")
-    t.add_column("true", no_wrap=True, style="dim")
-    for j in range(k):
-        name = v.classes[j] if j < len(v.classes) else str(j)
-        t.add_column(short(name), justify="right", no_wrap=True)
+    header = ["true"] + [short(v.classes[j] if j < len(v.classes) else str(j)) for j in range(k)]
+    body, styles = [], []
     for i, row in enumerate(conf):
         total = sum(row)
         cells = []
@@ -41,11 +38,11 @@ def confusion_table(v: View, room: int = 1000) -> Table | Text:
             txt = f"{c:,}"
             if wide:
                 txt += f" {100 * share:3.0f}%"
-            cells.append(Text(txt, style="bold" if i == j else ""))
+            cells.append(Text(txt, style="bold") if i == j else txt)
         name = v.classes[i] if i < len(v.classes) else str(i)
         style = "reverse" if v.highlight == i else ""
-        t.add_row(Text(short(name), style=style), *cells)
-    return t
+        body.append([Text(short(name), style=("dim " + style).strip()), *cells])
+    return text_table(body, header=header, gap=2)
 
 
 class ConfusionPanel(Panel):
@@ -58,7 +55,7 @@ class ConfusionPanel(Panel):
         max-width: 60%;
         border: round $foreground 30%;
         border-title-color: $text-muted;
-        padding: 0 0;
+        padding: 0 1;
     }
     """
 

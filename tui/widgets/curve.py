@@ -3,14 +3,21 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+from rich.segment import Segment
+from rich.style import Style
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.containers import Vertical
-from textual_plotext import PlotextPlot
+from textual.strip import Strip
+from textual.widget import Widget
 
 from ..view import View
 from .base import Panel
+from .braille import Series, plot_lines
 from .palette import (BAND, DIMMED, MONO_BAND, MONO_OVERALL, OVERALL, class_colour, class_mark, rgb)
+
+BLANK = Style()   # Textual's filters (NO_COLOR) want a style on every segment
 
 # About e^-1 = 0.368 of the members leave a given row out of their bootstrap draw (Breiman 1996).
 OOB_SHARE = math.exp(-1)
@@ -53,8 +60,8 @@ def log_ticks(lo: float, hi: float, width: int = 80) -> tuple[list[float], list[
     return ticks, labels
 
 
-class CurvePlot(PlotextPlot):
-    """The plot itself (drawn by plotext)."""
+class CurvePlot(Widget):
+    """The plot itself (braille lines from .braille)."""
 
     DEFAULT_CSS = """
     CurvePlot {
@@ -63,26 +70,23 @@ class CurvePlot(PlotextPlot):
     }
     """
 
-    _drawn = None
-    _painted_key = None
-    _painted = None
-
-    def render(self):
-        # textual-plotext builds the whole plot on every render, and Textual renders a widget again
-        # on any layout pass of the screen (about 60 ms a build here, measured): keep the last build
-        # until the data, the size or the theme change.
-        key = (self._drawn, self.size, self.app.theme)
-        if key != self._painted_key or self._painted is None:
-            self._painted = super().render()
-            self._painted_key = key
-        return self._painted
-
+    _drawn = None          # the key of the data last drawn
     _drawn_at = -1e9
     _last_args = None
+    _painted = None
+
+    def render_line(self, y: int) -> Strip:
+        # The line API: Textual asks for the lines it repaints, and they are built in draw() only
+        # (Textual repaints a widget on any layout pass of the screen).
+        if self._painted is None or self._painted[0] != self.size:
+            self._build()
+        strips = self._painted[1]
+        return strips[y] if y < len(strips) else Strip.blank(self.size.width, BLANK)
 
     def on_resize(self) -> None:
         # Ticks are laid out for the width: draw again at once (also after the first layout).
         if self._last_args is not None:
+            self._drawn = None
             self.draw(*self._last_args)
 
     def draw(self, v: View, mono: bool, now: float = 0.0, every: float = 0.0) -> None:
@@ -95,44 +99,58 @@ class CurvePlot(PlotextPlot):
         if only_data and now - self._drawn_at < every:
             return
         self._drawn, self._drawn_at = key, now
-        plt = self.plt
-        plt.clear_figure()      # settings too: the tick choice differs between linear and log
-        plt.frame(False)        # the panel's border is frame enough
-        scale = 100.0 if v.is_classes else 1.0
-        log = v.log_x
-
-        def xs_of(xs):
-            return [math.log10(x) for x in xs] if log else list(xs)
-
-        def put(series, colour, mark):
-            xs, ys = v.curves.get(series, ((), ()))
-            if len(xs) == 0:
-                return
-            plt.plot(xs_of(xs), [y * scale for y in ys], marker=mark, color=colour)
-
-        if v.curves:
-            put("lo", BAND, MONO_BAND if mono else "braille")
-            put("hi", BAND, MONO_BAND if mono else "braille")
-            if v.is_classes:
-                order = [k for k in range(len(v.classes)) if k != v.highlight]
-                if v.highlight is not None:
-                    order.append(v.highlight)          # drawn last: on top
-                for k in order:
-                    dim = v.highlight is not None and k != v.highlight
-                    put(k, DIMMED if dim else class_colour(k), class_mark(k) if mono else "braille")
-            put("error", OVERALL, MONO_OVERALL if mono else "braille")
-            xs = v.curves["error"][0]
-            if len(xs):
-                lo, hi = xs[0], xs[-1]
-                if log:
-                    # plotext's own log scale re-applies itself on every build; the log is taken here instead.
-                    ticks, labels = log_ticks(lo, hi, self.size.width)
-                    if ticks:
-                        plt.xticks(ticks, labels)
-                else:
-                    ticks = nice_ticks(lo, hi, most=max(2, self.size.width // 10))
-                    plt.xticks(ticks, [f"{x:,}" for x in ticks])
+        self._build()
         self.refresh()
+
+    def _build(self) -> None:
+        size = self.size
+        if self._last_args is None or size.width < 8 or size.height < 3:
+            self._painted = (size, [])
+            return
+        v, mono = self._last_args
+        lines = render_curves(v, mono, size.width, size.height)
+        self._painted = (size, [Strip([Segment(t, st or BLANK) for t, st in ln]).adjust_cell_length(size.width, BLANK)
+                                for ln in lines])
+
+
+def render_curves(v: View, mono: bool, width: int, height: int) -> list:
+    """The view's curves as lines of (text, style) runs (marks without colour): band, classes, then all rows on top."""
+    scale = 100.0 if v.is_classes else 1.0
+    log = v.log_x
+    series = []
+
+    def put(name, colour, mark):
+        xs, ys = v.curves.get(name, ((), ()))
+        if len(xs) == 0:
+            return
+        xs = np.asarray(xs, float)
+        ys = np.asarray([np.nan if y is None else y for y in ys], float) * scale
+        series.append(Series(np.log10(xs) if log else xs, ys, None if mono else rgb(colour), mark if mono else None))
+
+    if not v.curves or not len(v.curves.get("error", ((), ()))[0]):
+        return [[("no members yet", Style(italic=True))]]
+    put("lo", BAND, MONO_BAND)
+    put("hi", BAND, MONO_BAND)
+    if v.is_classes:
+        order = [k for k in range(len(v.classes)) if k != v.highlight]
+        if v.highlight is not None:
+            order.append(v.highlight)          # drawn last: on top
+        for k in order:
+            dim = v.highlight is not None and k != v.highlight
+            put(k, DIMMED if dim else class_colour(k), class_mark(k))
+    put("error", OVERALL, MONO_OVERALL)
+    xs = v.curves["error"][0]
+    lo, hi = xs[0], xs[-1]
+    if log:
+        x_range = (math.log10(max(lo, 1)), math.log10(max(hi, 1)))
+        ticks = log_ticks(lo, hi, width)
+    else:
+        x_range = (float(lo), float(hi))
+        t = nice_ticks(lo, hi, most=max(2, width // 10))
+        ticks = (t, [f"{x:,}" for x in t])
+    if x_range[1] <= x_range[0]:
+        x_range = (x_range[0] - 0.5, x_range[0] + 0.5)
+    return plot_lines(series, width, height, x_range=x_range, x_ticks=ticks)
 
 
 def curve_key(v: View, mono: bool) -> Text:

@@ -1,24 +1,22 @@
 """For regression: the OOB figures of the fit in place of the per-class panels."""
 from __future__ import annotations
 
-from rich.table import Table
 from rich.text import Text
 
 from .. import fmt
 from ..view import View
 from .base import Panel
+from .texttable import pairs
 
 
-def fit_table(v: View) -> Table:
-    g = Table.grid(padding=(0, 2))
-    g.add_column(style="dim", no_wrap=True)
-    g.add_column(no_wrap=True)
-    g.add_row("OOB MSE", Text(fmt.num(v.error), style="bold"))
-    g.add_row("95% interval", fmt.span(v.interval, False))
-    g.add_row("OOB R²", fmt.num(v.r2) if v.r2 is None else f"{v.r2:.4f}")
-    g.add_row("RMSE", "-" if v.error is None else fmt.num(v.error ** 0.5))
-    g.add_row("covered", "-" if v.coverage is None else f"{fmt.pct(v.coverage)} of {fmt.count(v.rows)} rows")
-    return g
+def fit_table(v: View) -> Text:
+    return pairs([
+        ("OOB MSE", Text(fmt.num(v.error), style="bold")),
+        ("95% interval", fmt.span(v.interval, False)),
+        ("OOB R²", fmt.num(v.r2) if v.r2 is None else f"{v.r2:.4f}"),
+        ("RMSE", "-" if v.error is None else fmt.num(v.error ** 0.5)),
+        ("covered", "-" if v.coverage is None else f"{fmt.pct(v.coverage)} of {fmt.count(v.rows)} rows"),
+    ], gap=2)
 
 
 class FitPanel(Panel):

@@ -4,13 +4,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import psutil
-from rich.table import Table
 from rich.text import Text
 
 from baggr.journal import pid_alive, same_host
 
 from .. import fmt
 from .base import Panel
+from .texttable import pairs
 
 
 @dataclass
@@ -82,21 +82,15 @@ class ProcessPanel(Panel):
                fmt.size(p.rss))
         self.put(key, lambda: self._grid(p), lines=3 if p.alive else 2)
 
-    def _grid(self, p: ProcessFigures) -> Table:
-        g = Table.grid(padding=(0, 1, 0, 0))
-        g.add_column(style="dim", no_wrap=True, min_width=7)
-        g.add_column(no_wrap=True, overflow="ellipsis")
+    def _grid(self, p: ProcessFigures) -> Text:
         where = f" on {p.host}" if p.host else ""
         if p.pid is None:
-            g.add_row("pid", Text("none yet", style="italic"))
+            rows = [("pid", Text("none yet", style="italic"))]
         elif not p.local:
-            g.add_row("pid", f"{p.pid}{where}")
-            g.add_row("", Text("other host: not visible here", style="italic"))
+            rows = [("pid", f"{p.pid}{where}"), ("", Text("other host: not visible here", style="italic"))]
         elif not p.alive:
-            g.add_row("pid", f"{p.pid}{where}")
-            g.add_row("", Text("not running", style="bold"))
+            rows = [("pid", f"{p.pid}{where}"), ("", Text("not running", style="bold"))]
         else:
-            g.add_row("pid", f"{p.pid}{where}")
-            g.add_row("threads", f"{p.threads}   cpu {p.cpu:.0f}%")
-            g.add_row("memory", fmt.size(p.rss))
-        return g
+            rows = [("pid", f"{p.pid}{where}"), ("threads", f"{p.threads}   cpu {p.cpu:.0f}%"),
+                    ("memory", fmt.size(p.rss))]
+        return pairs(rows)

@@ -1,12 +1,11 @@
 """The run's settings from its start line, and the journal's latest warnings."""
 from __future__ import annotations
 
-from rich.console import Group
-from rich.table import Table
 from rich.text import Text
 
 from ..view import View
 from .base import Panel
+from .texttable import pairs
 
 SHOWN = ("members", "features_per_split", "min_leaf", "depth_limit", "draw", "bins", "seed", "threads",
          "keep_members")
@@ -41,15 +40,10 @@ class SettingsPanel(Panel):
         key = (tuple(rows), tuple(v.warnings), v.resumed)
         self.put(key, lambda: self._body(rows, v), lines=len(rows) + len(v.warnings) + v.resumed)
 
-    def _body(self, rows, v: View):
-        g = Table.grid(padding=(0, 1, 0, 0))
-        g.add_column(style="dim", no_wrap=True)
-        g.add_column(no_wrap=True, overflow="ellipsis")
-        for k, val in rows:
-            g.add_row(k, val)
-        parts = [g]
+    def _body(self, rows, v: View) -> Text:
+        t = pairs(rows, label_width=0)
         if v.resumed:
-            parts.append(Text("resumed from a checkpoint", style="italic"))
+            t.append("\nresumed from a checkpoint", style="italic")
         for w in v.warnings:
-            parts.append(Text("! " + w, style="bold", overflow="ellipsis", no_wrap=True))
-        return Group(*parts)
+            t.append("\n! " + w, style="bold")
+        return t
