@@ -18,6 +18,22 @@ def _argmax_row(votes, r):
     return best
 
 
+@inline
+def _counts_from_confusion(confusion, class_wrong, class_covered, totals):
+    """Per-class covered and wrong counts and totals = [wrong, covered], read off confusion[true, pred]."""
+    n_classes = confusion.shape[0]
+    totals[0] = 0
+    totals[1] = 0
+    for t in range(n_classes):
+        covered = 0
+        for c in range(n_classes):
+            covered += confusion[t, c]
+        class_covered[t] = covered
+        class_wrong[t] = covered - confusion[t, t]
+        totals[0] += class_wrong[t]
+        totals[1] += covered
+
+
 @kernel
 def fold_classes(rows, row_votes, row_class, y, votes, pred, left_out, confusion, class_wrong, class_covered,
                  totals):
@@ -72,16 +88,46 @@ def fold_classes(rows, row_votes, row_class, y, votes, pred, left_out, confusion
             if not derive:
                 pred[r] = new
     # the other counts follow from the confusion matrix: recounted once, not updated per row
-    totals[0] = 0
-    totals[1] = 0
-    for t in range(n_classes):
-        covered = 0
-        for c in range(n_classes):
-            covered += confusion[t, c]
-        class_covered[t] = covered
-        class_wrong[t] = covered - confusion[t, t]
-        totals[0] += class_wrong[t]
-        totals[1] += covered
+    _counts_from_confusion(confusion, class_wrong, class_covered, totals)
+
+
+@kernel
+def fold_two_hard(rows, row_class, y, votes, confusion, class_wrong, class_covered, totals):
+    """fold_classes for two classes and hard votes (row_class: int32 0 or 1 per OOB row), without a
+    branch or a confusion-matrix store per row.
+
+    A row's OOB class is 1 when votes[r, 1] > votes[r, 0] (ties to class 0), which is 0 for a row
+    with no votes yet, so the change of its class is new - old with no special case; a row is
+    newly covered when it had no votes. The confusion matrix follows from four sums over the rows
+    (each row's true class t picks which sums it enters), added once at the end.
+    """
+    newly = np.int64(0)     # rows covered for the first time
+    newly_1 = np.int64(0)   # ... of true class 1
+    moved = np.int64(0)     # change in rows predicted class 1
+    moved_1 = np.int64(0)   # ... of true class 1
+    for i in range(rows.shape[0]):
+        r = rows[i]
+        a = votes[r, 0]
+        b = votes[r, 1]
+        c = row_class[i]
+        first = np.int64(a + b == 0)
+        old = np.int64(b > a)
+        a += 1 - c
+        b += c
+        votes[r, 0] = a
+        votes[r, 1] = b
+        change = np.int64(b > a) - old
+        t = np.int64(y[r])
+        newly += first
+        newly_1 += t * first
+        moved += change
+        moved_1 += t * change
+    # a newly covered row adds one at (t, new), a moved one shifts one from (t, old) to (t, new)
+    confusion[1, 1] += moved_1
+    confusion[1, 0] += newly_1 - moved_1
+    confusion[0, 1] += moved - moved_1
+    confusion[0, 0] += (newly - newly_1) - (moved - moved_1)
+    _counts_from_confusion(confusion, class_wrong, class_covered, totals)
 
 
 @kernel
