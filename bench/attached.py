@@ -1,11 +1,16 @@
 """The job's speed with the dashboard attached against without one (issue: within 2%).
 
-Runs the same `baggr train --no-ui` job (R1 twonorm, 100,000 x 20, features_per_split 4) several
-times, alternating no dashboard / the real dashboard attached in tmux, and prints for each job:
-its training time (end line), its steady rate (seconds per member over the last two thirds of the
-members, from the member lines: the dashboard's own start-up, about a second of one core, is over
-by then) and the dashboard's CPU use. Then the ratios of the medians.
-    python bench/attached.py [members] [rounds]
+One long `baggr train --no-ui --estimate-only` job (R1 twonorm, 100,000 x 20, features_per_split 4,
+all cores; estimate-only so that thousands of members hold no trees)
+and the real dashboard (`python -m tui` in tmux, 120 x 40) on it. The members are cut into short
+windows; in every other one the dashboard is stopped (SIGSTOP: no CPU at all, as if not there),
+in the others it runs (SIGCONT; it then also reads the lines it missed). Comparing windows of one
+job takes out what differs between processes (memory placement alone moves a whole job by 10%
+here), short windows take out the machine's slow drifts. Per window, the seconds per member come
+from the member lines' elapsed times; each running window is compared with the mean of the
+stopped windows on either side. The dashboard's start-up (about a second of one core) is
+reported apart: it is paid once per attach.
+    python bench/attached.py [windows] [members_per_window] [--hog SHARE]
 """
 import json
 import os
@@ -23,76 +28,135 @@ import pyarrow.parquet as pq
 from util import twonorm
 
 BAGGR = [sys.executable, "-m", "baggr.cli"]
+# --hog SHARE: in place of the dashboard, a loop busy SHARE of each 10 ms (the bench's sensitivity)
+HOG = "import time\nwhile True:\n    t = time.perf_counter()\n    while time.perf_counter() - t < {s} * 0.01: pass\n    time.sleep((1 - {s}) * 0.01)\n"
 
 
-def figures(run_dir: str) -> tuple[float, float]:
-    """(training seconds, seconds per member over the last two thirds) from the journal."""
-    elapsed, end = {}, None
-    with open(os.path.join(run_dir, "journal.jsonl")) as f:
-        for line in f:
+class Members:
+    """Follows the journal from a remembered offset: member -> elapsed."""
+
+    def __init__(self, path):
+        self.path, self.offset, self.rest, self.elapsed = path, 0, b"", {}
+
+    def poll(self) -> int:
+        try:
+            with open(self.path, "rb") as f:
+                f.seek(self.offset)
+                data = f.read()
+        except OSError:
+            return 0
+        self.offset += len(data)
+        *lines, self.rest = (self.rest + data).split(b"\n")
+        for line in lines:
             ev = json.loads(line)
             if ev.get("event") == "member":
-                elapsed[ev["member"]] = float(ev["elapsed"])
-            elif ev.get("event") == "end":
-                end = ev
-    if end is None or not elapsed:
-        raise SystemExit(f"the job in {run_dir} did not finish (no end line or no members)")
-    last = max(elapsed)
-    first = last // 3
-    return float(end["elapsed"]), (elapsed[last] - elapsed[first]) / (last - first)
+                self.elapsed[ev["member"]] = float(ev["elapsed"])
+        return max(self.elapsed, default=0)
 
 
-def job(data: str, run_dir: str, members: int, attach: bool) -> tuple[float, float, float]:
-    cmd = BAGGR + ["train", data, "--target", "y", "--members", str(members), "--features-per-split", "4",
-                   "--run-dir", run_dir, "--force", "--no-ui"]
-    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-    sock = f"baggr-bench-{os.getpid()}"
-    cpu = 0.0
-    if attach:
-        while not os.path.exists(os.path.join(run_dir, "journal.jsonl")):
-            time.sleep(0.05)
-        subprocess.run(["tmux", "-L", sock, "new-session", "-d", "-s", "b", "-x", "120", "-y", "40",
-                        f"exec {os.environ.get('DASH_PREFIX', '')} {sys.executable} -m tui {run_dir}"], check=True)
-        pid = int(subprocess.run(["tmux", "-L", sock, "list-panes", "-t", "b", "-F", "#{pane_pid}"],
-                                 capture_output=True, text=True).stdout.split()[0])
-        dash = psutil.Process(pid)
-    err = proc.communicate()[1]
-    if proc.returncode != 0:
-        raise SystemExit(f"the job failed ({proc.returncode}): {err.strip()}")
-    if attach:
-        c = dash.cpu_times()
-        cpu = c.user + c.system + c.children_user + c.children_system
-        subprocess.run(["tmux", "-L", sock, "kill-server"], check=False)
-    total, per = figures(run_dir)
-    return total, per, cpu
+def cpu_of(procs) -> float:
+    total = 0.0
+    for p in procs:
+        try:
+            c = p.cpu_times()
+            total += c.user + c.system + c.children_user + c.children_system
+        except psutil.NoSuchProcess:
+            pass
+    return total
 
 
-def main(members=600, rounds=3):
+def wait_for(members: Members, m: int, proc) -> None:
+    while members.poll() < m:
+        if proc.poll() is not None:
+            raise SystemExit(f"the job ended early ({proc.returncode}): {proc.stderr.read().strip()}")
+        time.sleep(0.05)
+
+
+def main(windows=120, per=100, hog=None):
     if not shutil.which("tmux"):
         sys.exit("tmux is needed to attach a real dashboard")
     print(time.strftime("%Y-%m-%d"), os.uname().machine, f"{os.cpu_count()} cores, "
-          f"load average {os.getloadavg()[0]:.2f}")
+          f"load average {os.getloadavg()[0]:.2f}; dashboard niceness +{os.environ.get('BAGGR_DASHBOARD_NICE', '10')}")
     with tempfile.TemporaryDirectory() as tmp:
         X, y = twonorm(100_000, seed=1)
         cols = {f"x{j}": X[:, j] for j in range(X.shape[1])}
         cols["y"] = y
         data = os.path.join(tmp, "twonorm.parquet")
         pq.write_table(pa.table(cols), data)
-        job(data, os.path.join(tmp, "warm"), 4, False)  # compile / load the kernels once
-        plain, attached = [], []
-        for r in range(rounds):
-            plain.append(job(data, os.path.join(tmp, f"p{r}"), members, False))
-            attached.append(job(data, os.path.join(tmp, f"a{r}"), members, True))
-            (pt, pp, _), (at, ap, ac) = plain[-1], attached[-1]
-            print(f"round {r + 1}: without {pt:.2f} s ({pp * 1e3:.2f} ms/member steady), "
-                  f"with dashboard {at:.2f} s ({ap * 1e3:.2f} ms/member steady; dashboard used {ac:.2f} s "
-                  f"of CPU = {ac / at * 100:.1f}% of one core)")
-        med = [statistics.median(v) for v in zip(*plain)], [statistics.median(v) for v in zip(*attached)]
-        (pt, pp, _), (at, ap, ac) = med
-        print(f"R1 {members} members, medians of {rounds}: training {pt:.2f} s without, {at:.2f} s with the "
-              f"dashboard ({(at / pt - 1) * 100:+.1f}%); steady {pp * 1e3:.2f} against {ap * 1e3:.2f} ms/member "
-              f"({(ap / pp - 1) * 100:+.1f}%); dashboard CPU {ac / at * 100:.1f}% of one core")
+        run_dir = os.path.join(tmp, "run")
+        warm = 3 * per                        # the dashboard starts and settles before the first window
+        total = warm + windows * per
+        cmd = BAGGR + ["train", data, "--target", "y", "--members", str(total), "--features-per-split", "4",
+                       "--run-dir", run_dir, "--no-ui", "--estimate-only"]
+        proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+        sock = ["tmux", "-L", f"baggr-bench-{os.getpid()}"]
+        members = Members(os.path.join(run_dir, "journal.jsonl"))
+        spans = []
+        try:
+            wait_for(members, 1, proc)
+            # not exec'd: tmux continues a stopped pane process at once, so the one stopped is the
+            # shell's child (tmux does not watch it)
+            what = f"{sys.executable} -m tui {run_dir}" if hog is None else f"{sys.executable} -c '{HOG.format(s=hog)}'"
+            subprocess.run(sock + ["new-session", "-d", "-s", "b", "-x", "120", "-y", "40", f"{what}; exit"],
+                           check=True)
+            pane = int(subprocess.run(sock + ["list-panes", "-t", "b", "-F", "#{pane_pid}"],
+                                      capture_output=True, text=True).stdout.split()[0])
+            server = int(subprocess.run(sock + ["display-message", "-p", "#{pid}"],
+                                        capture_output=True, text=True).stdout.split()[0])
+            while not psutil.Process(pane).children():
+                time.sleep(0.01)
+            dash = psutil.Process(pane).children()[0]
+            tmux, job = psutil.Process(server), psutil.Process(proc.pid)
+            wait_for(members, warm, proc)
+            start_up = cpu_of([dash])
+            for w in range(windows):
+                lo, hi = warm + w * per, warm + (w + 1) * per
+                running = w % 2 == 1
+                (dash.resume if running else dash.suspend)()
+                if not running:
+                    time.sleep(0.05)
+                    if dash.status() != psutil.STATUS_STOPPED:
+                        raise SystemExit("the dashboard did not stop: the comparison would be void")
+                c0, s0, j0, t0 = cpu_of([dash]), cpu_of([tmux]), cpu_of([job]), time.perf_counter()
+                wait_for(members, hi, proc)
+                wall = time.perf_counter() - t0
+                e = members.elapsed
+                spans.append((running, (e[hi] - e[lo]) / (hi - lo), (cpu_of([dash]) - c0) / wall,
+                              (cpu_of([tmux]) - s0) / wall, (cpu_of([job]) - j0) / wall))
+        finally:
+            try:
+                dash.resume()
+            except Exception:
+                pass
+            subprocess.run(sock + ["kill-server"], check=False, capture_output=True)
+            proc.terminate()
+            proc.wait()
+    ratios = []
+    for i, (running, t, *_) in enumerate(spans):
+        if running:
+            around = [spans[j][1] for j in (i - 1, i + 1) if 0 <= j < len(spans) and not spans[j][0]]
+            ratios.append(t / statistics.mean(around))
+    alone = [s[1] for s in spans if not s[0]]
+    shares = [s[2] for s in spans if s[0]]
+    tmuxes = [s[3] for s in spans if s[0]]
+    job_alone = [s[4] for s in spans if not s[0]]
+    print(f"stopped windows: {statistics.median(alone) * 1e3:.2f} ms/member median "
+          f"({min(alone) * 1e3:.2f}-{max(alone) * 1e3:.2f}); the job used {statistics.median(job_alone) * 100:.0f}% "
+          f"of one core of {os.cpu_count()}")
+    print(f"R1, {len(ratios)} running windows of {per} members against the stopped ones beside them: "
+          f"median {(statistics.median(ratios) - 1) * 100:+.1f}%, mean {(statistics.mean(ratios) - 1) * 100:+.1f}% "
+          f"(standard error {statistics.stdev(ratios) / len(ratios) ** 0.5 * 100:.1f}%), "
+          f"quartiles {(statistics.quantiles(ratios, n=4)[0] - 1) * 100:+.1f}% / "
+          f"{(statistics.quantiles(ratios, n=4)[2] - 1) * 100:+.1f}%")
+    print(f"CPU while running, of one core: dashboard {statistics.median(shares) * 100:.1f}%, tmux server "
+          f"{statistics.median(tmuxes) * 100:.1f}%; dashboard start-up to {warm} members: {start_up:.2f} s of CPU")
 
 
 if __name__ == "__main__":
-    main(*(int(v) for v in sys.argv[1:]))
+    args = sys.argv[1:]
+    hog = None
+    if "--hog" in args:
+        i = args.index("--hog")
+        hog = float(args[i + 1])
+        del args[i:i + 2]
+    main(*(int(v) for v in args), hog=hog)

@@ -13,6 +13,12 @@ def lower_priority() -> None:
         step = int(os.environ.get("BAGGR_DASHBOARD_NICE", NICE))
     except ValueError:
         step = NICE
+    if os.environ.get("BAGGR_DASHBOARD_SCHED") == "idle" and hasattr(os, "SCHED_IDLE"):
+        try:
+            os.sched_setscheduler(0, os.SCHED_IDLE, os.sched_param(0))
+            return
+        except OSError:
+            pass
     if step > 0 and hasattr(os, "nice"):
         try:
             os.nice(step)

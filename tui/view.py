@@ -49,14 +49,15 @@ class View:
 
 
 def make_view(state: RunState, *, run_name: str, status: str, now: float, width: int, log_x: bool,
-              highlight: int | None, stop_requested: bool, malformed: int) -> View:
-    """Copy the figures out of `state` (call with its lock held); curves downsampled to `width` points."""
+              highlight: int | None, stop_requested: bool, malformed: int, curves: bool = True) -> View:
+    """Copy the figures out of `state` (call with its lock held); curves downsampled to `width` points
+    (none when `curves` is false: a redraw that does not build the plot)."""
     running = status == "running"
     elapsed = state.elapsed
     if running and state.member_t is not None:
         elapsed += max(0.0, now - state.member_t)   # the clock goes on between member lines
-    curves = {}
-    if state.curve_member:
+    want_curves, curves = curves, {}
+    if want_curves and state.curve_member:
         series = ["error", "lo", "hi"]
         if state.task == "regression":
             series.append("r2")

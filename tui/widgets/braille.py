@@ -90,8 +90,8 @@ def plot(series: list[Series], width: int, height: int, **kw) -> Text:
 def plot_lines(series: list[Series], width: int, height: int, *, x_range: tuple[float, float],
                x_ticks: tuple[list[float], list[str]] = ((), ()), y_range: tuple[float, float] | None = None,
                axis_style: Style | str = "dim") -> list[list[tuple[str, Style | None]]]:
-    """The plot as `height` lines of (text, style) runs, at most `width` cells: y labels, the
-    drawing, then the x labels."""
+    """The plot as `height` lines of (text, style) runs, each exactly `width` cells (from 3 cells
+    up; one cell a character): y labels, the drawing, then the x labels."""
     finite = [s.ys[np.isfinite(s.ys)] for s in series]
     finite = [f for f in finite if f.size]
     if y_range is None:
@@ -160,7 +160,7 @@ def plot_lines(series: list[Series], width: int, height: int, *, x_range: tuple[
                 line.append((chars, styles[k]))
             c = e
         lines.append(line)
-    lines.append([(x_labels(x_ticks, x0, xspan, cols, label_w + 1), axis)])
+    lines.append([(x_labels(x_ticks, x0, xspan, cols, label_w + 1).ljust(label_w + 1 + cols), axis)])
     return lines
 
 

@@ -109,8 +109,14 @@ class CurvePlot(Widget):
             return
         v, mono = self._last_args
         lines = render_curves(v, mono, size.width, size.height)
-        self._painted = (size, [Strip([Segment(t, st or BLANK) for t, st in ln]).adjust_cell_length(size.width, BLANK)
-                                for ln in lines])
+        # each line is exactly the width (braille, marks and labels are one cell a character): given to
+        # the Strip, it need not measure its segments
+        strips = []
+        for ln in lines:
+            n = sum(len(t) for t, _ in ln)
+            strip = Strip([Segment(t, st or BLANK) for t, st in ln], n)
+            strips.append(strip if n == size.width else strip.adjust_cell_length(size.width, BLANK))
+        self._painted = (size, strips)
 
 
 def render_curves(v: View, mono: bool, width: int, height: int) -> list:
