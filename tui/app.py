@@ -138,6 +138,8 @@ class Dashboard(App):
                              width=curve.plot_width, log_x=self.log_x, highlight=self.highlight,
                              stop_requested=stop_requested(self.run_dir), malformed=self.tail.reader.malformed,
                              curves=heavy)
+        if not heavy and self.view is not None:
+            view.curves = self.view.curves      # the curves last drawn, not downsampled again
         self.view = view
         regression = view.task == "regression"
         self.query_one(ClassPanel).display = not regression
