@@ -142,9 +142,10 @@ class Dashboard(App):
             view.curves = self.view.curves      # the curves last drawn, not downsampled again
         self.view = view
         regression = view.task == "regression"
-        self.query_one(ClassPanel).display = not regression
-        self.query_one(ConfusionPanel).display = not regression
-        self.query_one(FitPanel).display = regression
+        for panel, shown in ((ClassPanel, not regression), (ConfusionPanel, not regression), (FitPanel, regression)):
+            widget = self.query_one(panel)
+            if widget.display != shown:     # setting it, even unchanged, lays out the whole screen again
+                widget.display = shown
         self.query_one(RunBar).show(view)
         self.query_one(ProgressPanel).show(view)
         if heavy:
