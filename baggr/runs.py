@@ -465,12 +465,7 @@ class Checkpointer:
             self._drop_unreferenced()
             return False
         header, arrays = npzfile.read(path, "checkpoint file")
-        if header.get("format") != CHECKPOINT_FORMAT:
-            raise ModelFileError(f"{path} is not a baggr checkpoint")
-        v = header.get("format_version")
-        if not isinstance(v, int) or v > CHECKPOINT_VERSION:
-            raise ModelFileError(f"{path} was written by a newer baggr (checkpoint format {v!r}; this baggr "
-                                 f"{__version__} reads up to {CHECKPOINT_VERSION}): upgrade baggr to resume it")
+        check_checkpoint_header(path, header, "resume")
         tr = self.training
         if header.get("config") != tr.config.to_dict():
             raise ModelFileError(f"{path} belongs to other settings than {CONFIG}; it cannot be resumed")
@@ -546,13 +541,19 @@ def read_checkpoint(rd: RunDir) -> tuple[dict, dict] | None:
         if not path.exists():       # replaced or removed between the check and the read
             return None
         raise
+    check_checkpoint_header(path, header, "read")
+    return header, arrays
+
+
+def check_checkpoint_header(path, header: dict, to: str) -> None:
+    """Refuse a file that is not a baggr checkpoint or comes from a newer format; `to`: what the
+    upgrade would let the user do ("resume", "read")."""
     if header.get("format") != CHECKPOINT_FORMAT:
         raise ModelFileError(f"{path} is not a baggr checkpoint")
     v = header.get("format_version")
     if not isinstance(v, int) or v > CHECKPOINT_VERSION:
-        raise ModelFileError(f"{path} was written by a newer baggr (checkpoint format {v!r}; "
-                             f"this baggr reads up to {CHECKPOINT_VERSION}): upgrade baggr to read it")
-    return header, arrays
+        raise ModelFileError(f"{path} was written by a newer baggr (checkpoint format {v!r}; this baggr "
+                             f"{__version__} reads up to {CHECKPOINT_VERSION}): upgrade baggr to {to} it")
 
 
 # ---------------------------------------------------------------- the job
