@@ -45,3 +45,14 @@ def noise_classes(n, seed, p=5):
     y = np.repeat([0, 1], n // 2)
     rng.shuffle(y)
     return rng.normal(size=(n, p)), y
+
+
+def noisy_halves(n, seed, p=6, redrawn=0.4):
+    """Two classes "yes"/"no" split by x0 + x1 > 0, with a share `redrawn` of the labels drawn again
+    at random (test data for long, hard runs; no source): columns f0..f{p-1} and "label"."""
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, p)).round(3)
+    y = (X[:, 0] + X[:, 1] > 0).astype(int)
+    flip = rng.random(n) < redrawn
+    y[flip] = rng.integers(0, 2, flip.sum())
+    return {**{f"f{j}": X[:, j] for j in range(p)}, "label": np.where(y == 1, "yes", "no")}

@@ -16,6 +16,7 @@ import pyarrow.parquet as pq
 import pytest
 
 import naive
+from generators import noisy_halves
 from baggr import npzfile
 from baggr.cli import COMMANDS
 from baggr.config import Config
@@ -210,13 +211,7 @@ def test_stop_when_stable_stops_early_on_an_easy_problem(tmp_path):
 
 def test_stop_when_stable_goes_on_to_the_target_on_a_hard_problem(tmp_path):
     # Many rows (a narrow interval) and 40% of labels redrawn at random: the curve still falls at 50-60 members.
-    rng = np.random.default_rng(7)
-    n = 20_000
-    X = rng.normal(size=(n, 6)).round(3)
-    y = (X[:, 0] + X[:, 1] > 0).astype(int)
-    flip = rng.random(n) < 0.4
-    y[flip] = rng.integers(0, 2, flip.sum())
-    cols = {**{f"f{j}": X[:, j] for j in range(6)}, "label": np.where(y == 1, "yes", "no")}
+    cols = noisy_halves(20_000, seed=7)
     rd, curve, lo, hi = _stable_run(tmp_path, cols, 60)
     assert len(curve) == 60
     assert not any(naive.stable_rule(curve, lo, hi, k) for k in range(1, 61))
