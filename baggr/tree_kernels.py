@@ -20,7 +20,7 @@ from .hist_kernels import (
 from .jit import kernel
 from .rng import below
 from .split_kernels import (
-    MISSING, inline, level_keys_classes, level_keys_values, scan_classes, scan_two, scan_values, sort_levels,
+    MISSING, level_keys_classes, level_keys_values, scan_classes, scan_two, scan_values, sort_levels,
     wimp_counts,
 )
 

@@ -150,7 +150,7 @@ class Dashboard(App):
         self.query_one(ProgressPanel).show(view)
         if heavy:
             self._tables_at = now
-            curve.show(view, now=now)
+            curve.show(view)
             self._draw_tables(view, regression)
         self.query_one(ProcessPanel).show(self.probe.look(view.pid, view.pid_started, view.host))
         self.query_one(SettingsPanel).show(view)

@@ -1,13 +1,12 @@
 """Per class: rows, share, OOB error and its Wilson 95% interval."""
 from __future__ import annotations
 
-from rich.cells import cell_len
 from rich.text import Text
 
 from .. import fmt
 from ..view import View
 from .base import Panel
-from .texttable import text_table
+from .texttable import table_width, text_table
 from .palette import class_colour, class_mark, rgb
 
 COLUMNS = ("class", "rows", "share", "OOB error", "95% interval", "covered")
@@ -34,6 +33,12 @@ def window(n: int, room: int, keep: int | None) -> range:
 
 
 def class_table(v: View, narrow: bool, mono: bool, room: int = 1000, cols=None) -> Text:
+    body, styles, cols = class_cells(v, narrow, mono, room, cols)
+    return text_table(body, header=list(cols), gap=2, row_styles=styles)
+
+
+def class_cells(v: View, narrow: bool, mono: bool, room: int = 1000, cols=None) -> tuple[list, list, tuple]:
+    """The table's body rows, their styles and its columns."""
     cols = cols or (NARROW if narrow else COLUMNS)
     rows = class_rows(v)
     shown = window(len(rows) - 1, max(1, room - 2), v.highlight)   # the header and "all" take two lines
@@ -48,7 +53,7 @@ def class_table(v: View, narrow: bool, mono: bool, room: int = 1000, cols=None) 
             label = Text.assemble(("━━ ", rgb(class_colour(i - 1))), r[0])
         styles.append("reverse" if v.highlight is not None and i == v.highlight + 1 else "")
         body.append([label, *(r[COLUMNS.index(c)] for c in cols[1:])])
-    return text_table(body, header=list(cols), gap=2, row_styles=styles)
+    return body, styles, cols
 
 
 class ClassPanel(Panel):
@@ -87,7 +92,7 @@ class ClassPanel(Panel):
         """The widest column set whose table fits the panel (cells are never cut short)."""
         avail = self.content_size.width
         for cols in (COLUMNS, NARROW, NARROWEST):
-            t = class_table(v, narrow, mono, room, cols)
-            if avail <= 0 or max(cell_len(x) for x in t.plain.split("\n")) <= avail:
-                return t
-        return t
+            body, styles, cols = class_cells(v, narrow, mono, room, cols)
+            if avail <= 0 or table_width(body, list(cols), gap=2) <= avail:
+                break
+        return text_table(body, header=list(cols), gap=2, row_styles=styles)

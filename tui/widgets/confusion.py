@@ -29,7 +29,7 @@ def confusion_table(v: View, room: int = 1000) -> Text:
     k = len(conf)
     wide = needed_width(v, True) <= room
     header = ["true"] + [short(v.classes[j] if j < len(v.classes) else str(j)) for j in range(k)]
-    body, styles = [], []
+    body = []
     for i, row in enumerate(conf):
         total = sum(row)
         cells = []

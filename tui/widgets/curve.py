@@ -71,7 +71,6 @@ class CurvePlot(Widget):
     """
 
     _drawn = None          # the key of the data last drawn
-    _drawn_at = -1e9
     _last_args = None
     _painted = None
 
@@ -89,16 +88,13 @@ class CurvePlot(Widget):
             self._drawn = None
             self.draw(*self._last_args)
 
-    def draw(self, v: View, mono: bool, now: float = 0.0, every: float = 0.0) -> None:
-        """Plot the view's curves; new data alone redraws at most every `every` seconds."""
+    def draw(self, v: View, mono: bool) -> None:
+        """Plot the view's curves unless they are drawn already (the app decides how often to ask)."""
         self._last_args = (v, mono)
         key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes), self.size)
         if key == self._drawn:
             return
-        only_data = self._drawn is not None and key[1:] == self._drawn[1:]
-        if only_data and now - self._drawn_at < every:
-            return
-        self._drawn, self._drawn_at = key, now
+        self._drawn = key
         self._build()
         self.refresh()
 
@@ -232,7 +228,7 @@ class CurvePanel(Vertical):
         plots = self.query(CurvePlot)
         return max(40, 2 * plots.first().size.width) if plots else 200
 
-    def show(self, v: View, now: float = 0.0, every: float = 0.0) -> None:
+    def show(self, v: View) -> None:
         mono = self.app.no_color
         what = "OOB error, % of rows" if v.is_classes else "OOB MSE"
         title = f"{what} by ensemble size"
@@ -241,5 +237,5 @@ class CurvePanel(Vertical):
             self.border_title, self.border_subtitle = title, subtitle
         if not self.query(CurvePlot) or not self.query(CurveKey):
             return                      # not composed yet: the next redraw draws it
-        self.query_one(CurvePlot).draw(v, mono, now, every)
+        self.query_one(CurvePlot).draw(v, mono)
         self.query_one(CurveKey).show(v, mono)

@@ -22,11 +22,8 @@ def text_table(rows, *, header=None, justify=None, gap: int = 1, header_style: s
     all_rows = ([header] if header else []) + [list(r) for r in rows]
     if not all_rows:
         return Text("")
-    n = max(len(r) for r in all_rows)
-    widths = [0] * n
-    for r in all_rows:
-        for j, c in enumerate(r):
-            widths[j] = max(widths[j], width(c))
+    widths = column_widths(all_rows)
+    n = len(widths)
     if min_widths:
         widths = [max(w, m) for w, m in zip(widths, list(min_widths) + [0] * n)]
     justify = justify or ["left"] + ["right"] * (n - 1)
@@ -58,14 +55,16 @@ def text_table(rows, *, header=None, justify=None, gap: int = 1, header_style: s
     return out
 
 
+def column_widths(all_rows) -> list[int]:
+    """The widest cell of each column."""
+    n = max((len(r) for r in all_rows), default=0)
+    return [max((width(r[j]) for r in all_rows if j < len(r)), default=0) for j in range(n)]
+
+
 def table_width(rows, header=None, gap: int = 1) -> int:
     """Columns text_table would take."""
-    all_rows = ([header] if header else []) + [list(r) for r in rows]
-    if not all_rows:
-        return 0
-    n = max(len(r) for r in all_rows)
-    widths = [max((width(r[j]) for r in all_rows if j < len(r)), default=0) for j in range(n)]
-    return sum(widths) + gap * (n - 1)
+    widths = column_widths(([header] if header else []) + [list(r) for r in rows])
+    return sum(widths) + gap * max(0, len(widths) - 1)
 
 
 def pairs(rows, *, label_width: int = 7, gap: int = 1) -> Text:
