@@ -411,3 +411,18 @@ def test_clock_is_injectable_elapsed_and_time_to_go(tmp_path):
             # members left over the rate: (200 - 50) / 5 per second (arithmetic, common practice)
             assert "about 30s" in side
     run(go())
+
+
+def test_long_panel_lines_are_cut_not_wrapped(tmp_path):
+    # "finished: reached 300 members" is wider than the progress panel: one line, ending in an ellipsis
+    write_journal(tmp_path / "xi", 300, members_target=300, end="finished")
+
+    async def go():
+        app = Dashboard(tmp_path / "xi")
+        async with app.run_test(size=(100, 30)) as pilot:
+            await settle(pilot, app, lambda: app.first_full_draw is not None and app.status == "finished")
+            lines = widget_text(app, "ProgressPanel").splitlines()
+            job = next(i for i, x in enumerate(lines) if x.lstrip().startswith("job"))
+            assert "finished: reached" in lines[job] and lines[job].rstrip().endswith("…")
+            assert lines[job + 1].lstrip().startswith("pace")
+    run(go())

@@ -61,6 +61,8 @@ class ClassPanel(Panel):
 
     DEFAULT_CSS = """
     ClassPanel {
+        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
+        text-overflow: ellipsis;
         height: auto;
         width: 1fr;
         border: round $foreground 30%;

@@ -50,6 +50,8 @@ class ConfusionPanel(Panel):
 
     DEFAULT_CSS = """
     ConfusionPanel {
+        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
+        text-overflow: ellipsis;
         height: auto;
         width: auto;
         max-width: 60%;

@@ -24,6 +24,8 @@ class FitPanel(Panel):
 
     DEFAULT_CSS = """
     FitPanel {
+        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
+        text-overflow: ellipsis;
         height: auto;
         width: 1fr;
         border: round $foreground 30%;

@@ -61,6 +61,8 @@ class ProgressPanel(Panel):
 
     DEFAULT_CSS = """
     ProgressPanel {
+        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
+        text-overflow: ellipsis;
         height: auto;
         padding: 0 1;
     }
