@@ -28,6 +28,9 @@ REDRAW_EVERY = 0.5
 # While lines arrive, the plot and the tables (most of a redraw's cost) follow once a second; the
 # progress figures at every redraw. Keys, resizes and a job's end draw everything at once.
 TABLES_EVERY = 1.0
+# The tailing thread reads when a tick wakes it (so what a tick draws was read at the one before);
+# it polls on its own only while no tick runs.
+TAIL_POLL = 1.0
 
 
 class Dashboard(App):
@@ -57,7 +60,7 @@ class Dashboard(App):
         Binding("question_mark", "help", "keys"),
     ]
 
-    def __init__(self, run_dir, *, get_time=time.time, poll: float = 0.1, opening=None):
+    def __init__(self, run_dir, *, get_time=time.time, poll: float = TAIL_POLL, opening=None):
         super().__init__()
         self.run_dir = Path(run_dir)
         self.get_time = get_time
@@ -97,6 +100,7 @@ class Dashboard(App):
         self.tail.waiting.clear()
         if self.first_full_draw is None and not message.backlog:
             self.redraw()                 # draw the whole history at once, without waiting for the tick
+            self.tail.quiet = True        # from now on the ticks draw whatever the thread has read
 
     def on_journal_restarted(self, message: JournalRestarted) -> None:
         self.highlight = None
@@ -116,6 +120,7 @@ class Dashboard(App):
             self.query_one(RunBar).reading(self.run_dir.name, self.tail.lines)
             return
         self.redraw(all_panels=False)
+        self.tail.wake()
 
     def redraw(self, all_panels: bool = True) -> None:
         try:

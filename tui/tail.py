@@ -27,6 +27,8 @@ class Tail:
         self._post = post
         self._poll = poll
         self._stop = threading.Event()
+        self._wake = threading.Event()    # set by wake(): read now rather than at the end of the poll
+        self.quiet = False                # set by a UI that redraws on its own clock: no JournalAdvanced notes
         self._thread: threading.Thread | None = None
         self._unsent = 0
         self.waiting = threading.Event()   # set while a JournalAdvanced is posted and not yet handled
@@ -49,6 +51,9 @@ class Tail:
 
     def notify(self, backlog: bool) -> None:
         """Post a JournalAdvanced unless one is still waiting to be handled (the UI never falls behind)."""
+        if self.quiet:
+            self._unsent = 0
+            return
         if self._unsent and not self.waiting.is_set():
             self.waiting.set()
             with self.lock:
@@ -88,7 +93,13 @@ class Tail:
             self.caught_up.set()
             self.notify(backlog=False)
             if not more:
-                self._stop.wait(self._poll)
+                self._wake.wait(self._poll)
+                self._wake.clear()
+
+    def wake(self) -> None:
+        """Read now: a UI that draws on a clock calls this once a tick, so that the thread wakes
+        only then (each wake-up of a thread costs the job sharing the cores more than the read)."""
+        self._wake.set()
 
     def start(self) -> None:
         self._thread = threading.Thread(target=self.run, name="baggr-journal-tail", daemon=True)
@@ -96,6 +107,7 @@ class Tail:
 
     def stop(self) -> None:
         self._stop.set()
+        self._wake.set()
         if self._opening is not None:
             self._opening.cancel()
         if self._thread is not None:

@@ -142,23 +142,21 @@ def plot_lines(series: list[Series], width: int, height: int, *, x_range: tuple[
             tick_row.setdefault(r, lab)
     styles = [Style(color=s.colour) if s.colour else None for s in series]
     axis = Style.parse(axis_style) if isinstance(axis_style, str) else axis_style
+    # one code point a cell: braille from the dot bits, a series' mark, or a space where nothing is drawn
+    cp = bits.astype(np.uint32) + 0x2800
+    if (marks >= 0).any():
+        mark_cp = np.array([ord(s.mark) if s.mark else 0x20 for s in series], np.uint32)
+        cp[marks >= 0] = mark_cp[marks[marks >= 0]]
+    cp[owner < 0] = 0x20
     lines = []
     for r in range(rows):
         line = [(tick_row.get(r, "").rjust(label_w) + " ", axis)]
-        line_owner = owner[r]
-        c = 0
-        while c < cols:
-            k = line_owner[c]
-            e = c + 1
-            while e < cols and line_owner[e] == k:
-                e += 1
-            if k < 0:
-                line.append((" " * (e - c), None))
-            else:
-                chars = "".join(series[marks[r, j]].mark if marks[r, j] >= 0 else chr(0x2800 + int(bits[r, j]))
-                                for j in range(c, e))
-                line.append((chars, styles[k]))
-            c = e
+        text = cp[r].tobytes().decode("utf-32-le")
+        o = owner[r]
+        cuts = [0, *(np.flatnonzero(o[1:] != o[:-1]) + 1).tolist(), cols]
+        for c, e in zip(cuts, cuts[1:]):    # one run a stretch of cells of the same series
+            k = int(o[c])
+            line.append((text[c:e], styles[k] if k >= 0 else None))
         lines.append(line)
     lines.append([(x_labels(x_ticks, x0, xspan, cols, label_w + 1).ljust(label_w + 1 + cols), axis)])
     return lines

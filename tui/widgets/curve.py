@@ -13,7 +13,7 @@ from textual.strip import Strip
 from textual.widget import Widget
 
 from ..view import View
-from .base import Panel
+from .base import Panel, TextPanel
 from .braille import Series, plot_lines
 from .palette import (BAND, DIMMED, MONO_BAND, MONO_OVERALL, OVERALL, class_colour, class_mark, rgb)
 
@@ -172,7 +172,7 @@ def curve_key(v: View, mono: bool) -> Text:
     return t
 
 
-class Caution(Panel):
+class Caution(TextPanel):
     """The line under the curve about small ensembles."""
 
     DEFAULT_CSS = """

@@ -1,7 +1,6 @@
 """The top line: which run this is, what it learns, and how the job stands."""
 from __future__ import annotations
 
-from rich.table import Table
 from rich.text import Text
 
 from ..view import View
@@ -41,8 +40,17 @@ class RunBar(Panel):
     }
     """
 
+    _view = None
+
     def show(self, v: View) -> None:
-        self.put((v.run_name, task_words(v), v.status, v.stop_requested), lambda: self._line(v), lines=1)
+        self._view = v
+        width = self.content_region.width
+        self.put((v.run_name, task_words(v), v.status, v.stop_requested, width), lambda: self._line(v, width),
+                 lines=1)
+
+    def on_resize(self) -> None:
+        if self._view is not None:          # the status sits at the right edge: place it again
+            self.show(self._view)
 
     def reading(self, run_name: str, lines: int) -> None:
         """While the opening read runs."""
@@ -50,14 +58,17 @@ class RunBar(Panel):
         self.put(("reading", lines), lambda: Text.assemble(("baggr", "dim"), "  ", (run_name, "bold"), words),
                  lines=1)
 
-    def _line(self, v: View) -> Table:
-        grid = Table.grid(expand=True)
-        grid.add_column(ratio=1, no_wrap=True, overflow="ellipsis")
-        grid.add_column(justify="right", no_wrap=True)
+    def _line(self, v: View, width: int) -> Text:
+        """The run on the left, its status at the right edge; the left part gives way first."""
         left = Text.assemble(("baggr", "dim"), ("  ", ""), (v.run_name, "bold"), ("  ", ""), (task_words(v), ""))
         words = STATUS_WORDS.get(v.status, v.status)
         if v.status == "running" and v.stop_requested:
             words = "running, stop requested"
         right = Text(words, style=STATUS_STYLE.get(v.status, ""))
-        grid.add_row(left, right)
-        return grid
+        room = width - len(right) - 1
+        if room < 8:
+            return right
+        if len(left) > room:
+            left.truncate(room, overflow="ellipsis")
+        left.append(" " * (width - len(left) - len(right)))
+        return left + right
