@@ -6,9 +6,7 @@ from pathlib import Path
 
 from textual.app import App, ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal
 from textual.css.query import NoMatches
-from textual.widgets import Footer
 
 from baggr.journal import RunDirError, job_status, request_stop, stop_requested
 
@@ -19,6 +17,7 @@ from .tail import Tail
 from .view import View, make_view
 from .widgets import (Caution, ClassPanel, ConfusionPanel, CurvePanel, FitPanel, ProcessPanel, ProgressPanel,
                       RunBar, SidePanel)
+from .widgets.base import Backdrop, Keys, Row
 from .widgets.settings import SettingsPanel
 from .widgets.process import ProcessProbe
 
@@ -76,15 +75,18 @@ class Dashboard(App):
 
     def compose(self) -> ComposeResult:
         yield RunBar(id="runbar")
-        with Horizontal(id="top"):
+        with Row(id="top"):
             yield CurvePanel(id="curve")
             yield SidePanel(id="side")
         yield Caution(id="caution")
-        with Horizontal(id="bottom"):
+        with Row(id="bottom"):
             yield ClassPanel(id="classes")
             yield ConfusionPanel(id="confusion")
             yield FitPanel(id="fit")
-        yield Footer()
+        yield Keys()
+
+    def get_default_screen(self) -> Backdrop:
+        return Backdrop(id="_default")
 
     def on_mount(self) -> None:
         # Once every panel is composed: a fast opening read must not find half a screen to draw on.

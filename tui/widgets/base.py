@@ -13,7 +13,9 @@ from rich.style import Style
 from rich.text import Text
 from textual.strip import Strip
 from textual.widget import Widget
-from textual.widgets import Static
+from textual.containers import Horizontal, Vertical
+from textual.screen import Screen
+from textual.widgets import Footer, Static
 
 BLANK = Style()          # Textual's filters (NO_COLOR) want a style on every segment
 ELLIPSIS = "…"
@@ -49,20 +51,123 @@ def text_lines(text: Text, get_style) -> list[list[Segment]]:
     return lines
 
 
-def fit_strip(segments: list[Segment], width: int) -> Strip:
+def fit(segments: list[Segment], width: int) -> list[Segment]:
     """One line exactly `width` cells: padded, or cut with an ellipsis in the last cell."""
-    strip = Strip(segments)
-    n = strip.cell_length
+    n = sum(cell_len(s.text) for s in segments)
     if n <= width:
-        return strip.extend_cell_length(width, BLANK) if n < width else strip
+        return segments + [Segment(" " * (width - n), BLANK)] if n < width else segments
     if width <= 0:
-        return Strip([], 0)
-    cut = list(strip.crop(0, width - 1))
-    last = cut[-1].style if cut else BLANK
-    return Strip(cut + [Segment(ELLIPSIS, last or BLANK)], width)
+        return []
+    out, room = [], width - 1
+    for seg in segments:
+        k = cell_len(seg.text)
+        if k > room:
+            if room:
+                out.append(seg.split_cells(room)[0])
+            break
+        out.append(seg)
+        room -= k
+    last = out[-1].style if out else BLANK
+    used = sum(cell_len(s.text) for s in out)
+    return out + [Segment(" " * (width - 1 - used) + ELLIPSIS, last or BLANK)]
 
 
-class Panel(Widget):
+class KeepLines:
+    """Widget mixin: the lines last rendered are handed back as they are until the widget is dirty again.
+
+    Textual asks every widget whose clip overlaps a repaint for all its lines, and runs each of them
+    through its styling and filters, even when the widget did not change: on this dashboard, where the
+    progress figures change twice a second, that walk over a dozen widgets cost more than drawing the
+    figures. Everything that makes Textual draw a widget again goes through Widget._set_dirty, so
+    the kept lines are dropped there (a private method: tests/test_tui.py checks that a changed
+    widget shows its new lines).
+    """
+
+    _kept = None                # (crop, size, lines)
+
+    def _set_dirty(self, *regions) -> None:
+        self._kept = None
+        super()._set_dirty(*regions)
+
+    def render_lines(self, crop):
+        kept = self._kept
+        if kept is not None and kept[0] == crop and kept[1] == self.outer_size:
+            return kept[2]
+        lines = self._render_lines(crop)
+        self._kept = (crop, self.outer_size, lines)
+        return lines
+
+    def _render_lines(self, crop):
+        return super().render_lines(crop)
+
+
+class Painted(KeepLines, Widget):
+    """A widget whose lines are built by paint() when its figures change.
+
+    Without a border, the lines are styled here, in one pass when they change (through Textual's
+    styling they cost about 0.1 ms a line).
+    """
+
+    _version = 0                # bumped by changed(): the figures are new
+    _made = None                # (key, content lines as segments, the widget's colours laid under)
+
+    def paint(self, width: int, height: int) -> list[list[Segment]]:
+        """The content lines as segments, each line exactly `width` cells (subclasses)."""
+        return []
+
+    def changed(self, layout: bool = False) -> None:
+        """The figures changed: paint again and repaint."""
+        self._version += 1
+        self.refresh(layout=layout)
+
+    def notify_style_update(self) -> None:
+        self._version += 1          # colours are part of the painted lines
+        super().notify_style_update()
+
+    def _content(self) -> tuple:
+        """(base style, content lines): painted again only when the figures or the size changed."""
+        size = self.size
+        key = (self._version, size)
+        if self._made is None or self._made[0] != key:
+            base = self.rich_style
+            lines = [[Segment(t, base + st if st else base) for t, st, _ in ln]
+                     for ln in self.paint(size.width, size.height)]
+            self._made = (key, base, lines)
+        return self._made[1], self._made[2]
+
+    def render_line(self, y: int) -> Strip:
+        base, lines = self._content()
+        width = self.size.width
+        return Strip(lines[y], width) if 0 <= y < len(lines) else Strip.blank(width, base)
+
+    def _render_lines(self, crop):
+        styles = self.styles
+        if any(edge for edge, _ in styles.border) or any(edge for edge, _ in styles.outline) or \
+                styles.opacity != 1 or styles.tint.a or styles.text_opacity != 1:
+            return super()._render_lines(crop)      # a frame or an effect: Textual draws it
+        base, lines = self._content()
+        width, height = self.outer_size           # (size is the content's)
+        top, right, bottom, left = styles.padding
+        inner = self.size.width
+        pad_l, pad_r = [Segment(" " * left, base)] if left else [], [Segment(" " * right, base)] if right else []
+        _, background = self.background_colors
+        filters = self.get_line_filters()
+
+        def line(segments):
+            for f in filters:
+                segments = f.apply(segments, background)
+            return Strip(segments, width)
+        blank = line([Segment(" " * width, base)])
+        whole = [blank] * top
+        for y in range(height - top - bottom):
+            whole.append(line(pad_l + (lines[y] if y < len(lines) else [Segment(" " * inner, base)]) + pad_r))
+        whole += [blank] * bottom
+        if crop.x == 0 and crop.width == width:
+            return whole[crop.y:crop.bottom]
+        return [s.crop(crop.x, crop.right) for s in whole[crop.y:crop.bottom]]
+
+
+class Panel(Painted):
     """A few lines of text; put() skips repaints (and layout passes) when the figures are unchanged."""
 
     DEFAULT_CSS = """
@@ -74,7 +179,6 @@ class Panel(Widget):
     _shown_key = None
     _shown_lines = None
     _lines: list = []           # segments of each line
-    _strips = None              # (width, strips) cut for the last width drawn
 
     def put(self, key, make, lines: int | None = None) -> bool:
         """Show make() (a Text) unless `key` equals the last one; lay out again only when the line count changes."""
@@ -83,8 +187,7 @@ class Panel(Widget):
         layout = lines is None or lines != self._shown_lines
         self._shown_key, self._shown_lines = key, lines
         self._lines = text_lines(make(), self.app.console.get_style)
-        self._strips = None
-        self.refresh(layout=layout)
+        self.changed(layout=layout)
         return True
 
     def get_content_width(self, container, viewport) -> int:
@@ -93,15 +196,11 @@ class Panel(Widget):
     def get_content_height(self, container, viewport, width: int) -> int:
         return len(self._lines)
 
-    def render_line(self, y: int) -> Strip:
-        width = self.content_region.width
-        if self._strips is None or self._strips[0] != width:
-            self._strips = (width, [fit_strip(ln, width) for ln in self._lines])
-        strips = self._strips[1]
-        return strips[y] if 0 <= y < len(strips) else Strip.blank(width, BLANK)
+    def paint(self, width: int, height: int) -> list[list[Segment]]:
+        return [fit(ln, width) for ln in self._lines]
 
 
-class TextPanel(Static):
+class TextPanel(KeepLines, Static):
     """A Static with the same put(): for text that wraps (Textual lays it out)."""
 
     _shown_key = None
@@ -114,3 +213,19 @@ class TextPanel(Static):
         self._shown_key, self._shown_lines = key, lines
         self.update(make(), layout=layout)
         return True
+
+
+class Row(KeepLines, Horizontal):
+    """A Horizontal that keeps its lines (see KeepLines)."""
+
+
+class Column(KeepLines, Vertical):
+    """A Vertical that keeps its lines (see KeepLines)."""
+
+
+class Keys(KeepLines, Footer):
+    """Textual's footer of key bindings, keeping its lines (see KeepLines)."""
+
+
+class Backdrop(KeepLines, Screen):
+    """The main screen, keeping its lines (see KeepLines)."""

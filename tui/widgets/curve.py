@@ -8,16 +8,13 @@ from rich.segment import Segment
 from rich.style import Style
 from rich.text import Text
 from textual.app import ComposeResult
-from textual.containers import Vertical
-from textual.strip import Strip
-from textual.widget import Widget
+
 
 from ..view import View
-from .base import Panel, TextPanel
+from .base import Column, Painted, Panel, TextPanel
 from .braille import Series, plot_lines
 from .palette import (BAND, DIMMED, MONO_BAND, MONO_OVERALL, OVERALL, class_colour, class_mark, rgb)
 
-BLANK = Style()   # Textual's filters (NO_COLOR) want a style on every segment
 
 # About e^-1 = 0.368 of the members leave a given row out of their bootstrap draw (Breiman 1996).
 OOB_SHARE = math.exp(-1)
@@ -60,7 +57,7 @@ def log_ticks(lo: float, hi: float, width: int = 80) -> tuple[list[float], list[
     return ticks, labels
 
 
-class CurvePlot(Widget):
+class CurvePlot(Painted):
     """The plot itself (braille lines from .braille)."""
 
     DEFAULT_CSS = """
@@ -72,47 +69,29 @@ class CurvePlot(Widget):
 
     _drawn = None          # the key of the data last drawn
     _last_args = None
-    _painted = None
-
-    def render_line(self, y: int) -> Strip:
-        # The line API: Textual asks for the lines it repaints, and they are built in draw() only
-        # (Textual repaints a widget on any layout pass of the screen).
-        if self._painted is None or self._painted[0] != self.size:
-            self._build()
-        strips = self._painted[1]
-        return strips[y] if y < len(strips) else Strip.blank(self.size.width, BLANK)
-
-    def on_resize(self) -> None:
-        # Ticks are laid out for the width: draw again at once (also after the first layout).
-        if self._last_args is not None:
-            self._drawn = None
-            self.draw(*self._last_args)
 
     def draw(self, v: View, mono: bool) -> None:
         """Plot the view's curves unless they are drawn already (the app decides how often to ask)."""
         self._last_args = (v, mono)
-        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes), self.size)
+        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes))
         if key == self._drawn:
             return
         self._drawn = key
-        self._build()
-        self.refresh()
+        self.changed()
 
-    def _build(self) -> None:
-        size = self.size
-        if self._last_args is None or size.width < 8 or size.height < 3:
-            self._painted = (size, [])
-            return
+    def paint(self, width: int, height: int) -> list[list[Segment]]:
+        # The ticks are laid out for the size: a resize paints again from the last view.
+        if self._last_args is None or width < 8 or height < 3:
+            return []
         v, mono = self._last_args
-        lines = render_curves(v, mono, size.width, size.height)
-        # each line is exactly the width (braille, marks and labels are one cell a character): given to
-        # the Strip, it need not measure its segments
-        strips = []
-        for ln in lines:
-            n = sum(len(t) for t, _ in ln)
-            strip = Strip([Segment(t, st or BLANK) for t, st in ln], n)
-            strips.append(strip if n == size.width else strip.adjust_cell_length(size.width, BLANK))
-        self._painted = (size, strips)
+        lines = []
+        for ln in render_curves(v, mono, width, height):
+            segs = [Segment(t, st) for t, st in ln]
+            n = sum(len(t) for t, _ in ln)     # one cell a character (braille, marks, labels)
+            if n < width:
+                segs.append(Segment(" " * (width - n)))
+            lines.append(segs)
+        return lines
 
 
 def render_curves(v: View, mono: bool, width: int, height: int) -> list:
@@ -202,7 +181,7 @@ class CurveKey(Panel):
         self.put((tuple(v.classes), v.highlight, mono, v.task), lambda: curve_key(v, mono), lines=1)
 
 
-class CurvePanel(Vertical):
+class CurvePanel(Column):
     """Plot, its key and the caution about small ensembles."""
 
     DEFAULT_CSS = """

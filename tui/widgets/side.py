@@ -2,14 +2,14 @@
 from __future__ import annotations
 
 from textual.app import ComposeResult
-from textual.containers import Vertical
 
+from .base import Column
 from .process import ProcessPanel
 from .progress import ProgressPanel
 from .settings import SettingsPanel
 
 
-class SidePanel(Vertical):
+class SidePanel(Column):
     """Progress, process and settings share one frame, to spare rows on a small terminal; what does not fit is cut."""
 
     DEFAULT_CSS = """
