@@ -72,6 +72,22 @@ def fit(segments: list[Segment], width: int) -> list[Segment]:
     return out + [Segment(" " * (width - 1 - used) + ELLIPSIS, last or BLANK)]
 
 
+def pair_lines(rows, get_style, label_width: int = 7, label_style: str = "dim") -> list[list[Segment]]:
+    """Label / value lines as segments (what texttable.pairs gives as Text, without building one):
+    labels in a column of at least `label_width`; a value is a str or a one-line Text."""
+    lab = get_style(label_style)
+    w = max([label_width] + [cell_len(k) for k, _ in rows])
+    out = []
+    for k, val in rows:
+        segs = [Segment(k + " " * (w - cell_len(k) + 1), lab)]
+        if isinstance(val, Text):
+            segs += text_lines(val, get_style)[0] if val.plain else []
+        elif val:
+            segs.append(Segment(str(val), BLANK))
+        out.append(segs)
+    return out
+
+
 class KeepLines:
     """Widget mixin: the lines last rendered are handed back as they are until the widget is dirty again.
 
@@ -190,6 +206,16 @@ class Panel(Painted):
         self.changed(layout=layout)
         return True
 
+    def put_lines(self, key, make, lines: int | None = None) -> bool:
+        """Like put(), make() giving the lines as lists of segments already (no Text to cut)."""
+        if key == self._shown_key:
+            return False
+        layout = lines is None or lines != self._shown_lines
+        self._shown_key, self._shown_lines = key, lines
+        self._lines = make()
+        self.changed(layout=layout)
+        return True
+
     def get_content_width(self, container, viewport) -> int:
         return max((sum(cell_len(s.text) for s in ln) for ln in self._lines), default=0)
 
@@ -221,6 +247,19 @@ class Row(KeepLines, Horizontal):
 
 class Column(KeepLines, Vertical):
     """A Vertical that keeps its lines (see KeepLines)."""
+
+
+class Frame(Column):
+    """A rounded frame holding one panel, which then has no border of its own: a bordered widget
+    goes through Textual's styling line by line at each repaint, a frame keeps its lines (KeepLines)."""
+
+    DEFAULT_CSS = """
+    Frame {
+        height: auto;
+        border: round $foreground 30%;
+        border-title-color: $text-muted;
+    }
+    """
 
 
 class Keys(KeepLines, Footer):

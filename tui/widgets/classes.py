@@ -61,18 +61,13 @@ class ClassPanel(Panel):
 
     DEFAULT_CSS = """
     ClassPanel {
-        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
-        text-overflow: ellipsis;
         height: auto;
-        width: 1fr;
-        border: round $foreground 30%;
-        border-title-color: $text-muted;
         padding: 0 1;
     }
     """
 
     def on_mount(self) -> None:
-        self.border_title = "by class"
+        self.parent.border_title = "by class"
 
     _last = None
 
@@ -88,7 +83,9 @@ class ClassPanel(Panel):
         key = (tuple(class_rows(v)), narrow, mono, room, v.highlight, self.content_size.width)
         hidden = max(0, n - max(1, room - 2))
         if self.put(key, lambda: self._fitting(v, narrow, mono, room), lines=min(n + 2, room)):
-            self.border_subtitle = f"{hidden} more: c shows them" if hidden else ""
+            subtitle = f"{hidden} more: c shows them" if hidden else ""
+            if self.parent.border_subtitle != subtitle:      # setting it repaints the frame
+                self.parent.border_subtitle = subtitle
 
     def _fitting(self, v: View, narrow: bool, mono: bool, room: int) -> Text:
         """The widest column set whose table fits the panel (cells are never cut short)."""

@@ -50,22 +50,19 @@ class ConfusionPanel(Panel):
 
     DEFAULT_CSS = """
     ConfusionPanel {
-        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
-        text-overflow: ellipsis;
         height: auto;
         width: auto;
-        max-width: 60%;
-        border: round $foreground 30%;
-        border-title-color: $text-muted;
         padding: 0 1;
     }
     """
 
     def on_mount(self) -> None:
-        self.border_title = "confusion"
+        self.parent.border_title = "confusion"
 
     def show(self, v: View, room: int = 1000) -> None:
         wide = bool(v.confusion) and needed_width(v, True) <= room
         key = (str(v.confusion), tuple(v.classes), v.highlight, wide)
         if self.put(key, lambda: confusion_table(v, room), lines=len(v.confusion or ()) + 1):
-            self.border_subtitle = "" if not v.confusion else ("true class by OOB vote, row %" if wide else "true by vote")
+            subtitle = "" if not v.confusion else ("true class by OOB vote, row %" if wide else "true by vote")
+            if self.parent.border_subtitle != subtitle:      # setting it repaints the frame
+                self.parent.border_subtitle = subtitle

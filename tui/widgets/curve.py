@@ -204,8 +204,18 @@ class CurvePanel(Column):
     @property
     def plot_width(self) -> int:
         """Points worth drawing: braille has two dots per cell across."""
-        plots = self.query(CurvePlot)
-        return max(40, 2 * plots.first().size.width) if plots else 200
+        plot = self._plot()
+        return max(40, 2 * plot.size.width) if plot is not None else 200
+
+    _parts = None
+
+    def _plot(self):
+        if self._parts is None:
+            plots, keys = self.query(CurvePlot), self.query(CurveKey)
+            if not plots or not keys:
+                return None             # not composed yet
+            self._parts = (plots.first(), keys.first())
+        return self._parts[0]
 
     def show(self, v: View) -> None:
         mono = self.app.no_color
@@ -214,7 +224,8 @@ class CurvePanel(Column):
         subtitle = f"members axis: {'log' if v.log_x else 'linear'} (l)"
         if (title, subtitle) != (self.border_title, self.border_subtitle):   # setting them repaints
             self.border_title, self.border_subtitle = title, subtitle
-        if not self.query(CurvePlot) or not self.query(CurveKey):
+        if self._plot() is None:
             return                      # not composed yet: the next redraw draws it
-        self.query_one(CurvePlot).draw(v, mono)
-        self.query_one(CurveKey).show(v, mono)
+        plot, key = self._parts
+        plot.draw(v, mono)
+        key.show(v, mono)

@@ -24,18 +24,13 @@ class FitPanel(Panel):
 
     DEFAULT_CSS = """
     FitPanel {
-        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
-        text-overflow: ellipsis;
         height: auto;
-        width: 1fr;
-        border: round $foreground 30%;
-        border-title-color: $text-muted;
         padding: 0 1;
     }
     """
 
     def on_mount(self) -> None:
-        self.border_title = "out-of-bag fit"
+        self.parent.border_title = "out-of-bag fit"
 
     def show(self, v: View) -> None:
         self.put((v.error, v.interval, v.r2, v.coverage, v.rows), lambda: fit_table(v), lines=5)

@@ -83,8 +83,6 @@ class ProcessPanel(Panel):
 
     DEFAULT_CSS = """
     ProcessPanel {
-        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
-        text-overflow: ellipsis;
         height: auto;
         border-top: solid $foreground 30%;
         border-title-color: $text-muted;

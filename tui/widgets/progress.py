@@ -1,12 +1,13 @@
 """Progress: members done of the target, pace, time, coverage and the headline OOB figure."""
 from __future__ import annotations
 
+from rich.segment import Segment
 from rich.text import Text
 
 from .. import fmt
 from ..view import View
-from .base import Panel
-from .texttable import bar, pairs
+from .base import Panel, pair_lines
+from .texttable import bar
 from .palette import BAR_DONE, BAR_LEFT, STATUS_STYLE, rgb
 
 
@@ -61,8 +62,6 @@ class ProgressPanel(Panel):
 
     DEFAULT_CSS = """
     ProgressPanel {
-        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
-        text-overflow: ellipsis;
         height: auto;
         padding: 0 1;
     }
@@ -73,8 +72,10 @@ class ProgressPanel(Panel):
         key = tuple((k, val.plain if isinstance(val, Text) else val) for k, val in rows) + (v.unreadable,)
 
         def make():
-            t = pairs(rows)
+            # twice a second: segments straight from the rows (no Text built and cut again)
+            get_style = self.app.console.get_style
+            lines = pair_lines(rows, get_style)
             if v.unreadable:
-                t.append(f"\n{v.unreadable} journal line(s) unreadable", style="dim")
-            return t
-        self.put(key, make, lines=len(rows) + bool(v.unreadable))
+                lines.append([Segment(f"{v.unreadable} journal line(s) unreadable", get_style("dim"))])
+            return lines
+        self.put_lines(key, make, lines=len(rows) + bool(v.unreadable))

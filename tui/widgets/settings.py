@@ -25,8 +25,6 @@ class SettingsPanel(Panel):
 
     DEFAULT_CSS = """
     SettingsPanel {
-        text-wrap: nowrap;      /* a line too long is cut with an ellipsis, never wrapped */
-        text-overflow: ellipsis;
         height: auto;
         border-top: solid $foreground 30%;
         border-title-color: $text-muted;
