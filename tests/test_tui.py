@@ -426,3 +426,14 @@ def test_long_panel_lines_are_cut_not_wrapped(tmp_path):
             assert "finished: reached" in lines[job] and lines[job].rstrip().endswith("…")
             assert lines[job + 1].lstrip().startswith("pace")
     run(go())
+
+
+def test_plot_and_tables_follow_at_most_the_share_of_a_core_they_are_given():
+    # The rule of tui/app.py (common practice for a guest process, no source): a drawing costing
+    # c seconds of CPU comes back every c / HEAVY_SHARE seconds, within [TABLES_EVERY, TABLES_MOST].
+    from tui import app as dash
+    a = Dashboard.__new__(Dashboard)
+    for cost, every in ((0.001, dash.TABLES_EVERY), (0.012, 0.012 / dash.HEAVY_SHARE), (1.0, dash.TABLES_MOST)):
+        start = time.thread_time() - cost
+        a._heavy_done(start)
+        assert a.tables_every == pytest.approx(every, rel=0.05, abs=0.05)

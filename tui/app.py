@@ -22,7 +22,8 @@ from .widgets.settings import SettingsPanel
 from .widgets.process import ProcessProbe
 
 # Redraws a second: 2 (the issue asks for 2 Hz or better). Each costs a few ms of the one core the
-# dashboard shares with the job; news waits at most 0.5 s.
+# dashboard shares with the job; news waits at most a second (the tailing thread reads at one
+# tick, the next draws it).
 REDRAW_EVERY = 0.5
 # While lines arrive, the plot and the tables (most of a redraw's cost) follow once a second, or
 # less often where drawing them takes more than HEAVY_SHARE of a core (measured at each drawing,
