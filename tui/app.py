@@ -84,6 +84,7 @@ class Dashboard(App):
         self.first_full_draw: float | None = None   # time.perf_counter() of the first draw after the opening read
         self.view: View | None = None
         self.trouble: str | None = None
+        self._panels: dict = {}
 
     def compose(self) -> ComposeResult:
         yield RunBar(id="runbar")
@@ -146,16 +147,14 @@ class Dashboard(App):
             pass
 
     _tables_at = -1e9
-    _panels: dict = {}
+    tables_every = TABLES_EVERY     # seconds between drawings of the plot and tables while lines arrive
 
     def panel(self, cls):
         """The main screen's widget of a class, looked up once (a query walks the screen's tree)."""
         w = self._panels.get(cls)
         if w is None:
-            w = self.query_one(cls)
-            self._panels = {**self._panels, cls: w}
+            w = self._panels[cls] = self.query_one(cls)
         return w
-    tables_every = TABLES_EVERY     # seconds between drawings of the plot and tables while lines arrive
 
     def _redraw(self, all_panels: bool = True) -> None:
         curve = self.panel(CurvePanel)

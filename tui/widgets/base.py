@@ -125,7 +125,7 @@ class Painted(KeepLines, Widget):
     """
 
     _version = 0                # bumped by changed(): the figures are new
-    _made = None                # (key, content lines as segments, the widget's colours laid under)
+    _made = None                # (key, the widget's base style, content lines as segments with it laid under)
 
     def paint(self, width: int, height: int) -> list[list[Segment]]:
         """The content lines as segments, each line exactly `width` cells (subclasses)."""
@@ -183,7 +183,23 @@ class Painted(KeepLines, Widget):
         return [s.crop(crop.x, crop.right) for s in whole[crop.y:crop.bottom]]
 
 
-class Panel(Painted):
+class Shown:
+    """What a panel showed last: `key` (its figures) and how many lines it took."""
+
+    _shown_key = None
+    _shown_lines = None
+
+    def _news(self, key, lines: int | None):
+        """None when `key` is what is shown already; else whether the new figures need a layout pass
+        (only when their line count changes, or is not given), and remember them as shown."""
+        if key == self._shown_key:
+            return None
+        layout = lines is None or lines != self._shown_lines
+        self._shown_key, self._shown_lines = key, lines
+        return layout
+
+
+class Panel(Shown, Painted):
     """A few lines of text; put() skips repaints (and layout passes) when the figures are unchanged."""
 
     DEFAULT_CSS = """
@@ -192,26 +208,17 @@ class Panel(Painted):
     }
     """
 
-    _shown_key = None
-    _shown_lines = None
     _lines: list = []           # segments of each line
 
     def put(self, key, make, lines: int | None = None) -> bool:
         """Show make() (a Text) unless `key` equals the last one; lay out again only when the line count changes."""
-        if key == self._shown_key:
-            return False
-        layout = lines is None or lines != self._shown_lines
-        self._shown_key, self._shown_lines = key, lines
-        self._lines = text_lines(make(), self.app.console.get_style)
-        self.changed(layout=layout)
-        return True
+        return self.put_lines(key, lambda: text_lines(make(), self.app.console.get_style), lines)
 
     def put_lines(self, key, make, lines: int | None = None) -> bool:
         """Like put(), make() giving the lines as lists of segments already (no Text to cut)."""
-        if key == self._shown_key:
+        layout = self._news(key, lines)
+        if layout is None:
             return False
-        layout = lines is None or lines != self._shown_lines
-        self._shown_key, self._shown_lines = key, lines
         self._lines = make()
         self.changed(layout=layout)
         return True
@@ -226,17 +233,13 @@ class Panel(Painted):
         return [fit(ln, width) for ln in self._lines]
 
 
-class TextPanel(KeepLines, Static):
+class TextPanel(Shown, KeepLines, Static):
     """A Static with the same put(): for text that wraps (Textual lays it out)."""
 
-    _shown_key = None
-    _shown_lines = None
-
     def put(self, key, make, lines: int | None = None) -> bool:
-        if key == self._shown_key:
+        layout = self._news(key, lines)
+        if layout is None:
             return False
-        layout = lines is None or lines != self._shown_lines
-        self._shown_key, self._shown_lines = key, lines
         self.update(make(), layout=layout)
         return True
 

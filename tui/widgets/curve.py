@@ -9,12 +9,10 @@ from rich.style import Style
 from rich.text import Text
 from textual.app import ComposeResult
 
-
 from ..view import View
 from .base import Column, Painted, Panel, TextPanel
 from .braille import Series, plot_lines
 from .palette import (BAND, DIMMED, MONO_BAND, MONO_OVERALL, OVERALL, class_colour, class_mark, rgb)
-
 
 # About e^-1 = 0.368 of the members leave a given row out of their bootstrap draw (Breiman 1996).
 OOB_SHARE = math.exp(-1)
