@@ -39,12 +39,17 @@ OK, NO_ROWS, TOO_HEAVY = 0, 1, 2
 def side_table(feat_cat, thr, mleft, mask, side):
     """side[c] = 1 if code c goes to the left child of a split, else 0: numeric, left when
     c <= thr; categorical, left when c is in the level set mask; missing (255), left if mleft."""
-    for c in range(255):
-        if feat_cat:
+    # one loop per kind, each without a branch, so that the compiler vectorises it: at every split
+    # of a deep tree's many small nodes, a loop testing the kind per code cost about as much as
+    # partitioning the node
+    if feat_cat:
+        for c in range(255):
             # level codes are at most 254, so bit 255 of a mask is never set
             side[c] = np.uint8((mask[c >> 6] >> np.uint64(c & 63)) & np.uint64(1))
-        else:
-            side[c] = np.uint8(c <= thr)
+    else:
+        t = np.int64(thr)
+        for c in range(255):
+            side[c] = np.uint8(np.int64(c) <= t)
     side[MISSING] = np.uint8(mleft)
 
 
@@ -52,57 +57,66 @@ def side_table(feat_cat, thr, mleft, mask, side):
 # kept spilling its pointers to the stack, at three times the instructions per row.
 
 @kernel
-def partition_rows(codes_f, side, lo, hi, src_idx, src_lw, dst_idx, dst_lw):
-    """Partition positions lo..hi-1 into the other buffer: left rows forward from lo, right rows
-    backward from hi - 1; returns the first right position. codes_f: the split feature's codes.
+def partition_rows(codes, f, side, lo, hi, idx, lw, src):
+    """Partition positions lo..hi-1 of row src of idx and lw into the other row: left rows forward
+    from lo, right rows backward from hi - 1; returns the first right position. f: the split feature.
+    (Whole arrays and row numbers, not row views: each view and each array argument costs two
+    atomic reference count updates, which small nodes notice.)
 
     Branch-free (the side a row takes is unpredictable): the slot is chosen by a select and only
     the counter of the row's side moves.
     """
+    a = np.uint64(src)
+    b = np.uint64(1 - src)
+    ff = np.uint64(f)
     nl = lo
     nr = hi - 1
     for i in range(lo, hi):
         u = np.uint64(i)
-        r = src_idx[u]
-        g = np.int64(side[np.uint64(codes_f[np.uint64(r)])])
+        r = idx[a, u]
+        g = np.int64(side[np.uint64(codes[ff, np.uint64(r)])])
         dst = np.uint64(nl if g else nr)
-        dst_idx[dst] = r
-        dst_lw[dst] = src_lw[u]
+        idx[b, dst] = r
+        lw[b, dst] = lw[a, u]
         nl += g
         nr -= 1 - g
     return nl
 
 
 @kernel
-def partition_rows_y(codes_f, side, lo, hi, src_idx, src_lw, src_yv, dst_idx, dst_lw, dst_yv):
+def partition_rows_y(codes, f, side, lo, hi, idx, lw, yv, src):
     """partition_rows that also moves each row's target (regression)."""
+    a = np.uint64(src)
+    b = np.uint64(1 - src)
+    ff = np.uint64(f)
     nl = lo
     nr = hi - 1
     for i in range(lo, hi):
         u = np.uint64(i)
-        r = src_idx[u]
-        g = np.int64(side[np.uint64(codes_f[np.uint64(r)])])
+        r = idx[a, u]
+        g = np.int64(side[np.uint64(codes[ff, np.uint64(r)])])
         dst = np.uint64(nl if g else nr)
-        dst_idx[dst] = r
-        dst_lw[dst] = src_lw[u]
-        dst_yv[dst] = src_yv[u]
+        idx[b, dst] = r
+        lw[b, dst] = lw[a, u]
+        yv[b, dst] = yv[a, u]
         nl += g
         nr -= 1 - g
     return nl
 
 
 @kernel
-def partition_oob(codes_f, side, lo, hi, opos, orow):
+def partition_oob(codes, f, side, lo, hi, opos, orow):
     """Partition the out-of-bag positions opos[lo:hi] (indices into the ascending OOB rows) and
     their rows orow[lo:hi] in place, left first; returns the first right position. Lomuto's scheme,
     branch-free: every row swaps with the first right one, so a right row only trades places
     inside the right part."""
+    ff = np.uint64(f)
     nl = lo
     for i in range(lo, hi):
         u = np.uint64(i)
         e = opos[u]
         r = orow[u]
-        g = np.int64(side[np.uint64(codes_f[np.uint64(r)])])
+        g = np.int64(side[np.uint64(codes[ff, np.uint64(r)])])
         w = np.uint64(nl)
         opos[u] = opos[w]
         orow[u] = orow[w]
@@ -429,13 +443,11 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
         ni[rec, THR] = thr
         ni[rec, FLAGS] = (1 if fc else 0) | (best_ml << 1)
         side_table(fc, thr, best_ml, best_mask, side)
-        cf = codes[best_f]
         if regression:
-            mid = partition_rows_y(cf, side, lo, hi, idx[src], lw[src], yv[src], idx[1 - src], lw[1 - src],
-                                   yv[1 - src])
+            mid = partition_rows_y(codes, best_f, side, lo, hi, idx, lw, yv, src)
         else:
-            mid = partition_rows(cf, side, lo, hi, idx[src], lw[src], idx[1 - src], lw[1 - src])
-        omid = partition_oob(cf, side, olo, ohi, opos, orow)
+            mid = partition_rows(codes, best_f, side, lo, hi, idx, lw, src)
+        omid = partition_oob(codes, best_f, side, olo, ohi, opos, orow)
         lnode = n_nodes
         rnode = n_nodes + 1
         n_nodes += 2

@@ -4,8 +4,11 @@ Prints members per second of the training loop at threads 1 and 2 (the table is 
 timed apart: binning is not member work), ns per (row, candidate feature) visit, the ratio of
 member time to visits x the histogram-only calibration kernel measured in the same run, the share
 of time spent folding tallies, peak RSS, and cold/warm start times of a fresh process. Figures
-are the best of a few rounds: other load on a shared machine only ever adds time.
-    python bench/speed.py [members]
+are the best of a few rounds: other load on a shared machine only ever adds time. The 2-thread
+speed-up is the median over rounds of each round's ratio (a round runs threads=1 then threads=2):
+a ratio of bests pairs runs minutes apart, and a burst of host speed in one of them moves it
+by a third.
+    python bench/speed.py [members] [rounds]
 """
 import os
 import subprocess
@@ -50,7 +53,7 @@ def calibration(codes, y):
     return ns_per_visit
 
 
-def run(name, X, y, cfg, members, rounds=3):
+def run(name, X, y, cfg, members, rounds=7):
     """Members per second of the training loop (prepare timed apart) and the calibration, each the
     best of a few rounds run in turn: load from elsewhere on a shared machine only ever adds time,
     and taking turns exposes all three to the same spells of it."""
@@ -60,18 +63,20 @@ def run(name, X, y, cfg, members, rounds=3):
     t_prep = time.perf_counter() - t0
     yy = (np.asarray(y) > np.median(y)).astype(np.int32) if prep.task == "regression" else prep.y_class
     cal_fn = calibration(prep.codes, yy)
-    best, cal = {}, np.inf
+    best, cal, pairs = {}, np.inf, []
     for _ in range(rounds):
+        walls = {}
         for threads in (1, 2):
             c = cfg.replace(members=members, threads=threads)
             with PeakRSS() as rss:
                 t0 = time.perf_counter()
                 ens = Training(X, y, c, prepared=prep).run()
-                wall = time.perf_counter() - t0
+                walls[threads] = wall = time.perf_counter() - t0
             if threads not in best or wall < best[threads][1]:
                 best[threads] = (ens, wall, rss.peak)
             if threads == 1:
                 cal = min(cal, cal_fn(ens.stats["visits"]))  # as many visits as the whole loop
+        pairs.append(walls[1] / walls[2])
     ens, wall1, peak = best[1]
     wall2 = best[2][1]
     s = ens.stats
@@ -82,8 +87,9 @@ def run(name, X, y, cfg, members, rounds=3):
           f"features_per_split {cfg.resolved_features(X.shape[1], ens.task)}")
     print(f"  prepare (schema, binning, codes) {t_prep:.2f} s, once per run")
     print(f"  members/s (training loop, best of {rounds}): threads=1 {members / wall1:.2f}, threads=2 "
-          f"{members / wall2:.2f} (speed-up {wall1 / wall2:.2f}x); with prepare: "
-          f"{members / (wall1 + t_prep):.2f} and {members / (wall2 + t_prep):.2f}")
+          f"{members / wall2:.2f}; with prepare: {members / (wall1 + t_prep):.2f} and {members / (wall2 + t_prep):.2f}")
+    print(f"  2 threads against 1, median of {rounds} rounds: {np.median(pairs):.2f}x (rounds "
+          f"{min(pairs):.2f}-{max(pairs):.2f}x; ratio of the bests {wall1 / wall2:.2f}x)")
     print(f"  member time {member_s * 1e3:.1f} ms, visits/member {visits:,.0f}, {ns:.2f} ns/visit")
     print(f"  calibration (histogram only) {cal:.2f} ns/visit; ratio member/(visits x cal) {ns / cal:.2f}")
     print(f"  tally fold share {s['fold_seconds'] / wall1 * 100:.2f}% of wall time (threads=1)")
@@ -111,12 +117,12 @@ def cold_start():
     print(f"start to first member: cold cache {times[0]:.1f} s, warm cache {times[1]:.1f} s")
 
 
-def main(members=16):
+def main(members=16, rounds=7):
     print(time.strftime("%Y-%m-%d"), os.uname().machine, f"{os.cpu_count()} cores")
     X, y = twonorm(100_000, seed=1)
-    run("R1 twonorm", X, y, baggr.Config(features_per_split=4, seed=1), members)
+    run("R1 twonorm", X, y, baggr.Config(features_per_split=4, seed=1), members, rounds)
     X, y = friedman1(100_000, seed=1)
-    run("R3 Friedman #1", X, y, baggr.Config(seed=1), members)
+    run("R3 Friedman #1", X, y, baggr.Config(seed=1), members, rounds)
     cold_start()
 
 
