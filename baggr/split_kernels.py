@@ -395,3 +395,88 @@ def scan_values(hist_w, hist_s, h, J, pc, q, min_leaf, best, work):
         if x < bscore:
             bscore, bpos, bml = x, J - 1, 0
     return bscore, bpos, bml
+
+
+@kernel
+def scan_two_rows(c0, c1, cat, regression, crit, fl, best, q, w0, w1, k0, k1, s0, s1, n0, n1):
+    """The split search of one candidate at a node of two distinct in-bag rows (a third or more of
+    the internal nodes of a full regression tree), from the two rows' codes c0, c1 alone: the same
+    result, to the last bit, as building the histogram and calling scan_two (two classes) or
+    scan_values (regression), which cost several times as much at this size. Scalars only, so the
+    call updates no reference counts.
+
+    w0, w1: draw counts; k0, k1: classes (two classes: they differ, or the node would be pure);
+    s0, s1: w * (y - node mean) (regression); n0, n1: the node's weight per class; q: its SSE.
+    Returns (counts, score, code, missing_left, left0, left1): counts 0 when the feature is constant
+    in the node; code -1 when nothing beats best, else the largest code going left (numeric) or the
+    one level going left (categorical); left0, left1: the left child's class weights.
+    """
+    if c0 == c1:
+        return 0, best, -1, 0, 0.0, 0.0
+    if c0 == MISSING or c1 == MISSING:
+        # one present code: only "it left, missing alone right" (the scans' last candidate)
+        if c0 == MISSING:
+            code, wp, wm, km, sp, sm = c1, w1, w0, k0, s1, s0
+        else:
+            code, wp, wm, km, sp, sm = c0, w0, w1, k1, s0, s1
+        if regression:
+            tw = 0.0 + np.float64(wp)
+            ts = 0.0 + sp
+            mw = np.float64(wm)
+            if mw >= fl and tw >= fl:
+                x = q - (ts * ts / tw + sm * sm / mw)
+                if x < best:
+                    return 1, x, code, 0, 0.0, 0.0
+            return 1, best, -1, 0, 0.0, 0.0
+        ma = np.float64(wm) if km == 0 else 0.0
+        mb = np.float64(wm) if km == 1 else 0.0
+        ta = n0 - ma
+        tb = n1 - mb
+        if ma + mb >= fl and ta + tb >= fl:
+            x = _pair2(ta, tb, ma, mb, crit)
+            if x < best:
+                return 1, x, code, 0, ta, tb
+        return 1, best, -1, 0, 0.0, 0.0
+    # two present codes: which one the scan meets first (code order; levels by their key, ties by code)
+    first0 = c0 < c1
+    if cat:
+        if regression:
+            key0 = s0 / np.float64(w0)
+            key1 = s1 / np.float64(w1)
+        else:
+            key0 = np.float64(w0 if k0 == 1 else 0) / np.float64(w0)  # share of class 1
+            key1 = np.float64(w1 if k1 == 1 else 0) / np.float64(w1)
+        first0 = key0 < key1 or (key0 == key1 and c0 < c1)
+    if first0:
+        code, wf, kf, sf, ws_, ss = c0, w0, k0, s0, w1, s1
+    else:
+        code, wf, kf, sf, ws_, ss = c1, w1, k1, s1, w0, s0
+    if regression:
+        wl = 0.0 + np.float64(wf)
+        tw = wl + np.float64(ws_)
+        sl = 0.0 + sf
+        ts = sl + ss
+        wr = tw - wl
+        sr = ts - sl
+        if wl >= fl and wr >= fl:
+            x = q - (sl * sl * wr + sr * sr * wl) / (wl * wr)
+            if x < best:
+                return 1, x, code, (1 if wl >= tw - wl else 0), 0.0, 0.0
+        return 1, best, -1, 0, 0.0, 0.0
+    a = 0.0 + (np.float64(wf) if kf == 0 else 0.0)
+    b = 0.0 + (np.float64(wf) if kf == 1 else 0.0)
+    ta = n0 - 0.0
+    tb = n1 - 0.0
+    tw = ta + tb
+    c = ta - a
+    d = tb - b
+    wl = a + b
+    wr = tw - wl
+    if wl >= fl and wr >= fl:
+        if crit == GINI:
+            x = tw - ((a * a + b * b) * wr + (c * c + d * d) * wl) / (wl * wr)
+        else:
+            x = _ent_pair(a, b, c, d)
+        if x < best:
+            return 1, x, code, (1 if a + b >= tw - (a + b) else 0), a, b
+    return 1, best, -1, 0, 0.0, 0.0

@@ -20,8 +20,8 @@ from .hist_kernels import (
 from .jit import kernel
 from .rng import below
 from .split_kernels import (
-    MISSING, level_keys_classes, level_keys_values, scan_classes, scan_two, scan_values, sort_levels,
-    wimp_counts,
+    MISSING, level_keys_classes, level_keys_values, scan_classes, scan_two, scan_two_rows, scan_values,
+    sort_levels, wimp_counts,
 )
 
 HIST_BYTES = 32768  # histogram scratch per batch of candidate features (about an L1 cache)
@@ -257,8 +257,8 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
     stk[0, S_OHI] = k_oob
     for k in range(C):
         stkc[0, k] = 0.0
+    lmask = (1 << shift) - 1
     if not regression:
-        lmask = (1 << shift) - 1
         for i in range(d):
             stkc[0, lw[0, i] & lmask] += lw[0, i] >> shift
     sp = 1
@@ -341,6 +341,21 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
             evaluated = 0
             j = 0
             sparse = m < exact_below
+            # two distinct rows: each candidate is judged from the two rows' codes (scan_two_rows)
+            two = sparse and m == 2 and (regression or C == 2)
+            if two:
+                ra = np.uint64(idx[src, lo])
+                rb = np.uint64(idx[src, lo + 1])
+                va = lw[src, lo]
+                vb = lw[src, lo + 1]
+                wa = va if regression else va >> shift
+                wb = vb if regression else vb >> shift
+                ka = 0 if regression else va & lmask
+                kb = 0 if regression else vb & lmask
+                sa = ws[lo] if regression else 0.0
+                sb = ws[lo + 1] if regression else 0.0
+                na = 0.0 if regression else nodecnt[0]
+                nb2 = 0.0 if regression else nodecnt[1]
             while evaluated < features_per_split and j < p:
                 need = min(features_per_split - evaluated, nbatch)
                 nb_batch = 0
@@ -353,7 +368,9 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
                     if n_bins[f] > 1:  # a feature with one bin can never split: not scanned
                         batch[nb_batch] = f
                         nb_batch += 1
-                if regression:
+                if two:
+                    pass
+                elif regression:
                     build_values(codes, idx, lw, src, ws, lo, hi, batch, nb_batch, sparse, hist_w, hist_s, bits)
                 else:
                     build_classes(codes, idx, lw, src, shift, lo, hi, C, batch, nb_batch, sparse, hist, bits)
@@ -361,6 +378,26 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
                 for h in range(nb_batch):
                     f = batch[h]
                     nb = n_bins[f]
+                    if two:
+                        fc = is_cat[f] != 0
+                        cnt, sc, code, ml, l0, l1 = scan_two_rows(
+                            codes[np.uint64(f), ra], codes[np.uint64(f), rb], fc, regression, crit,
+                            np.float64(min_leaf), best, q, wa, wb, ka, kb, sa, sb, na, nb2)
+                        evaluated += cnt
+                        if code >= 0:
+                            best = sc
+                            best_f = f
+                            best_ml = ml
+                            best_left[0] = l0
+                            if C == 2:
+                                best_left[1] = l1
+                            if fc:
+                                for u in range(4):
+                                    best_mask[u] = 0
+                                best_mask[code >> 6] |= np.uint64(1) << np.uint64(code & 63)
+                            else:
+                                best_thr = code
+                        continue
                     if regression:
                         J = list_values(hist_w, h, nb, sparse, bits, pc)
                         has_miss = hist_w[h, MISSING] > 0

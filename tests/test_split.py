@@ -121,7 +121,7 @@ def test_histogram_and_exact_paths_grow_identical_trees(task, n_classes, criteri
     codes[rng.random((p, n)) < 0.1] = 255
     y_value = codes[0] * 0.1 + codes[1] % 3 + rng.normal(0, 0.5, n)
     y_class = np.clip((y_value + rng.normal(0, 1, n)) // 1.5, 0, n_classes - 1).astype(np.int32)
-    exercised = 0
+    exercised = two_rows = 0
     for m in range(4):
         weights = rng.poisson(1.0, n).astype(np.int32)
         kw = dict(task=task, n_classes=n_classes, criterion=criterion, features_per_split=2,
@@ -134,4 +134,7 @@ def test_histogram_and_exact_paths_grow_identical_trees(task, n_classes, criteri
         inner = trees[0].left >= 0
         exercised += int(np.any(inner & (trees[0].n_rows < 48)) and np.any(inner & (trees[0].n_rows >= 64)))
         exercised += int(trees[0].cat_masks.shape[0] > 0)
+        # nodes of two distinct rows: judged from their two rows' codes alone unless exact_below <= 2
+        two_rows += int(np.sum(inner & (trees[0].n_rows == 2)))
     assert exercised == 8  # both paths and categorical splits really occurred
+    assert two_rows >= 10
