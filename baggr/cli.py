@@ -221,13 +221,33 @@ def _discard(rd) -> None:
     shutil.rmtree(rd.path, ignore_errors=True)
 
 
-def _launch(rd, mode: str, *, fresh: bool) -> int:
-    """Run the job of rd in the chosen mode; returns the exit code."""
+class _Announced:
+    """A progress display that first prints one line (the run directory) when the job has started:
+    a start that fails removes a new run directory, whose path should then never have been shown."""
+
+    def __init__(self, inner, line: str):
+        self.inner, self.line = inner, line
+
+    def begin(self, start: dict) -> None:
+        if self.line is not None:
+            _say(self.line)
+            self.line = None
+        self.inner.begin(start)
+
+    def __getattr__(self, name):
+        return getattr(self.inner, name)
+
+
+def _launch(rd, mode: str, *, fresh: bool, announce: str | None = None) -> int:
+    """Run the job of rd in the chosen mode; returns the exit code. announce: a line to print
+    first, once the job has started."""
     if mode == "detached":
-        return _detached(rd, fresh=fresh)
+        return _detached(rd, fresh=fresh, announce=announce)
     from . import progress as prog
     from .runs import Job
     bar = prog.make(mode)
+    if announce is not None:
+        bar = _Announced(bar, announce)
     job = Job(rd, bar, verify=False)
     try:
         out = job.run()
@@ -241,7 +261,7 @@ def _launch(rd, mode: str, *, fresh: bool) -> int:
     return out.code
 
 
-def _detached(rd, *, fresh: bool) -> int:
+def _detached(rd, *, fresh: bool, announce: str | None = None) -> int:
     from . import runs
     pid = rd.lock_holder()
     if pid:
@@ -262,6 +282,8 @@ def _detached(rd, *, fresh: bool) -> int:
         if fresh and code == 2:
             _discard(rd)
         return code if code else 2
+    if announce is not None:
+        _say(announce)
     _attach(rd)
     return _after_watching(rd)
 
@@ -314,13 +336,14 @@ def cmd_train(args) -> int:
     config, settings = _config(args), _settings(args)
     info = runs.fingerprint(args.data)
     rd = runs.create(args.run_dir or runs.default_run_dir(args.data), force=args.force)
-    _say(str(rd.path))
     try:
         runs.init_config(rd, data=info, target=args.target, config=config, settings=settings)
     except BaggrError:
         _discard(rd)
         raise
-    return _launch(rd, _mode(args), fresh=True)
+    # the run directory is the first line, printed once the job has started (a start that fails
+    # removes the directory)
+    return _launch(rd, _mode(args), fresh=True, announce=str(rd.path))
 
 
 def cmd_resume(args) -> int:

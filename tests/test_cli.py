@@ -353,6 +353,7 @@ def test_bad_input_gives_one_clear_line_and_exit_code_2(bad, name):
     if args[0] == "train" and name not in ("run dir exists", "force on a non-run folder", "run dir not writable"):
         rd = Path(args[list(args).index("--run-dir") + 1])
         assert not rd.exists(), "a run that could not start leaves no run directory behind"
+        assert str(rd) not in r.stdout, "nor does it print the path of the directory it removed"
 
 
 def test_bad_input_cases_are_all_tested(bad):
