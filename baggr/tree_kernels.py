@@ -20,7 +20,7 @@ from .hist_kernels import (
 from .jit import kernel
 from .rng import below
 from .split_kernels import (
-    MISSING, level_keys_classes, level_keys_values, scan_classes, scan_two, scan_two_rows, scan_values,
+    MISSING, inline, level_keys_classes, level_keys_values, scan_classes, scan_two, scan_two_rows, scan_values,
     sort_levels, wimp_counts,
 )
 
@@ -51,6 +51,15 @@ def side_table(feat_cat, thr, mleft, mask, side):
         for c in range(255):
             side[c] = np.uint8(np.int64(c) <= t)
     side[MISSING] = np.uint8(mleft)
+
+
+@inline
+def goes_left(c, side, table, thr, ml):
+    """1 if code c goes to the left child: from the side table, or (numeric splits of regression
+    trees, table 0) by comparing with the threshold."""
+    if table:
+        return np.int64(side[np.uint64(c)])
+    return np.int64(c <= thr) | (np.int64(c == MISSING) & ml)
 
 
 # The partitions are functions of their own, not inlined into the tree kernel: there the row loop
@@ -84,8 +93,8 @@ def partition_rows(codes, f, side, lo, hi, idx, lw, src):
 
 
 @kernel
-def partition_rows_y(codes, f, side, lo, hi, idx, lw, yv, src):
-    """partition_rows that also moves each row's target (regression)."""
+def partition_rows_y(codes, f, side, table, thr, ml, lo, hi, idx, lw, yv, src):
+    """partition_rows that also moves each row's target (regression); table, thr, ml: see goes_left."""
     a = np.uint64(src)
     b = np.uint64(1 - src)
     ff = np.uint64(f)
@@ -94,7 +103,7 @@ def partition_rows_y(codes, f, side, lo, hi, idx, lw, yv, src):
     for i in range(lo, hi):
         u = np.uint64(i)
         r = idx[a, u]
-        g = np.int64(side[np.uint64(codes[ff, np.uint64(r)])])
+        g = goes_left(codes[ff, np.uint64(r)], side, table, thr, ml)
         dst = np.uint64(nl if g else nr)
         idx[b, dst] = r
         lw[b, dst] = lw[a, u]
@@ -105,7 +114,7 @@ def partition_rows_y(codes, f, side, lo, hi, idx, lw, yv, src):
 
 
 @kernel
-def partition_oob(codes, f, side, lo, hi, opos, orow):
+def partition_oob(codes, f, side, table, thr, ml, lo, hi, opos, orow):
     """Partition the out-of-bag positions opos[lo:hi] (indices into the ascending OOB rows) and
     their rows orow[lo:hi] in place, left first; returns the first right position. Lomuto's scheme,
     branch-free: every row swaps with the first right one, so a right row only trades places
@@ -116,7 +125,7 @@ def partition_oob(codes, f, side, lo, hi, opos, orow):
         u = np.uint64(i)
         e = opos[u]
         r = orow[u]
-        g = np.int64(side[np.uint64(codes[ff, np.uint64(r)])])
+        g = goes_left(codes[ff, np.uint64(r)], side, table, thr, ml)
         w = np.uint64(nl)
         opos[u] = opos[w]
         orow[u] = orow[w]
@@ -479,12 +488,16 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
         ni[rec, FEAT] = best_f
         ni[rec, THR] = thr
         ni[rec, FLAGS] = (1 if fc else 0) | (best_ml << 1)
-        side_table(fc, thr, best_ml, best_mask, side)
+        # regression trees split many small nodes, where filling the side table costs more than a
+        # comparison per row; classes keep the table (a lookup is the faster partition on large nodes)
+        table = fc or not regression
+        if table:
+            side_table(fc, thr, best_ml, best_mask, side)
         if regression:
-            mid = partition_rows_y(codes, best_f, side, lo, hi, idx, lw, yv, src)
+            mid = partition_rows_y(codes, best_f, side, table, thr, best_ml, lo, hi, idx, lw, yv, src)
         else:
             mid = partition_rows(codes, best_f, side, lo, hi, idx, lw, src)
-        omid = partition_oob(codes, best_f, side, olo, ohi, opos, orow)
+        omid = partition_oob(codes, best_f, side, table, thr, best_ml, olo, ohi, opos, orow)
         lnode = n_nodes
         rnode = n_nodes + 1
         n_nodes += 2
