@@ -7,7 +7,9 @@ of time spent folding tallies, peak RSS, and cold/warm start times of a fresh pr
 are the best of a few rounds: other load on a shared machine only ever adds time. The 2-thread
 speed-up is the median over rounds of each round's ratio (a round runs threads=1 then threads=2):
 a ratio of bests pairs runs minutes apart, and a burst of host speed in one of them moves it
-by a third.
+by a third. It is given for whole runs and for the rate after the first members (a run's set-up,
+its threads' first touch of their working arrays, do not shrink with threads; a long run pays
+them once).
     python bench/speed.py [members] [rounds]
 """
 import os
@@ -63,20 +65,24 @@ def run(name, X, y, cfg, members, rounds=7):
     t_prep = time.perf_counter() - t0
     yy = (np.asarray(y) > np.median(y)).astype(np.int32) if prep.task == "regression" else prep.y_class
     cal_fn = calibration(prep.codes, yy)
-    best, cal, pairs = {}, np.inf, []
+    best, cal, pairs, steady = {}, np.inf, [], []
+    skip = min(4, members - 2)  # members left out of the steady rate: per-run set-up, threads starting
     for _ in range(rounds):
-        walls = {}
+        walls, rates = {}, {}
         for threads in (1, 2):
             c = cfg.replace(members=members, threads=threads)
+            done = []
             with PeakRSS() as rss:
                 t0 = time.perf_counter()
-                ens = Training(X, y, c, prepared=prep).run()
+                ens = Training(X, y, c, prepared=prep).run(on_member=lambda e: done.append(time.perf_counter()))
                 walls[threads] = wall = time.perf_counter() - t0
+            rates[threads] = (len(done) - skip) / (done[-1] - done[skip - 1])
             if threads not in best or wall < best[threads][1]:
                 best[threads] = (ens, wall, rss.peak)
             if threads == 1:
                 cal = min(cal, cal_fn(ens.stats["visits"]))  # as many visits as the whole loop
         pairs.append(walls[1] / walls[2])
+        steady.append(rates[2] / rates[1])
     ens, wall1, peak = best[1]
     wall2 = best[2][1]
     s = ens.stats
@@ -88,8 +94,9 @@ def run(name, X, y, cfg, members, rounds=7):
     print(f"  prepare (schema, binning, codes) {t_prep:.2f} s, once per run")
     print(f"  members/s (training loop, best of {rounds}): threads=1 {members / wall1:.2f}, threads=2 "
           f"{members / wall2:.2f}; with prepare: {members / (wall1 + t_prep):.2f} and {members / (wall2 + t_prep):.2f}")
-    print(f"  2 threads against 1, median of {rounds} rounds: {np.median(pairs):.2f}x (rounds "
-          f"{min(pairs):.2f}-{max(pairs):.2f}x; ratio of the bests {wall1 / wall2:.2f}x)")
+    print(f"  2 threads against 1, median of {rounds} rounds: whole runs {np.median(pairs):.2f}x (rounds "
+          f"{min(pairs):.2f}-{max(pairs):.2f}x; ratio of the bests {wall1 / wall2:.2f}x); after the first {skip} "
+          f"members {np.median(steady):.2f}x (rounds {min(steady):.2f}-{max(steady):.2f}x)")
     print(f"  member time {member_s * 1e3:.1f} ms, visits/member {visits:,.0f}, {ns:.2f} ns/visit")
     print(f"  calibration (histogram only) {cal:.2f} ns/visit; ratio member/(visits x cal) {ns / cal:.2f}")
     print(f"  tally fold share {s['fold_seconds'] / wall1 * 100:.2f}% of wall time (threads=1)")
