@@ -463,13 +463,11 @@ def scan_two_rows(c0, c1, cat, regression, crit, fl, best, q, w0, w1, k0, k1, s0
             if x < best:
                 return 1, x, code, (1 if wl >= tw - wl else 0), 0.0, 0.0
         return 1, best, -1, 0, 0.0, 0.0
-    a = 0.0 + (np.float64(wf) if kf == 0 else 0.0)
-    b = 0.0 + (np.float64(wf) if kf == 1 else 0.0)
-    ta = n0 - 0.0
-    tb = n1 - 0.0
-    tw = ta + tb
-    c = ta - a
-    d = tb - b
+    a = np.float64(wf) if kf == 0 else 0.0
+    b = np.float64(wf) if kf == 1 else 0.0
+    tw = n0 + n1
+    c = n0 - a
+    d = n1 - b
     wl = a + b
     wr = tw - wl
     if wl >= fl and wr >= fl:

@@ -39,17 +39,12 @@ OK, NO_ROWS, TOO_HEAVY = 0, 1, 2
 def side_table(feat_cat, thr, mleft, mask, side):
     """side[c] = 1 if code c goes to the left child of a split, else 0: numeric, left when
     c <= thr; categorical, left when c is in the level set mask; missing (255), left if mleft."""
-    # one loop per kind, each without a branch, so that the compiler vectorises it: at every split
-    # of a deep tree's many small nodes, a loop testing the kind per code cost about as much as
-    # partitioning the node
-    if feat_cat:
-        for c in range(255):
+    for c in range(255):
+        if feat_cat:
             # level codes are at most 254, so bit 255 of a mask is never set
             side[c] = np.uint8((mask[c >> 6] >> np.uint64(c & 63)) & np.uint64(1))
-    else:
-        t = np.int64(thr)
-        for c in range(255):
-            side[c] = np.uint8(np.int64(c) <= t)
+        else:
+            side[c] = np.uint8(c <= thr)
     side[MISSING] = np.uint8(mleft)
 
 
@@ -357,10 +352,11 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
                 rb = np.uint64(idx[src, lo + 1])
                 va = lw[src, lo]
                 vb = lw[src, lo + 1]
-                wa = va if regression else va >> shift
-                wb = vb if regression else vb >> shift
-                ka = 0 if regression else va & lmask
-                kb = 0 if regression else vb & lmask
+                # draw count and class from the packed lw (regression: shift 0, so count and class 0)
+                wa = va >> shift
+                wb = vb >> shift
+                ka = va & lmask
+                kb = vb & lmask
                 sa = ws[lo] if regression else 0.0
                 sb = ws[lo + 1] if regression else 0.0
                 na = 0.0 if regression else nodecnt[0]
@@ -377,82 +373,77 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, regression, n_
                     if n_bins[f] > 1:  # a feature with one bin can never split: not scanned
                         batch[nb_batch] = f
                         nb_batch += 1
-                if two:
-                    pass
-                elif regression:
-                    build_values(codes, idx, lw, src, ws, lo, hi, batch, nb_batch, sparse, hist_w, hist_s, bits)
-                else:
-                    build_classes(codes, idx, lw, src, shift, lo, hi, C, batch, nb_batch, sparse, hist, bits)
+                if not two:  # (two rows: no histogram)
+                    if regression:
+                        build_values(codes, idx, lw, src, ws, lo, hi, batch, nb_batch, sparse, hist_w, hist_s, bits)
+                    else:
+                        build_classes(codes, idx, lw, src, shift, lo, hi, C, batch, nb_batch, sparse, hist, bits)
                 scanned += nb_batch
                 for h in range(nb_batch):
                     f = batch[h]
                     nb = n_bins[f]
+                    fc = is_cat[f] != 0
+                    sc = best
+                    pos = -1  # where the candidate's split ends in pc (-1: it beats nothing)
+                    ml = 0
                     if two:
-                        fc = is_cat[f] != 0
                         cnt, sc, code, ml, l0, l1 = scan_two_rows(
                             codes[np.uint64(f), ra], codes[np.uint64(f), rb], fc, regression, crit,
                             np.float64(min_leaf), best, q, wa, wb, ka, kb, sa, sb, na, nb2)
                         evaluated += cnt
-                        if code >= 0:
-                            best = sc
-                            best_f = f
-                            best_ml = ml
-                            best_left[0] = l0
+                        if code >= 0:  # one code goes left
+                            pos = 0
+                            pc[0] = code
+                            cand_left[0] = l0
                             if C == 2:
-                                best_left[1] = l1
-                            if fc:
-                                for u in range(4):
-                                    best_mask[u] = 0
-                                best_mask[code >> 6] |= np.uint64(1) << np.uint64(code & 63)
-                            else:
-                                best_thr = code
-                        continue
-                    if regression:
-                        J = list_values(hist_w, h, nb, sparse, bits, pc)
-                        has_miss = hist_w[h, MISSING] > 0
+                                cand_left[1] = l1
                     else:
-                        J = list_classes(hist, h, nb, C, sparse, bits, pc)
-                        has_miss = False
-                        for k in range(C):
-                            if hist[h, MISSING * C + k] > 0:
-                                has_miss = True
-                    if J + (1 if has_miss else 0) > 1:  # a feature constant in the node does not count
-                        evaluated += 1
-                        fc = is_cat[f] != 0
-                        if fc:  # scan the levels in order of their target share or mean
-                            if regression:
-                                level_keys_values(hist_w, hist_s, h, J, pc, lkeys)
-                            else:
-                                level_keys_classes(hist, h, J, pc, C, key_class, lkeys)
-                            sort_levels(J, lkeys, order, pc)
                         if regression:
-                            sc, pos, ml = scan_values(hist_w, hist_s, h, J, pc, q, min_leaf, best, work)
-                        elif C == 2:
-                            ma = np.float64(hist[h, 2 * MISSING])
-                            mb = np.float64(hist[h, 2 * MISSING + 1])
-                            sc, pos, ml = scan_two(hist, h, J, pc, nodecnt[0] - ma, nodecnt[1] - mb, ma, mb, crit,
-                                                   np.float64(min_leaf), best, work, cand_left)
+                            J = list_values(hist_w, h, nb, sparse, bits, pc)
+                            has_miss = hist_w[h, MISSING] > 0
                         else:
-                            sc, pos, ml = scan_classes(hist, h, J, pc, nodecnt, C, crit, min_leaf, best, lc, tot,
-                                                       miss, cand_left)
-                        if pos >= 0:
-                            best = sc
-                            best_f = f
-                            best_ml = ml
+                            J = list_classes(hist, h, nb, C, sparse, bits, pc)
+                            has_miss = False
                             for k in range(C):
-                                best_left[k] = cand_left[k]
-                            if fc:
-                                for u in range(4):
-                                    best_mask[u] = 0
-                                for u in range(pos + 1):
-                                    code = pc[u]
-                                    best_mask[code >> 6] |= np.uint64(1) << np.uint64(code & 63)
+                                if hist[h, MISSING * C + k] > 0:
+                                    has_miss = True
+                        if J + (1 if has_miss else 0) > 1:  # a feature constant in the node does not count
+                            evaluated += 1
+                            if fc:  # scan the levels in order of their target share or mean
+                                if regression:
+                                    level_keys_values(hist_w, hist_s, h, J, pc, lkeys)
+                                else:
+                                    level_keys_classes(hist, h, J, pc, C, key_class, lkeys)
+                                sort_levels(J, lkeys, order, pc)
+                            if regression:
+                                sc, pos, ml = scan_values(hist_w, hist_s, h, J, pc, q, min_leaf, best, work)
+                            elif C == 2:
+                                ma = np.float64(hist[h, 2 * MISSING])
+                                mb = np.float64(hist[h, 2 * MISSING + 1])
+                                sc, pos, ml = scan_two(hist, h, J, pc, nodecnt[0] - ma, nodecnt[1] - mb, ma, mb,
+                                                       crit, np.float64(min_leaf), best, work, cand_left)
                             else:
-                                best_thr = pc[pos]  # threshold: the largest present code going left
-                    if regression:
-                        clear_values(hist_w, hist_s, h, J, pc, sparse)
-                    else:
-                        clear_classes(hist, h, J, pc, C, sparse)
+                                sc, pos, ml = scan_classes(hist, h, J, pc, nodecnt, C, crit, min_leaf, best, lc,
+                                                           tot, miss, cand_left)
+                        # zeroed again for the next candidate (pc, read below, is left as it is)
+                        if regression:
+                            clear_values(hist_w, hist_s, h, J, pc, sparse)
+                        else:
+                            clear_classes(hist, h, J, pc, C, sparse)
+                    if pos >= 0:
+                        best = sc
+                        best_f = f
+                        best_ml = ml
+                        for k in range(C):
+                            best_left[k] = cand_left[k]
+                        if fc:
+                            for u in range(4):
+                                best_mask[u] = 0
+                            for u in range(pos + 1):
+                                code = pc[u]
+                                best_mask[code >> 6] |= np.uint64(1) << np.uint64(code & 63)
+                        else:
+                            best_thr = pc[pos]  # threshold: the largest present code going left
             ni[rec, CAND] = scanned
             if best_f >= 0:
                 visits += np.int64(m) * scanned
