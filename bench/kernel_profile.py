@@ -97,7 +97,10 @@ def short(symbol: str) -> str:
 
 def main():
     problem = sys.argv[1] if len(sys.argv) > 1 else "r1"
-    trees = int(sys.argv[2]) if len(sys.argv) > 2 else 40
+    trees = sys.argv[2] if len(sys.argv) > 2 else "40"
+    if problem not in ("r1", "r3") or not trees.isdigit() or int(trees) < 1:
+        sys.exit("usage: python bench/kernel_profile.py [r1|r3] [trees >= 1]")
+    trees = int(trees)
     if os.environ.get("BAGGR_PROFILE_CHILD"):
         return child(problem, trees)
     with tempfile.TemporaryDirectory() as tmp:
