@@ -10,10 +10,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import data
+from .arena import Arena
 from .config import Config
 from .draw import Drawer
 from .errors import ConfigError, DataError
 from .events import MemberEvent
+from .forest import Forest
 from .rng import STREAM_TREE, stream_state
 from .tally import MemberDelta, Tally
 from .tree import Learner, Scratch, Tree
@@ -164,7 +166,9 @@ class Training:
         self.grower = Grower(self.prep, config)
         self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
                            max(1, self.prep.n_classes), config.vote, capacity=config.members)
-        self.trees: list[Tree] = []
+        # kept trees, in member order: views into the arena, where each is copied once as it is folded
+        self.trees: list = []
+        self._arena = self._new_arena()
         self.elapsed = 0.0
         self.stats = {"visits": 0, "nodes": 0, "grow_seconds": 0.0, "fold_seconds": 0.0, "members": 0}
 
@@ -196,7 +200,7 @@ class Training:
                 t0 = time.perf_counter()
                 self.tally.fold(result.delta)
                 if result.tree is not None:
-                    self.trees.append(result.tree)
+                    self.trees.append(self._keep(result.tree))
                 self.stats["fold_seconds"] += time.perf_counter() - t0
                 self.stats["grow_seconds"] += result.seconds
                 self.stats["visits"] += result.visits
@@ -231,6 +235,33 @@ class Training:
             ev.r2 = t.r2()
         return ev
 
+    def _n_out(self) -> int:
+        return max(1, self.prep.n_classes) if self.prep.task == "classes" else 1
+
+    def _new_arena(self) -> Arena | None:
+        """Room for every node the configured members could have (address space only)."""
+        if not self.config.keep_members:
+            return None
+        n = max(self.prep.n_rows, 1)
+        any_cat = bool(np.any(self.prep.binning.is_cat))
+        return Arena.reserve(self.config.members * (2 * n - 1), self.config.members * (n - 1) if any_cat else 0,
+                             self._n_out())
+
+    def _keep(self, tree):
+        """The tree to keep: copied into the arena where it fits (else kept as it is)."""
+        if self._arena is not None and self._arena.room(tree):
+            return self._arena.append(tree)
+        self._arena = None  # from here on, the trees are packed when an ensemble is made
+        return tree
+
+    def forest(self) -> Forest | None:
+        """The kept trees as a Forest: views of the arena, or (without one) packed now, a copy."""
+        if not self.config.keep_members:
+            return None
+        if self._arena is not None:
+            return self._arena.forest()
+        return Forest.pack(self.trees, self._n_out())
+
     def ensemble(self):
         from .ensemble import Ensemble
         return Ensemble.from_training(self)
@@ -263,7 +294,11 @@ class Training:
         if self.config.keep_members and len(trees) != m:
             raise ModelFileError(f"checkpoint has {m} members but {len(trees)} kept trees")
         self.tally.restore(tally)
-        self.trees = trees if self.config.keep_members else []
+        self.trees = []
+        self._arena = self._new_arena()
+        if self.config.keep_members:
+            for t in trees:
+                self.trees.append(self._keep(t))
         self.elapsed = float(header.get("elapsed", 0.0))
         for k, v in header.get("stats", {}).items():
             if k in self.stats:

@@ -21,8 +21,7 @@ class Ensemble:
     @classmethod
     def from_training(cls, training) -> "Ensemble":
         p = training.prep
-        n_out = max(1, p.n_classes) if p.task == "classes" else 1
-        forest = Forest.pack(training.trees, n_out) if training.config.keep_members else None
+        forest = training.forest()
         stats = dict(training.stats, seconds=training.elapsed)
         return cls(p.schema, p.binning, training.config, forest, OOB.from_tally(training.tally, p.schema.classes), stats)
 
