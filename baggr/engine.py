@@ -170,7 +170,8 @@ class Training:
         self.trees: list = []
         self._arena = self._new_arena()
         self.elapsed = 0.0
-        self.stats = {"visits": 0, "nodes": 0, "grow_seconds": 0.0, "fold_seconds": 0.0, "members": 0}
+        self.stats = {"visits": 0, "nodes": 0, "grow_seconds": 0.0, "fold_seconds": 0.0,
+                      "keep_seconds": 0.0, "members": 0}
 
     @property
     def next_member(self) -> int:
@@ -199,9 +200,11 @@ class Training:
                 result = inflight.popleft().result()
                 t0 = time.perf_counter()
                 self.tally.fold(result.delta)
+                t1 = time.perf_counter()
+                self.stats["fold_seconds"] += t1 - t0
                 if result.tree is not None:
                     self.trees.append(self._keep(result.tree))
-                self.stats["fold_seconds"] += time.perf_counter() - t0
+                    self.stats["keep_seconds"] += time.perf_counter() - t1
                 self.stats["grow_seconds"] += result.seconds
                 self.stats["visits"] += result.visits
                 self.stats["nodes"] += result.nodes

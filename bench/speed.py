@@ -99,7 +99,8 @@ def run(name, X, y, cfg, members, rounds=7):
           f"members {np.median(steady):.2f}x (rounds {min(steady):.2f}-{max(steady):.2f}x)")
     print(f"  member time {member_s * 1e3:.1f} ms, visits/member {visits:,.0f}, {ns:.2f} ns/visit")
     print(f"  calibration (histogram only) {cal:.2f} ns/visit; ratio member/(visits x cal) {ns / cal:.2f}")
-    print(f"  tally fold share {s['fold_seconds'] / wall1 * 100:.2f}% of wall time (threads=1)")
+    print(f"  tally fold share {s['fold_seconds'] / wall1 * 100:.2f}% of wall time (threads=1); "
+          f"copying kept trees into place {s['keep_seconds'] / wall1 * 100:.2f}% (main thread)")
     print(f"  nodes/member {s['nodes'] / members:,.0f}; OOB {'error' if ens.task == 'classes' else 'MSE'} "
           f"{ens.oob.error:.4f}; peak RSS {mib(peak)}; load average {os.getloadavg()[0]:.2f}")
 
