@@ -2,7 +2,7 @@
 
 Packing a run's trees at its end copied every kept node once more: memory the process had never
 touched, twice the trees' size at the peak, and a wait of a second and more after the last member
-on this VM, where a first touch costs about 3 us a page (R3, 64 members: 327 MiB, 1.1-1.6 s).
+on this VM, where a first touch costs about 3 us a page (R3, 64 members: 327 MiB, 1.0-1.6 s).
 Here each tree is copied into place once, when its member is folded, and the ensemble is a set
 of views. Each field is one reservation of address space sized for the largest possible run
 (members x (2 rows - 1) nodes); only the pages written become resident.
@@ -42,9 +42,8 @@ class Arena:
     thread, and stay valid for as long as they are referenced.
     """
 
-    def __init__(self, arrays: dict, n_out: int):
+    def __init__(self, arrays: dict):
         self._a = arrays
-        self.n_out = n_out
         self.nodes, self.masks = 0, 0
         self._node_offset, self._mask_offset = [0], [0]
 
@@ -58,7 +57,7 @@ class Arena:
             arrays[name] = _reserve(shape, dtype)
             if arrays[name] is None:
                 return None
-        return cls(arrays, n_out)
+        return cls(arrays)
 
     def room(self, tree) -> bool:
         """True if `tree` fits in what is left."""
