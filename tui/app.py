@@ -141,10 +141,17 @@ class Dashboard(App):
         self.tail.wake()
 
     def redraw(self, all_panels: bool = True) -> None:
+        if self._panels_gone():
+            return
         try:
             self._redraw(all_panels)
         except NoMatches:               # a panel still being composed: the next tick draws it
             pass
+
+    def _panels_gone(self) -> bool:
+        """True once the app is closing or a panel has left the screen: a tick can still fire
+        while the widgets are taken down (seen as a frame without a parent at exit)."""
+        return any(not w.is_attached for w in self._panels.values())
 
     _tables_at = -1e9
     tables_every = TABLES_EVERY     # seconds between drawings of the plot and tables while lines arrive
