@@ -135,7 +135,10 @@ class Dashboard(App):
         """Every REDRAW_EVERY seconds: the clock, the process and whatever the journal brought."""
         if not self.tail.caught_up.is_set():
             # The opening read: say how far it got and leave the tailing thread the interpreter.
-            self.query_one(RunBar).reading(self.run_dir.name, self.tail.lines)
+            try:
+                self.query_one(RunBar).reading(self.run_dir.name, self.tail.lines)
+            except NoMatches:       # the screen not composed yet, or taken down at exit
+                pass
             return
         self.redraw(all_panels=False)
         self.tail.wake()
