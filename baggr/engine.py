@@ -238,7 +238,9 @@ class Training:
             ev.r2 = t.r2()
         return ev
 
-    def _n_out(self) -> int:
+    @property
+    def n_out(self) -> int:
+        """Values a node stores: one per class, or one for regression."""
         return max(1, self.prep.n_classes) if self.prep.task == "classes" else 1
 
     def _new_arena(self) -> Arena | None:
@@ -248,7 +250,7 @@ class Training:
         n = max(self.prep.n_rows, 1)
         any_cat = bool(np.any(self.prep.binning.is_cat))
         return Arena.reserve(self.config.members * (2 * n - 1), self.config.members * (n - 1) if any_cat else 0,
-                             self._n_out())
+                             self.n_out)
 
     def _keep(self, tree):
         """The tree to keep: copied into the arena where it fits (else kept as it is)."""
@@ -263,7 +265,7 @@ class Training:
             return None
         if self._arena is not None:
             return self._arena.forest()
-        return Forest.pack(self.trees, self._n_out())
+        return Forest.pack(self.trees, self.n_out)
 
     def ensemble(self):
         from .ensemble import Ensemble

@@ -450,13 +450,9 @@ class Checkpointer:
         from .forest import Forest
         path = self.rd / name
         path.parent.mkdir(exist_ok=True)
-        forest = Forest.pack(trees, self._n_out())
+        forest = Forest.pack(trees, self.training.n_out)
         npzfile.write_atomic(path, forest.arrays, {"format": CHUNK_FORMAT, "format_version": CHECKPOINT_VERSION,
                                                    "first": a, "last": b})
-
-    def _n_out(self) -> int:
-        p = self.training.prep
-        return max(1, p.n_classes) if p.task == "classes" else 1
 
     def restore(self) -> bool:
         """Continue the training from the checkpoint on disk, if any; True when one was loaded."""
@@ -496,7 +492,7 @@ class Checkpointer:
             if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
                 raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
             forest = Forest(a)
-            forest.validate(n_features, self._n_out())
+            forest.validate(n_features, self.training.n_out)
             if forest.members != c[1] - c[0]:
                 raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
             trees.extend(forest.unpack())

@@ -9,6 +9,8 @@ resident memory at the last member, at the peak of the run, and after it.
 import sys
 import time
 
+import psutil
+
 import baggr
 from baggr.engine import Training, prepare
 from util import PeakRSS, friedman1, mib
@@ -20,7 +22,7 @@ def main():
     cfg = baggr.Config(members=members, min_leaf=1, seed=1, threads=2)
     prep = prepare(X, y, cfg)
     tr = Training(X, y, cfg, prepared=prep)
-    proc = PeakRSS().proc
+    proc = psutil.Process()
     last = {}
 
     def on_member(ev):

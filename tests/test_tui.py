@@ -16,6 +16,7 @@ from baggr.journal import JOURNAL, JournalWriter
 from tui.app import Dashboard
 from tui.fake import CLASS_ROWS, CLASSES, dead_pid, member_fields, start_fields, write_journal
 from tui.screens import HelpScreen, StopScreen
+from tui.widgets import ClassPanel
 
 
 def run(coro):
@@ -221,13 +222,10 @@ def test_replaced_journal_is_read_again(tmp_path):
     run(go())
 
 
-# ---------------------------------------------------------------- keys
-
 def test_a_tick_while_the_panels_are_taken_down_draws_nothing(tmp_path):
     # At exit Textual takes the widgets down while a timer can still fire; a redraw then met a
     # frame without a parent (AttributeError, seen once in CI). Taking one frame down by hand
     # puts the app in that state.
-    from tui.widgets import ClassPanel
     run_dir = tmp_path / "iota"
     write_journal(run_dir, 25, members_target=100)
 
@@ -244,6 +242,8 @@ def test_a_tick_while_the_panels_are_taken_down_draws_nothing(tmp_path):
             assert app.redraws == n + 1                  # and one after a panel left draws nothing
     run(go())
 
+
+# ---------------------------------------------------------------- keys
 
 def test_stop_key_asks_then_writes_the_stop_file(tmp_path):
     run_dir = tmp_path / "theta"
