@@ -1,26 +1,26 @@
 """baggr: bagged tree ensembles with a single-pass out-of-bag estimate."""
 __version__ = "0.1.0"
 
-from .config import Config  # noqa: E402
-from .errors import BaggrError, ConfigError, DataError, ModelFileError  # noqa: E402
+from baggr.config import Config  # noqa: E402
+from baggr.errors import BaggrError, ConfigError, DataError, ModelFileError  # noqa: E402
 
 
 def __getattr__(name):
     # Lazy: `import baggr` stays light (the journal reader and dashboard never load numba).
     if name == "train":
-        from .engine import train
+        from baggr.engine import train
         return train
     if name == "load":
-        from .model import load
+        from baggr.model.file import load
         return load
     if name == "read_table":
-        from .data import read_table
+        from baggr.data import read_table
         return read_table
     if name in ("Ensemble",):
-        from .ensemble import Ensemble
+        from baggr.model.ensemble import Ensemble
         return Ensemble
     if name in ("Training",):
-        from .engine import Training
+        from baggr.engine import Training
         return Training
     raise AttributeError(f"module 'baggr' has no attribute {name!r}")
 

@@ -6,7 +6,7 @@ import math
 import os
 from dataclasses import dataclass
 
-from .errors import ConfigError
+from baggr.errors import ConfigError
 
 DRAWS = ("bootstrap", "balanced", "subsample")
 CRITERIA = ("gini", "entropy", "variance")

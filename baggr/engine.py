@@ -9,16 +9,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import data
-from .arena import Arena
-from .config import Config
-from .draw import Drawer
-from .errors import ConfigError, DataError
-from .events import MemberEvent
-from .forest import Forest
-from .rng import STREAM_TREE, stream_state
-from .tally import MemberDelta, Tally
-from .tree import Learner, Scratch, Tree
+from baggr import data
+from baggr.model.arena import Arena
+from baggr.config import Config
+from baggr.learn.draw import Drawer
+from baggr.errors import ConfigError, DataError
+from baggr.events import MemberEvent
+from baggr.model.forest import Forest
+from baggr.learn.rng import STREAM_TREE, stream_state
+from baggr.oob.tally import MemberDelta, Tally
+from baggr.learn.tree import Learner, Scratch, Tree
 
 
 @dataclass
@@ -268,7 +268,7 @@ class Training:
         return Forest.pack(self.trees, self.n_out)
 
     def ensemble(self):
-        from .ensemble import Ensemble
+        from baggr.model.ensemble import Ensemble
         return Ensemble.from_training(self)
 
     # -- checkpoints -----------------------------------------------------------------------------
@@ -285,7 +285,7 @@ class Training:
 
     def restore(self, arrays: dict, header: dict, trees: list | None = None) -> None:
         """Continue from checkpoint() output for the same data and config; trees: the kept members 0..m-1."""
-        from .errors import ModelFileError
+        from baggr.errors import ModelFileError
         tally = {k[6:]: v for k, v in arrays.items() if k.startswith("tally_")}
         for name, a in self.tally.arrays().items():
             b = tally.get(name)

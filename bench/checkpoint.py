@@ -16,10 +16,10 @@ import time
 from pathlib import Path
 
 
-from baggr import npzfile
+from baggr.model import npzfile
 from baggr.config import Config
 from baggr.engine import Training
-from baggr.forest import Forest
+from baggr.model.forest import Forest
 from baggr.runs import Checkpointer, RunDir, RunSettings
 from util import twonorm
 

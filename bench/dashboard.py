@@ -20,7 +20,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 import psutil  # noqa: E402
 
-from baggr.journal import JOURNAL, JournalWriter, read_state  # noqa: E402
+from baggr.runs.journal import JOURNAL, JournalWriter, read_state  # noqa: E402
 from tui.app import Dashboard  # noqa: E402
 from tui.fake import member_fields, write_journal  # noqa: E402
 
@@ -154,7 +154,7 @@ def main() -> None:
         del state
         end_to_end(run_dir, a.members, size)
         asyncio.run(measure(run_dir, a.members, a.rate, a.seconds, size))
-    import baggr.journal as journal
+    import baggr.runs.journal as journal
     print(f"machine: {os.cpu_count()} cpus, load {os.getloadavg()[0]:.1f}; "
           f"journal parser: {'orjson' if journal._orjson is not None else 'json (orjson not installed)'}")
 

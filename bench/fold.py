@@ -13,10 +13,10 @@ import time
 import numpy as np
 
 import baggr
-from baggr import tally_kernels
+from baggr.oob import tally_kernels
 from baggr.engine import Grower, prepare
 from baggr.jit import kernel
-from baggr.tally import MemberDelta, Tally
+from baggr.oob.tally import MemberDelta, Tally
 from util import twonorm
 
 

@@ -18,13 +18,13 @@ import psutil
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from baggr.journal import JOURNAL  # noqa: E402
+from baggr.runs.journal import JOURNAL  # noqa: E402
 from tui.fake import write_journal  # noqa: E402
 
 WRITER = """
 import random, sys, time
 sys.path.insert(0, {root!r})
-from baggr.journal import JournalWriter
+from baggr.runs.journal import JournalWriter
 from tui.fake import member_fields
 w = JournalWriter({path!r})
 rng, m, t0 = random.Random(3), {first}, time.perf_counter()

@@ -49,9 +49,11 @@ def child(problem: str, trees: int) -> None:
     sys.path.insert(0, os.path.join(HERE, ".."))
     import numpy as np
 
-    from baggr import hist_kernels, split_kernels, tree_kernels
-    from baggr.rng import STREAM_TREE, stream_state
-    from baggr.tree import Learner
+    from baggr.learn import hist_kernels
+    from baggr.learn import split_kernels
+    from baggr.learn import tree_kernels
+    from baggr.learn.rng import STREAM_TREE, stream_state
+    from baggr.learn.tree import Learner
     from tree_speed import bootstrap, quantile_codes, twonorm
     from util import friedman1
 

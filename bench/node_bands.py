@@ -23,11 +23,11 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
-from baggr.hist_kernels import build_classes, clear_classes, list_classes  # noqa: E402
+from baggr.learn.hist_kernels import build_classes, clear_classes, list_classes  # noqa: E402
 from baggr.jit import kernel  # noqa: E402
-from baggr.rng import STREAM_TREE, stream_state  # noqa: E402
-from baggr.split_kernels import scan_two  # noqa: E402
-from baggr.tree import grow  # noqa: E402
+from baggr.learn.rng import STREAM_TREE, stream_state  # noqa: E402
+from baggr.learn.split_kernels import scan_two  # noqa: E402
+from baggr.learn.tree import grow  # noqa: E402
 from tree_speed import bootstrap, node_members, quantile_codes, twonorm  # noqa: E402
 
 BANDS = ((3, 48), (48, 256), (256, 4096), (4096, 1 << 30))

@@ -27,8 +27,8 @@ import numpy as np
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 from baggr.jit import kernel  # noqa: E402
-from baggr.rng import STREAM_TREE, stream_state  # noqa: E402
-from baggr.tree import grow  # noqa: E402
+from baggr.learn.rng import STREAM_TREE, stream_state  # noqa: E402
+from baggr.learn.tree import grow  # noqa: E402
 
 
 def twonorm(n: int, p: int = 20, seed: int = 1996):

@@ -5,9 +5,9 @@ import pyarrow as pa
 import pytest
 
 import baggr
-from baggr import arena
+from baggr.model import arena
 from baggr.engine import Training
-from baggr.forest import NODE_FIELDS
+from baggr.model.forest import NODE_FIELDS
 
 
 def _table(n=400, seed=5):

@@ -17,11 +17,11 @@ import pytest
 
 import naive
 from generators import noisy_halves
-from baggr import npzfile
-from baggr.cli import COMMANDS
+from baggr.model import npzfile
+from baggr.cli.main import COMMANDS
 from baggr.config import Config
 from baggr.engine import train
-from baggr.model import load
+from baggr.model.file import load
 from baggr.runs import MODEL, RunDir, RunSettings, create, fingerprint, init_config
 
 BAGGR = [sys.executable, "-m", "baggr.cli"]
@@ -229,7 +229,8 @@ def test_estimate_only_run_reports_but_cannot_predict(files, tmp_path):
 
 
 def test_internal_error_is_one_line_and_the_journal_says_failed(files, tmp_path, capsys, monkeypatch):
-    from baggr import cli, journal
+    from baggr.cli import main as cli
+    from baggr.runs import journal
     from baggr.runs import Job
 
     def broken(self):

@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from baggr.draw import Drawer
+from baggr.learn.draw import Drawer
 
 
 @pytest.mark.parametrize("n, share", [(10, 0.348678), (100, 0.366032), (1000, 0.367695)])

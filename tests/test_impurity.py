@@ -2,9 +2,9 @@
 import numpy as np
 import pytest
 
-from baggr.rng import STREAM_TREE, stream_state
-from baggr.split_kernels import ENTROPY, GINI, impurity_counts
-from baggr.tree import grow
+from baggr.learn.rng import STREAM_TREE, stream_state
+from baggr.learn.split_kernels import ENTROPY, GINI, impurity_counts
+from baggr.learn.tree import grow
 
 # Mitchell, Machine Learning (1997), ch. 3, Table 3.2: 14 days, PlayTennis 9 yes / 5 no.
 DAYS = [

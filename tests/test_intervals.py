@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from baggr.intervals import normal_mean, wilson
+from baggr.oob.intervals import normal_mean, wilson
 
 
 @pytest.mark.parametrize("k, n", [(10, 100), (0, 37), (37, 37), (123, 4567), (1, 2)])

@@ -12,7 +12,7 @@ import psutil
 import pytest
 
 from baggr.errors import BaggrError
-from baggr.journal import (JOURNAL, JournalReader, JournalWriter, RunDirError, RunState, bucket_edges,
+from baggr.runs.journal import (JOURNAL, JournalReader, JournalWriter, RunDirError, RunState, bucket_edges,
                            bucket_plan, class_interval, downsample, job_status, read_state, request_stop,
                            stop_requested)
 
@@ -20,7 +20,7 @@ from baggr.journal import (JOURNAL, JournalReader, JournalWriter, RunDirError, R
 @pytest.fixture(params=["json", "orjson"])
 def parser(request, monkeypatch):
     """Every reader test runs with the json module and, where it is installed, with orjson."""
-    import baggr.journal as journal
+    import baggr.runs.journal as journal
     if request.param == "orjson":
         monkeypatch.setattr(journal, "_orjson", pytest.importorskip("orjson"))
     else:

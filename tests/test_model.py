@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 import baggr
-from baggr import npzfile
+from baggr.model import npzfile
 from generators import waveform
 
 

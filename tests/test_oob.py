@@ -4,7 +4,7 @@ import pytest
 
 import baggr
 from baggr import data
-from baggr.draw import Drawer
+from baggr.learn.draw import Drawer
 from generators import friedman1, waveform
 
 import naive

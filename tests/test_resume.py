@@ -22,8 +22,9 @@ import pyarrow as pa
 import pyarrow.csv as pacsv
 import pytest
 
-from baggr import journal, npzfile
-from baggr.model import load
+from baggr.runs import journal
+from baggr.model import npzfile
+from baggr.model.file import load
 from baggr.runs import CHECKPOINT, Lock, MODEL, RunDir
 from generators import noisy_halves
 
@@ -97,7 +98,7 @@ def medium(tmp_path_factory):
 def reference(medium):
     """An uninterrupted run of MEMBERS members, to compare every resumed run with (in this process: it also
     warms the numba cache before subprocesses run two at a time)."""
-    from baggr import cli
+    from baggr.cli import main as cli
     d, data = medium
     rd = d / "reference"
     code = cli.main([str(a) for a in ("train", data, "--target", "label", "--members", MEMBERS, "--threads", 2,

@@ -9,12 +9,12 @@ import numpy as np
 import pytest
 
 import naive
-from baggr import npzfile
+from baggr.model import npzfile
 from baggr.config import Config
 from baggr.engine import Training
 from baggr.errors import DataError, ModelFileError
-from baggr.progress import PlainProgress, RichProgress
-from baggr.report import curve_sizes, settled_at
+from baggr.cli.progress import PlainProgress, RichProgress
+from baggr.cli.report import curve_sizes, settled_at
 from baggr.runs import (CHECKPOINT, Checkpointer, DiskFullError, Lock, RunDir, RunDirError, RunSettings,
                         check_data, create, default_run_dir, fingerprint, stable_now)
 
@@ -258,8 +258,8 @@ def test_run_dir_require_names_the_problem(tmp_path):
 def test_watch_without_the_dashboard_follows_the_journal(tmp_path, monkeypatch, capsys):
     import sys
 
-    from baggr import cli
-    from baggr.journal import JournalWriter
+    from baggr.cli import main as cli
+    from baggr.runs.journal import JournalWriter
     monkeypatch.setitem(sys.modules, "tui.app", None)        # as if the dashboard could not be imported
     rd = create(tmp_path / "run")
     with JournalWriter(rd / "journal.jsonl") as j:

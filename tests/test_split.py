@@ -2,8 +2,8 @@
 import numpy as np
 import pytest
 
-from baggr.rng import STREAM_TREE, stream_state
-from baggr.tree import grow
+from baggr.learn.rng import STREAM_TREE, stream_state
+from baggr.learn.tree import grow
 
 import naive
 

@@ -2,7 +2,7 @@
 import numpy as np
 import pytest
 
-from baggr.tally import MemberDelta, Tally
+from baggr.oob.tally import MemberDelta, Tally
 
 from naive_tally import recount_classes, recount_regression
 

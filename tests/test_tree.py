@@ -3,9 +3,9 @@ import numpy as np
 import pytest
 
 from baggr.errors import ConfigError, DataError
-from baggr.predict_kernels import route, score_rows
-from baggr.rng import STREAM_TREE, stream_state
-from baggr.tree import check_codes, grow
+from baggr.model.predict_kernels import route, score_rows
+from baggr.learn.rng import STREAM_TREE, stream_state
+from baggr.learn.tree import check_codes, grow
 
 import naive
 

@@ -12,7 +12,7 @@ import psutil
 import pytest
 from rich.console import Console
 
-from baggr.journal import JOURNAL, JournalWriter
+from baggr.runs.journal import JOURNAL, JournalWriter
 from tui.app import Dashboard
 from tui.fake import CLASS_ROWS, CLASSES, dead_pid, member_fields, start_fields, write_journal
 from tui.screens import HelpScreen, StopScreen

@@ -23,7 +23,7 @@ pytestmark = pytest.mark.skipif(TMUX is None, reason="tmux is not installed (apt
 JOB = textwrap.dedent("""
     import sys, time
     from pathlib import Path
-    from baggr.journal import JournalWriter, stop_requested
+    from baggr.runs.journal import JournalWriter, stop_requested
     from tui.fake import member_fields, start_fields
     run = Path(sys.argv[1])
     with JournalWriter(run / "journal.jsonl") as w:

@@ -33,7 +33,7 @@ def watch(run_dir, *, get_time=time.time) -> int:
     """
     from pathlib import Path
 
-    from baggr.journal import RunDirError
+    from baggr.runs.journal import RunDirError
 
     if not Path(run_dir).is_dir():
         raise RunDirError(f"no run directory at {run_dir}")

@@ -8,7 +8,7 @@ from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.css.query import NoMatches
 
-from baggr.journal import RunDirError, job_status, request_stop, stop_requested
+from baggr.runs.journal import RunDirError, job_status, request_stop, stop_requested
 
 from .opening import Opening
 from .messages import JournalAdvanced, JournalRestarted, JournalTrouble

@@ -7,8 +7,8 @@ import random
 import time
 from pathlib import Path
 
-from baggr.intervals import wilson
-from baggr.journal import JOURNAL, JournalWriter
+from baggr.oob.intervals import wilson
+from baggr.runs.journal import JOURNAL, JournalWriter
 
 CLASSES = ("calm", "drift", "burst")
 CLASS_ROWS = (700, 220, 80)

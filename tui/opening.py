@@ -10,7 +10,7 @@ import multiprocessing
 import threading
 from pathlib import Path
 
-from baggr.journal import JOURNAL, JournalReader, RunState
+from baggr.runs.journal import JOURNAL, JournalReader, RunState
 
 MIN_BYTES = 4 << 20      # smaller journals read faster than a child starts and sends back
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 import threading
 from pathlib import Path
 
-from baggr.journal import JOURNAL, JournalReader, RunState
+from baggr.runs.journal import JOURNAL, JournalReader, RunState
 
 from .messages import JournalAdvanced, JournalRestarted, JournalTrouble
 

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from baggr.journal import RunState
+from baggr.runs.journal import RunState
 
 
 @dataclass

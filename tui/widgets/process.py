@@ -8,7 +8,7 @@ from dataclasses import dataclass
 import psutil
 from rich.text import Text
 
-from baggr.journal import pid_alive, same_host
+from baggr.runs.journal import pid_alive, same_host
 
 from .. import fmt
 from .base import Panel

@@ -1,0 +1,1 @@
+"""The `baggr` command (main), its progress lines (progress) and report text (report)."""

@@ -1,0 +1,293 @@
+"""The figures of a run (finished or not) for `baggr report`: rich tables for people, one JSON object for tools."""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from baggr import data as _data
+from baggr.config import Config
+from baggr.errors import ModelFileError
+from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, fmt_seconds, read_checkpoint
+
+EXPECTED_LEFT_OUT = math.exp(-1.0)   # share of members that leave a row out under a bootstrap draw (1 - 1/n)^n
+
+
+@dataclass
+class RunReport:
+    """What a report shows, from model.npz or (for an unfinished run) from the latest checkpoint."""
+
+    path: Path
+    source: str                       # "model" or "checkpoint"
+    oob: object                       # baggr.oob.OOB
+    config: Config
+    schema: object
+    status: str = "model file"        # finished / stopped / running / crashed / failed / model file
+    reason: str | None = None
+    elapsed: float | None = None
+    members_target: int | None = None
+    journal_members: int | None = None
+    run: dict = field(default_factory=dict)   # config.json of a run directory ({} for a bare model file)
+
+    @property
+    def task(self) -> str:
+        return self.schema.task
+
+
+def load(path) -> RunReport:
+    """A run directory's report figures (model.npz, or the checkpoint when it is further on), or a model file's."""
+    from baggr.model.file import load as load_model
+    p = Path(path)
+    if p.is_file():
+        ens = load_model(p)
+        return RunReport(p, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"),
+                         members_target=ens.config.members)
+    rd = RunDir(p).require()
+    run = rd.read_config()
+    for _ in range(3):     # a job finishing meanwhile removes its checkpoint after writing the model: look again
+        st, status = rd.state()
+        ck = read_checkpoint(rd)
+        ens = load_model(rd / MODEL) if (rd / MODEL).exists() else None
+        if ck is not None or ens is not None:
+            break
+    ck_m = int(ck[0].get("next_member", 0)) if ck else None
+    common = dict(status=status, reason=st.reason, members_target=st.members_target or run["config"].get("members"),
+                  journal_members=st.members, run=run)
+    if ens is not None and (ck_m is None or ens.members >= ck_m):
+        return RunReport(rd.path, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"), **common)
+    if ck is None:
+        raise RunDirError(f"{rd.path} has no figures yet ({status}; the journal shows {st.members} members and no "
+                          f"checkpoint has been written): watch it with: baggr watch {rd.path}")
+    header, arrays = ck
+    return _from_checkpoint(rd / CHECKPOINT, header, arrays, common)
+
+
+def _from_checkpoint(path, header, arrays, common) -> RunReport:
+    from baggr.model.file import _check_oob
+    from baggr.oob.view import OOB
+    try:
+        schema = _data.Schema.from_json(header.get("schema"))
+        config = Config.from_dict(header.get("config"))
+    except ModelFileError:
+        raise
+    except Exception as e:   # a damaged header: any shape of wrong
+        raise ModelFileError(f"{path}: the header is damaged ({e})") from None
+    a = {k[6:]: v for k, v in arrays.items() if k.startswith("tally_")}
+    if schema.task == "classes":
+        a["class_rows"] = arrays.get("class_rows")
+        if a["class_rows"] is None:
+            raise ModelFileError(f"{path} lacks the class row counts")
+    _check_oob(a, schema, path)
+    return RunReport(Path(path).parent, "checkpoint", OOB(schema.task, schema.classes, a), config, schema,
+                     elapsed=float(header.get("elapsed") or 0.0), **common)
+
+
+# ---------------------------------------------------------------- figures
+
+def settled_at(curve, lo: float, hi: float) -> int | None:
+    """Smallest ensemble size from which every later point of the curve lies within [lo, hi]."""
+    c = np.asarray(curve, dtype=np.float64)
+    if c.shape[0] == 0 or not (math.isfinite(lo) and math.isfinite(hi)):
+        return None
+    outside = ~((c >= lo) & (c <= hi))     # NaN counts as outside
+    bad = np.flatnonzero(outside)
+    if bad.shape[0] == 0:
+        return 1
+    if bad[-1] == c.shape[0] - 1:
+        return None
+    return int(bad[-1]) + 2
+
+
+def curve_sizes(m: int) -> list[int]:
+    """Ensemble sizes worth a row in the curve table: 1, 5, 10, 25, 50, 100, 250, ... and m."""
+    sizes, k = [], 1
+    while k <= m:
+        for s in (1, 2.5, 5):
+            v = int(k * s)
+            if v <= m and (v >= 5 or v == 1):
+                sizes.append(v)
+        k *= 10
+    sizes = sorted(set(sizes) | {m})
+    return sizes
+
+
+def _f(v):
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def cautions(r: RunReport) -> list[str]:
+    """The plain-words cautions every report carries."""
+    m = r.oob.members
+    judged = float(np.mean(r.oob.left_out)) if r.oob.left_out.shape[0] else 0.0
+    out = [
+        "The OOB estimate holds for new rows drawn the way the training rows were drawn.",
+        "If one entity (a patient, a machine, a customer) gave several rows, or the data drift over time, "
+        "the estimate is optimistic: rows of the same entity or period judge each other. Hold out whole "
+        "entities or a later period to check.",
+        "Decisions that affect people need review beyond this estimate.",
+        f"Each row is judged only by the members that left it out: {judged:.1f} of the {m} members here, "
+        "on average. A small ensemble therefore overstates the error the whole ensemble makes; "
+        "read the tail of the curve, not its start.",
+    ]
+    if r.oob.uncovered:
+        out.append(f"{r.oob.uncovered} rows were never left out; they are not counted in the error.")
+    if r.source == "checkpoint":
+        out.append("This run is not finished: the figures come from its latest checkpoint.")
+    return out
+
+
+def figures(r: RunReport) -> dict:
+    """Everything the report shows, as one JSON-able dict."""
+    oob = r.oob
+    iv = oob.interval
+    curve = oob.curve
+    d = {"path": str(r.path), "source": r.source, "status": r.status, "reason": r.reason, "task": r.task,
+         "members": oob.members, "members_target": r.members_target, "elapsed": _f(r.elapsed),
+         "oob_error": _f(oob.error), "interval": None if iv is None else [_f(v) for v in iv],
+         "rows": int(oob.left_out.shape[0]), "covered": oob.covered, "coverage": oob.coverage,
+         "uncovered": oob.uncovered, "judged_per_row": _f(np.mean(oob.left_out)) if oob.left_out.shape[0] else None,
+         "curve": [_f(v) for v in curve], "curve_interval": [[_f(a), _f(b)] for a, b in oob.curve_interval],
+         "settled_at": settled_at(curve, *iv) if iv is not None else None,
+         "config": r.config.to_dict(), "target": r.run.get("target") or r.schema.target,
+         "data": r.run.get("data"), "version": r.run.get("version"), "created": r.run.get("created"),
+         "cautions": cautions(r)}
+    if r.task == "classes":
+        d["classes"] = list(r.schema.classes)
+        d["class_rows"] = [int(v) for v in oob.class_rows]
+        d["class_error"] = [_f(v) for v in oob.class_error]
+        d["class_interval"] = [None if i is None else [_f(i[0]), _f(i[1])] for i in oob.class_interval]
+        d["class_covered"] = [int(v) for v in oob.confusion.sum(axis=1)]
+        d["confusion"] = oob.confusion.tolist()
+        d["class_curve"] = [[_f(v) for v in row] for row in oob.class_curve]
+    else:
+        d["r2"] = _f(oob.r2)
+    return d
+
+
+# ---------------------------------------------------------------- drawing
+
+def _rate(v, digits=4) -> str:
+    return "-" if v is None else f"{v:.{digits}f}"
+
+
+def _value(task, v) -> str:
+    if v is None:
+        return "-"
+    return f"{v:.4g}" if task == "regression" else f"{v:.4f}"
+
+
+def _interval(task, iv) -> str:
+    if iv is None or iv[0] is None:
+        return "-"
+    return f"{_value(task, iv[0])} - {_value(task, iv[1])}"
+
+
+def _settings_text(key, value, r: RunReport) -> str:
+    """A setting as the report shows it: what None chose, in words."""
+    if value is not None:
+        return str(value)
+    task = r.task
+    auto = {"features_per_split": "sqrt" if task == "classes" else "1/3 of the features",
+            "depth_limit": "none", "criterion": "gini" if task == "classes" else "variance",
+            "task": f"{task} (from the target)", "threads": "all cores"}
+    return auto.get(key, "auto")
+
+
+def render(r: RunReport, console) -> None:
+    """Print the report with rich (plain text, no markup from the data: names and paths are shown as they are)."""
+    import textwrap
+
+    from rich import box
+    from rich.table import Table
+    from rich.text import Text
+
+    d = figures(r)
+    task = r.task
+    what = "OOB error" if task == "classes" else "OOB MSE"
+
+    def heading(text):
+        console.print()
+        console.print(Text(text, style="bold"))
+
+    def grid():
+        g = Table.grid(padding=(0, 2))
+        g.add_column(style="bold", no_wrap=True)
+        g.add_column()
+        return g
+
+    head = grid()
+    status = d["status"] + (f" ({d['reason']})" if d["reason"] else "")
+    head.add_row("Run", Text(f"{d['path']}   {status}"))
+    data = d["data"] or {}
+    if data:
+        shape = f", {data.get('rows')} rows x {data.get('features')} features" if data.get("rows") else ""
+        head.add_row("Data", Text(f"{data.get('path')} ({data.get('bytes')} bytes{shape})"))
+        head.add_row("SHA-256", Text(str(data.get("sha256"))))
+    kind = f"{len(d['classes'])} classes" if task == "classes" else "regression"
+    head.add_row("Target", Text(f"{d['target'] or '-'} ({kind})"))
+    target = f" of {d['members_target']}" if d["members_target"] else ""
+    note = f"; figures from the checkpoint (the journal shows {r.journal_members})" if r.source == "checkpoint" else ""
+    head.add_row("Members", Text(f"{d['members']}{target}, trained in {fmt_seconds(d['elapsed'])}{note}"))
+    if d["version"]:
+        head.add_row("Made by", Text(f"baggr {d['version']}, {d['created']}"))
+    console.print(head)
+
+    heading("Out-of-bag estimate")
+    est = grid()
+    est.add_row(what, f"{_value(task, d['oob_error'])}   95% interval {_interval(task, d['interval'])}")
+    if task == "regression":
+        est.add_row("R2", _rate(d.get("r2"), 3))
+    est.add_row("Rows judged", f"{d['covered']} of {d['rows']} ({100 * d['coverage']:.2f}%); "
+                               f"{d['uncovered']} never left out (not counted)")
+    if d["judged_per_row"] is not None:
+        est.add_row("Members per row", f"{d['judged_per_row']:.1f} on average (of {d['members']})")
+    s = d["settled_at"]
+    est.add_row("Settled at", f"{s} members: from there on the curve stayed within the final interval"
+                if s else "not yet: the curve's last points still leave the final interval")
+    console.print(est)
+
+    if task == "classes":
+        heading("Per class")
+        ct = Table(box=box.SIMPLE_HEAD, padding=(0, 1))
+        for col, just in (("class", "left"), ("rows", "right"), ("share", "right"), ("judged", "right"),
+                          ("OOB error", "right"), ("95% interval", "right")):
+            ct.add_column(col, justify=just)
+        total = sum(d["class_rows"]) or 1
+        for k, name in enumerate(d["classes"]):
+            ct.add_row(Text(str(name)), str(d["class_rows"][k]), f"{100 * d['class_rows'][k] / total:.1f}%",
+                       str(d["class_covered"][k]), _value(task, d["class_error"][k]),
+                       _interval(task, d["class_interval"][k]))
+        console.print(ct)
+        heading("Confusion: rows are the true class, columns the OOB prediction")
+        cm = Table(box=box.SIMPLE_HEAD, padding=(0, 1))
+        cm.add_column("")
+        for name in d["classes"]:
+            cm.add_column(Text(str(name)), justify="right")
+        for k, name in enumerate(d["classes"]):
+            cm.add_row(Text(str(name)), *[str(v) for v in d["confusion"][k]])
+        console.print(cm)
+
+    heading(f"{what} by ensemble size")
+    cv = Table(box=box.SIMPLE_HEAD, padding=(0, 1))
+    cv.add_column("members", justify="right")
+    cv.add_column(what, justify="right")
+    cv.add_column("95% interval", justify="right")
+    for m in curve_sizes(d["members"]):
+        cv.add_row(str(m), _value(task, d["curve"][m - 1]), _interval(task, d["curve_interval"][m - 1]))
+    console.print(cv)
+
+    heading("Settings")
+    cfg = grid()
+    for k, v in d["config"].items():
+        cfg.add_row(k, Text(_settings_text(k, v, r)))
+    console.print(cfg)
+
+    heading("Read with care")
+    width = max(40, min(console.width, 100) - 4)
+    for c in d["cautions"]:
+        console.print(Text(textwrap.fill(c, width, initial_indent="  - ", subsequent_indent="    ")))

@@ -1,0 +1,113 @@
+"""The model file: one .npz (no pickles) with a JSON header; validated in full on load."""
+from __future__ import annotations
+
+import os
+import time
+
+import numpy as np
+
+from baggr import __version__
+from baggr import data
+from baggr.model import npzfile
+from baggr.config import Config
+from baggr.errors import BaggrError, ModelFileError
+from baggr.model.forest import Forest
+from baggr.oob.view import OOB
+
+FORMAT = "baggr-model"
+FORMAT_VERSION = 1
+
+# OOB arrays by task: name -> (dtype kinds allowed, ndim)
+OOB_FIELDS = {
+    "classes": {"members": (np.int64, 1), "left_out": (np.int32, 1), "votes": (None, 2), "pred": (np.int32, 1),
+                "confusion": (np.int64, 2), "class_wrong": (np.int64, 1), "class_covered": (np.int64, 1),
+                "totals": (np.int64, 1), "curve": (np.float64, 1), "class_curve": (np.float64, 2),
+                "curve_interval": (np.float64, 2), "class_rows": (np.int64, 1)},
+    "regression": {"members": (np.int64, 1), "left_out": (np.int32, 1), "value_sum": (np.float64, 1),
+                   "sq_err": (np.float64, 1), "sums": (np.float64, 1), "curve": (np.float64, 1),
+                   "curve_interval": (np.float64, 2)},
+}
+
+
+def save(ensemble, path) -> None:
+    """Write the ensemble to path (atomically: a crash never leaves a torn model file)."""
+    arrays = {}
+    if ensemble.forest is not None:
+        arrays.update({"tree_" + k: v for k, v in ensemble.forest.arrays.items()})
+    arrays.update({"bin_" + k: v for k, v in ensemble.binning.to_arrays().items()})
+    arrays.update({"oob_" + k: v for k, v in ensemble.oob.arrays().items()})
+    header = {"format": FORMAT, "format_version": FORMAT_VERSION, "baggr_version": __version__,
+              "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+              "schema": ensemble.schema.to_json(), "config": ensemble.config.to_dict(),
+              "has_trees": ensemble.forest is not None, "oob": ensemble.oob.summary(),
+              "stats": {k: (float(v) if isinstance(v, (float, np.floating)) else int(v)) for k, v in ensemble.stats.items()}}
+    try:
+        npzfile.write_atomic(path, arrays, header)
+    except OSError as e:
+        raise BaggrError(f"cannot write the model file {os.fspath(path)}: {e.strerror or e}") from None
+
+
+def load(path):
+    """Read and validate a model file; any damage gives a ModelFileError naming the problem."""
+    from baggr.model.ensemble import Ensemble
+
+    header, arrays = npzfile.read(path, "model file")
+    if header.get("format") != FORMAT:
+        raise ModelFileError(f"{os.fspath(path)} is not a baggr model file")
+    version = header.get("format_version")
+    if not isinstance(version, int) or version < 1:
+        raise ModelFileError(f"{os.fspath(path)}: format version {version!r} is not valid")
+    if version > FORMAT_VERSION:
+        raise ModelFileError(f"{os.fspath(path)} was written by a newer baggr (format {version}; "
+                             f"this baggr {__version__} reads up to {FORMAT_VERSION}): upgrade baggr to read it")
+    try:
+        schema = data.Schema.from_json(header["schema"])
+        config = Config.from_dict(header["config"])
+    except BaggrError as e:
+        raise ModelFileError(f"{os.fspath(path)}: {e}") from None
+    except (KeyError, TypeError, ValueError) as e:
+        raise ModelFileError(f"{os.fspath(path)}: the header is incomplete or damaged ({e})") from None
+    binning = data.Binning.from_arrays({k[4:]: v for k, v in arrays.items() if k.startswith("bin_")})
+    p = len(schema.names)
+    if binning.n_bins.shape[0] != p:
+        raise ModelFileError(f"{os.fspath(path)}: binning has {binning.n_bins.shape[0]} features, schema {p}")
+    n_out = max(1, len(schema.classes)) if schema.task == "classes" else 1
+    forest = None
+    if header.get("has_trees"):
+        forest = Forest({k[5:]: v for k, v in arrays.items() if k.startswith("tree_")})
+        forest.validate(p, n_out)
+        if np.any((forest.arrays["is_cat"] == 1) != binning.is_cat[np.maximum(forest.arrays["feature"], 0)].astype(bool)
+                  & (forest.arrays["feature"] >= 0)):
+            raise ModelFileError(f"{os.fspath(path)}: a split's kind does not match its feature's kind")
+    oob_arrays = {k[4:]: v for k, v in arrays.items() if k.startswith("oob_")}
+    _check_oob(oob_arrays, schema, path)
+    stats = header.get("stats") if isinstance(header.get("stats"), dict) else {}
+    return Ensemble(schema, binning, config, forest, OOB(schema.task, schema.classes, oob_arrays), stats)
+
+
+def _check_oob(a: dict, schema, path) -> None:
+    fields = OOB_FIELDS.get(schema.task)
+    if fields is None:
+        raise ModelFileError(f"{os.fspath(path)}: unknown task {schema.task!r}")
+    for name, (dtype, ndim) in fields.items():
+        x = a.get(name)
+        if x is None:
+            raise ModelFileError(f"{os.fspath(path)} lacks the OOB array '{name}'")
+        if x.ndim != ndim or (dtype is not None and x.dtype != np.dtype(dtype)):
+            raise ModelFileError(f"{os.fspath(path)}: OOB array '{name}' has the wrong type or shape")
+    n = a["left_out"].shape[0]
+    m = int(a["members"][0]) if a["members"].shape[0] == 1 else -1
+    if m < 0 or a["curve"].shape[0] != m or a["curve_interval"].shape != (m, 2):
+        raise ModelFileError(f"{os.fspath(path)}: the OOB curve does not match the member count")
+    if schema.task == "classes":
+        c = len(schema.classes)
+        if a["votes"].shape != (n, c) or a["votes"].dtype not in (np.int32, np.float64) or a["pred"].shape != (n,):
+            raise ModelFileError(f"{os.fspath(path)}: the OOB votes do not match the rows and classes")
+        if np.any((a["pred"] < -1) | (a["pred"] >= c)) or a["confusion"].shape != (c, c) or a["class_curve"].shape != (m, c):
+            raise ModelFileError(f"{os.fspath(path)}: the OOB class figures are damaged")
+        if a["totals"].shape != (2,) or a["class_wrong"].shape != (c,) or a["class_covered"].shape != (c,) \
+                or a["class_rows"].shape != (c,):
+            raise ModelFileError(f"{os.fspath(path)}: the OOB class counts are damaged")
+    else:
+        if a["value_sum"].shape != (n,) or a["sq_err"].shape != (n,) or a["sums"].shape != (5,):
+            raise ModelFileError(f"{os.fspath(path)}: the OOB sums are damaged")

@@ -1,0 +1,2 @@
+"""Out-of-bag figures: tallies folded in member order (tally), the OOB view of a run (view) and
+the intervals they print (intervals)."""
