@@ -11,7 +11,7 @@ def __getattr__(name):
         from baggr.engine import train
         return train
     if name == "load":
-        from baggr.model.file import load
+        from baggr.model.ensemble import load
         return load
     if name == "read_table":
         from baggr.data import read_table

@@ -14,7 +14,8 @@ import numpy as np
 
 import baggr
 from baggr.oob import tally_kernels
-from baggr.engine import Grower, prepare
+from baggr.backends.member import Grower
+from baggr.data.prepared import prepare
 from baggr.jit import kernel
 from baggr.oob.tally import MemberDelta, Tally
 from util import twonorm

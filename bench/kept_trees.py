@@ -12,7 +12,8 @@ import time
 import psutil
 
 import baggr
-from baggr.engine import Training, prepare
+from baggr.data.prepared import prepare
+from baggr.engine import Training
 from util import PeakRSS, friedman1, mib
 
 

@@ -21,7 +21,8 @@ import time
 import numpy as np
 
 import baggr
-from baggr.engine import Training, prepare
+from baggr.data.prepared import prepare
+from baggr.engine import Training
 from baggr.jit import kernel
 from util import PeakRSS, friedman1, mib, twonorm
 

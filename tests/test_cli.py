@@ -21,7 +21,7 @@ from baggr.model import npzfile
 from baggr.cli.main import COMMANDS
 from baggr.config import Config
 from baggr.engine import train
-from baggr.model.file import load
+from baggr.model.ensemble import load
 from baggr.runs import MODEL, RunDir, RunSettings, create, fingerprint, init_config
 
 BAGGR = [sys.executable, "-m", "baggr.cli"]

@@ -24,7 +24,7 @@ import pytest
 
 from baggr.runs import journal
 from baggr.model import npzfile
-from baggr.model.file import load
+from baggr.model.ensemble import load
 from baggr.runs import CHECKPOINT, Lock, MODEL, RunDir
 from generators import noisy_halves
 

@@ -417,7 +417,7 @@ def cmd_predict(args) -> int:
     import pyarrow as pa
 
     from baggr import data
-    from baggr.model import file as model
+    from baggr.model import ensemble as model
     from baggr.errors import ModelFileError
     from baggr.runs import MODEL, RunDir, RunDirError
     src = Path(args.model)

@@ -38,7 +38,7 @@ class RunReport:
 
 def load(path) -> RunReport:
     """A run directory's report figures (model.npz, or the checkpoint when it is further on), or a model file's."""
-    from baggr.model.file import load as load_model
+    from baggr.model.ensemble import load as load_model
     p = Path(path)
     if p.is_file():
         ens = load_model(p)

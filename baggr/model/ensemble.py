@@ -6,6 +6,7 @@ import numpy as np
 from baggr import data
 from baggr.config import Config
 from baggr.errors import BaggrError
+from baggr.model import file
 from baggr.model.forest import Forest
 from baggr.oob.view import OOB
 from baggr.model.scoring import score
@@ -17,13 +18,6 @@ class Ensemble:
     def __init__(self, schema, binning, config: Config, forest: Forest | None, oob: OOB, stats: dict):
         self.schema, self.binning, self.config = schema, binning, config
         self.forest, self.oob, self.stats = forest, oob, stats
-
-    @classmethod
-    def from_training(cls, training) -> "Ensemble":
-        p = training.prep
-        forest = training.forest()
-        stats = dict(training.stats, seconds=training.elapsed)
-        return cls(p.schema, p.binning, training.config, forest, OOB.from_tally(training.tally, p.schema.classes), stats)
 
     @property
     def task(self) -> str:
@@ -61,10 +55,15 @@ class Ensemble:
         return s[:, 0] / self.forest.members
 
     def save(self, path) -> None:
-        from baggr.model.file import save
-        save(self, path)
+        """Write the model file (trees, binning, schema, OOB results) to path, atomically."""
+        file.save(self, path)
 
     def __repr__(self) -> str:
         e = self.oob.error
         what = "OOB error" if self.task == "classes" else "OOB MSE"
         return f"<baggr.Ensemble {self.task}, {self.members} members, {what} {e:.4g}>"
+
+
+def load(path) -> Ensemble:
+    """Read a model file; any damage gives a ModelFileError naming the problem."""
+    return Ensemble(*file.read(path))

@@ -29,7 +29,7 @@ OOB_FIELDS = {
 }
 
 
-def save(ensemble, path) -> None:
+def save(ensemble, path) -> None:  # ensemble: a baggr.model.ensemble.Ensemble
     """Write the ensemble to path (atomically: a crash never leaves a torn model file)."""
     arrays = {}
     if ensemble.forest is not None:
@@ -47,10 +47,9 @@ def save(ensemble, path) -> None:
         raise BaggrError(f"cannot write the model file {os.fspath(path)}: {e.strerror or e}") from None
 
 
-def load(path):
-    """Read and validate a model file; any damage gives a ModelFileError naming the problem."""
-    from baggr.model.ensemble import Ensemble
-
+def read(path) -> tuple:
+    """(schema, binning, config, forest, oob, stats) of a model file, validated in full; any damage
+    gives a ModelFileError naming the problem (baggr.model.ensemble.load makes the Ensemble)."""
     header, arrays = npzfile.read(path, "model file")
     if header.get("format") != FORMAT:
         raise ModelFileError(f"{os.fspath(path)} is not a baggr model file")
@@ -82,7 +81,7 @@ def load(path):
     oob_arrays = {k[4:]: v for k, v in arrays.items() if k.startswith("oob_")}
     _check_oob(oob_arrays, schema, path)
     stats = header.get("stats") if isinstance(header.get("stats"), dict) else {}
-    return Ensemble(schema, binning, config, forest, OOB(schema.task, schema.classes, oob_arrays), stats)
+    return schema, binning, config, forest, OOB(schema.task, schema.classes, oob_arrays), stats
 
 
 def _check_oob(a: dict, schema, path) -> None:
