@@ -1,5 +1,5 @@
 """baggr: bagged tree ensembles with a single-pass out-of-bag estimate."""
-__version__ = "0.1.0"
+from baggr.version import __version__  # noqa: E402
 
 from baggr.config import Config  # noqa: E402
 from baggr.errors import BaggrError, ConfigError, DataError, ModelFileError  # noqa: E402

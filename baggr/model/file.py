@@ -6,7 +6,7 @@ import time
 
 import numpy as np
 
-from baggr import __version__
+from baggr.version import __version__
 from baggr import data
 from baggr.model import npzfile
 from baggr.config import Config

@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from baggr import __version__
+from baggr.version import __version__
 from baggr.model import npzfile
 from baggr.atomic import replace_atomic
 from baggr.config import Config
