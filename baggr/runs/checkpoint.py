@@ -1,0 +1,270 @@
+"""Checkpoints of a run: the tallies in checkpoint.npz, the kept trees in append-only chunk files
+members/AAAAAA-BBBBBB.npz, written in the background and atomically; reading them back; the fault
+hooks the tests use to kill a job or fill its disk at a chosen point.
+"""
+from __future__ import annotations
+
+import errno
+import os
+import shutil
+import signal
+import time
+from pathlib import Path
+
+import numpy as np
+
+from baggr.version import __version__
+from baggr.errors import ModelFileError
+from baggr.model import npzfile
+from baggr.runs.files import CHECKPOINT, CHECKPOINT_INFO, CONFIG, MEMBERS, write_error, write_json_atomic
+from baggr.runs.rundir import RunDir, RunSettings
+
+CHECKPOINT_FORMAT = "baggr-checkpoint"
+CHECKPOINT_VERSION = 1
+CHUNK_FORMAT = "baggr-members"
+
+FAULT_CHECKPOINT = "BAGGR_FAULT_CHECKPOINT"  # "enospc" or "enospc:N": the N-th checkpoint write fails
+FAULT_KILL = "BAGGR_FAULT_KILL"              # "member:N", "chunk:N" or "model": SIGKILL itself there
+
+
+def _chunk_name(a: int, b: int) -> str:
+    return f"{MEMBERS}/{a:06d}-{b:06d}.npz"
+
+
+def _fault_due(count: int) -> bool:
+    spec = os.environ.get(FAULT_CHECKPOINT, "")
+    if not spec.startswith("enospc"):
+        return False
+    _, _, n = spec.partition(":")
+    return count >= (int(n) if n.isdigit() else 1)
+
+
+def fault_kill(point: str, n: int | None = None) -> None:
+    """Test hook: die by SIGKILL at a named point (a real kill -9, no cleanup)."""
+    spec = os.environ.get(FAULT_KILL)
+    if spec and spec == (point if n is None else f"{point}:{n}"):
+        os.kill(os.getpid(), signal.SIGKILL)
+
+
+class Checkpointer:
+    """Writes checkpoints of a Training: new kept trees to a chunk file, then the tallies, atomically.
+
+    The main thread only snapshots (a copy of the tallies, the list of new trees); the files are
+    written, fsynced and renamed in a background thread, so training goes on meanwhile. One write
+    at a time; its error is raised in the main thread at the next due() / wait().
+    """
+
+    def __init__(self, rd: RunDir, training, settings: RunSettings, header_extra: dict, journal=None,
+                 background: bool = True):
+        self.rd, self.training, self.settings = rd, training, settings
+        self.header_extra, self.journal, self.background = header_extra, journal, background
+        self.chunks: list = []                  # [a, b, name] of the kept trees written so far
+        self.member = training.next_member      # members covered by the latest durable checkpoint
+        self.last_started = self.member         # members covered by the latest write begun
+        self.t_last = time.monotonic()
+        self.cost = 0.0                         # seconds the latest checkpoint held up training
+        self.writes = 0
+        self.seconds = 0.0                      # seconds checkpoints held up training, in all
+        self.write_seconds = 0.0                # seconds spent writing files (mostly in the background)
+        self.write_cpu = 0.0                    # CPU seconds of that writing (what it takes from training)
+        self._thread = None
+        self._result = None
+
+    @property
+    def busy(self) -> bool:
+        return self._thread is not None
+
+    def due(self) -> bool:
+        self.poll()
+        m, s = self.training.next_member, self.settings
+        if m <= self.last_started or (self.busy and s.checkpoint_budget):
+            return False   # the default policy skips while a write is in flight; an exact one waits for it
+        since = time.monotonic() - self.t_last
+        if m - self.last_started < s.checkpoint_members and since < s.checkpoint_seconds:
+            return False
+        # Keep what checkpoints hold up under the budget share of the time, whatever the data size.
+        return not s.checkpoint_budget or since >= max(s.checkpoint_min_seconds, self.cost / s.checkpoint_budget)
+
+    def write(self, wait: bool = False) -> None:
+        """Checkpoint the training as it is now; with wait, return once it is on disk.
+
+        An OSError becomes DiskFullError / RunDirError and the previous checkpoint stays intact.
+        """
+        self.wait()
+        t0 = time.monotonic()
+        tr = self.training
+        m = tr.next_member
+        self.writes += 1
+        self.last_started = m
+        kept = self.chunks[-1][1] if self.chunks else 0
+        trees = list(tr.trees[kept:m]) if tr.config.keep_members and m > kept else []
+        arrays, header = tr.checkpoint()
+        arrays = {k: np.array(v, copy=True) for k, v in arrays.items()}   # the tallies move on meanwhile
+        if tr.prep.task == "classes":
+            arrays["class_rows"] = np.asarray(tr.tally.class_rows, np.int64).copy()
+        header.update(self.header_extra, format=CHECKPOINT_FORMAT, format_version=CHECKPOINT_VERSION,
+                      baggr_version=__version__, t=time.time())
+        job = (self.writes, m, kept, trees, arrays, header, list(self.chunks))
+        if self.background:
+            import threading
+            self._thread = threading.Thread(target=self._work, args=job, name="baggr-checkpoint", daemon=True)
+            self._thread.start()
+        else:
+            self._thread = True
+            self._work(*job)
+        self.t_last = time.monotonic()
+        self.cost = self.t_last - t0
+        self.seconds += self.cost
+        if wait or not self.background:
+            self.wait()
+
+    def _work(self, n, m, kept, trees, arrays, header, chunks) -> None:
+        """Write one checkpoint's files (any thread); the outcome waits in _result."""
+        t0, c0 = time.monotonic(), time.thread_time()
+        try:
+            if trees:
+                name = _chunk_name(kept, m)
+                self._write_chunk(kept, m, name, trees)
+                chunks.append([kept, m, name])
+                fault_kill("chunk", n)
+            if _fault_due(n):
+                raise OSError(errno.ENOSPC, "No space left on device (simulated by " + FAULT_CHECKPOINT + ")")
+            header["chunks"] = chunks
+            npzfile.write_atomic(self.rd / CHECKPOINT, arrays, header)
+            write_json_atomic(self.rd / CHECKPOINT_INFO, {"member": m, "elapsed": header["elapsed"],
+                                                          "t": header["t"], "chunks": chunks})
+            self._result = (m, chunks, None, time.monotonic() - t0, time.thread_time() - c0)
+        except BaseException as e:   # handed to the main thread
+            self._result = (m, None, e, time.monotonic() - t0, time.thread_time() - c0)
+
+    def poll(self) -> None:
+        """Take in a finished background write (raising its error)."""
+        if self._thread is not None and (self._thread is True or not self._thread.is_alive()):
+            self._take()
+
+    def wait(self) -> None:
+        """Wait for the write in flight, if any (raising its error)."""
+        if self._thread is not None:
+            t0 = time.monotonic()
+            if self._thread is not True:
+                self._thread.join()
+            self.seconds += time.monotonic() - t0 if self.background else 0.0
+            self._take()
+
+    def _take(self) -> None:
+        m, chunks, err, took, cpu = self._result
+        self._thread, self._result = None, None
+        self.write_seconds += took
+        self.write_cpu += cpu
+        if err is not None:
+            if isinstance(err, OSError):
+                raise write_error("a checkpoint to", self.rd.path, err) from None
+            raise err
+        self.chunks, self.member = chunks, m
+        if self.journal is not None:
+            self.journal.write("checkpoint", member=m)
+
+    def _write_chunk(self, a: int, b: int, name: str, trees: list) -> None:
+        from baggr.model.forest import Forest
+        path = self.rd / name
+        path.parent.mkdir(exist_ok=True)
+        forest = Forest.pack(trees, self.training.n_out)
+        npzfile.write_atomic(path, forest.arrays, {"format": CHUNK_FORMAT, "format_version": CHECKPOINT_VERSION,
+                                                   "first": a, "last": b})
+
+    def restore(self) -> bool:
+        """Continue the training from the checkpoint on disk, if any; True when one was loaded."""
+        path = self.rd / CHECKPOINT
+        if not path.exists():
+            self._drop_unreferenced()
+            return False
+        header, arrays = npzfile.read(path, "checkpoint file")
+        check_checkpoint_header(path, header, "resume")
+        tr = self.training
+        if header.get("config") != tr.config.to_dict():
+            raise ModelFileError(f"{path} belongs to other settings than {CONFIG}; it cannot be resumed")
+        if header.get("sha256") not in (None, self.header_extra.get("sha256")):
+            raise ModelFileError(f"{path} was made from other data than the run's data file")
+        chunks = header.get("chunks") or []
+        trees, expect = [], 0
+        if tr.config.keep_members:
+            trees = self._load_chunks(chunks, tr.prep.codes.shape[0])
+            expect = len(trees)
+        tally = {k: v for k, v in arrays.items() if k.startswith("tally_")}
+        tr.restore(tally, header, trees if tr.config.keep_members else None)
+        if tr.config.keep_members and expect != tr.next_member:
+            raise ModelFileError(f"{path}: chunk files hold {expect} members, the tallies {tr.next_member}")
+        self.chunks, self.member = [list(c) for c in chunks], tr.next_member
+        self.last_started = self.member
+        self._drop_unreferenced()
+        return True
+
+    def _load_chunks(self, chunks, n_features: int) -> list:
+        from baggr.model.forest import Forest
+        trees, at = [], 0
+        for c in chunks:
+            if not (isinstance(c, list) and len(c) == 3 and c[0] == at and c[1] > c[0] and isinstance(c[2], str)
+                    and c[2] == _chunk_name(c[0], c[1])):
+                raise ModelFileError(f"{self.rd / CHECKPOINT}: its list of member files is damaged")
+            h, a = npzfile.read(self.rd / c[2], "members file")
+            if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
+                raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
+            forest = Forest(a)
+            forest.validate(n_features, self.training.n_out)
+            if forest.members != c[1] - c[0]:
+                raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
+            trees.extend(forest.unpack())
+            at = c[1]
+        return trees
+
+    def _drop_unreferenced(self) -> None:
+        """Remove what a killed job left half done: chunk files its checkpoint never named, temp files."""
+        folder = self.rd / MEMBERS
+        keep = {Path(c[2]).name for c in self.chunks}
+        stale = list(self.rd.path.glob(".tmp-*"))
+        if folder.is_dir():
+            stale += [f for f in folder.iterdir() if f.name not in keep]
+        for f in stale:
+            try:
+                f.unlink()
+            except OSError:
+                pass
+
+    def remove(self) -> None:
+        remove_checkpoint(self.rd)
+
+
+def remove_checkpoint(rd: RunDir) -> None:
+    """Drop the checkpoint and chunk files once model.npz holds everything."""
+    for name in (CHECKPOINT, CHECKPOINT_INFO):
+        try:
+            (rd / name).unlink()
+        except FileNotFoundError:
+            pass
+    shutil.rmtree(rd / MEMBERS, ignore_errors=True)
+
+
+def read_checkpoint(rd: RunDir) -> tuple[dict, dict] | None:
+    """(header, arrays) of the run's checkpoint, or None; a reader may call this while the job replaces it."""
+    path = rd / CHECKPOINT
+    if not path.exists():
+        return None
+    try:
+        header, arrays = npzfile.read(path, "checkpoint file")
+    except ModelFileError:
+        if not path.exists():       # replaced or removed between the check and the read
+            return None
+        raise
+    check_checkpoint_header(path, header, "read")
+    return header, arrays
+
+
+def check_checkpoint_header(path, header: dict, to: str) -> None:
+    """Refuse a file that is not a baggr checkpoint or comes from a newer format; `to`: what the
+    upgrade would let the user do ("resume", "read")."""
+    if header.get("format") != CHECKPOINT_FORMAT:
+        raise ModelFileError(f"{path} is not a baggr checkpoint")
+    v = header.get("format_version")
+    if not isinstance(v, int) or v > CHECKPOINT_VERSION:
+        raise ModelFileError(f"{path} was written by a newer baggr (checkpoint format {v!r}; this baggr "
+                             f"{__version__} reads up to {CHECKPOINT_VERSION}): upgrade baggr to {to} it")

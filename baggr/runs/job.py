@@ -1,0 +1,313 @@
+"""The training job of a run directory: it reads the data, resumes from the checkpoint, trains,
+checkpoints, stops on a signal, a stop request or a settled curve, and saves the model.
+
+Members are pure functions of (seed, m), so a job killed at any moment resumes from its last
+checkpoint and ends bit-identical to one never interrupted.
+"""
+from __future__ import annotations
+
+import math
+import os
+import signal
+import socket
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from baggr.version import __version__
+from baggr.config import Config
+from baggr.errors import BaggrError, ModelFileError
+from baggr.runs.checkpoint import FAULT_KILL, Checkpointer, fault_kill, remove_checkpoint
+from baggr.runs.files import CHECKPOINT, JOURNAL, MODEL, STOP, DiskFullError, write_error
+from baggr.runs.journal import JournalWriter
+from baggr.runs.rundir import RunDir, RunSettings, check_data
+
+
+def stable_now(curve: np.ndarray, interval: np.ndarray, m: int, settings: RunSettings) -> str | None:
+    """Why the curve counts as settled after m members (None if not).
+
+    Rule: m >= stable_min_members, and the last w = max(stable_window, m // stable_window_part)
+    values of the curve all lie within +-h of the current value, h the half-width of the current
+    95% interval.
+    """
+    if m < settings.stable_min_members or m < 1:
+        return None
+    w = min(m, max(settings.stable_window, m // settings.stable_window_part))
+    e = float(curve[m - 1])
+    lo, hi = (float(v) for v in interval[m - 1])
+    if not (math.isfinite(e) and math.isfinite(lo) and math.isfinite(hi)):
+        return None
+    h = (hi - lo) / 2.0
+    window = np.asarray(curve[m - w:m], dtype=np.float64)
+    if not np.all(np.isfinite(window)) or np.any(np.abs(window - e) > h):
+        return None
+    return f"stable: the OOB error stayed within {e:.4g} +- {h:.2g} over the last {w} members"
+
+
+@dataclass
+class Outcome:
+    """How a job ended."""
+
+    status: str          # finished | stopped | failed
+    reason: str
+    member: int
+    elapsed: float
+    message: str         # one line for the user
+
+    @property
+    def code(self) -> int:
+        return 0 if self.status in ("finished", "stopped") else 2
+
+
+class Job:
+    """The training job of one run directory: reads its data, resumes from a checkpoint, trains, saves.
+
+    progress: an object with begin(start_fields), member(fields), note(text), end(outcome) and close().
+    verify: check the data file's SHA-256 against config.json before reading it.
+    """
+
+    SIGNALS = ("SIGINT", "SIGTERM", "SIGHUP")
+
+    def __init__(self, rd: RunDir, progress=None, *, verify: bool = True):
+        self.rd, self.progress, self.verify = rd, progress, verify
+        self.started = False         # the start line was written
+        self.stop_reason = None
+        self.saving = False
+        self.journal = None
+        self.training = None
+        self.checkpointer = None
+        self._old_handlers = {}
+
+    # -- signals
+    def _on_signal(self, signum, frame):
+        name = signal.Signals(signum).name
+        if self.stop_reason is None:
+            self.stop_reason = name
+            self._note(f"{name}: stopping after the member in hand (send it again to quit at once)")
+        elif not self.saving:
+            raise KeyboardInterrupt(name)
+
+    def _install_signals(self) -> None:
+        for name in self.SIGNALS:
+            sig = getattr(signal, name, None)
+            if sig is not None:
+                try:
+                    self._old_handlers[sig] = signal.signal(sig, self._on_signal)
+                except ValueError:   # not the main thread (e.g. a test calling run() in a thread)
+                    pass
+
+    def _restore_signals(self) -> None:
+        for sig, h in self._old_handlers.items():
+            try:
+                signal.signal(sig, h)
+            except (ValueError, TypeError):
+                pass
+        self._old_handlers.clear()
+
+    def _note(self, text: str) -> None:
+        if self.progress is not None:
+            self.progress.note(text)
+
+    # -- the run
+    def run(self) -> Outcome:
+        """Train to the end (or a stop); BaggrError for what the user can fix (after an end line "failed")."""
+        lock = self.rd.acquire()
+        self._install_signals()
+        try:
+            try:
+                _terminate_torn_line(self.rd / JOURNAL)
+                self.journal = JournalWriter(self.rd / JOURNAL)
+            except OSError as e:
+                raise write_error("the journal", self.rd / JOURNAL, e) from None
+            try:
+                return self._run()
+            except KeyboardInterrupt as e:
+                return self._quit(str(e) or "SIGINT")
+            except BaggrError as e:
+                self._end("failed", f"error: {e}")
+                raise
+            except OSError as e:   # a full or read-only disk under the run directory: the user's to fix
+                err = write_error("files in", self.rd.path, e)
+                self._end("failed", f"error: {err}")
+                raise err from None
+            except Exception as e:
+                self._end("failed", f"internal error: {type(e).__name__}: {e}")
+                raise
+        finally:
+            self._restore_signals()
+            if self.journal is not None:
+                self.journal.close()
+            lock.release()
+
+    def _run(self) -> Outcome:
+        rd = self.rd
+        cfg = rd.read_config()
+        config = Config.from_dict(cfg["config"])
+        settings = RunSettings.from_dict(cfg.get("run"))
+        info = cfg["data"]
+        st, _ = rd.state()
+        if st.status == "finished" and (rd / MODEL).exists():
+            remove_checkpoint(rd)   # a crash may have left them after the end line
+            return Outcome("finished", st.reason or "finished", st.members, st.elapsed,
+                           f"{rd.path} is finished ({st.members} members); nothing to resume")
+        if self.verify:
+            check_data(info)
+        try:
+            (rd / STOP).unlink()     # a stop request from an earlier job is not meant for this one
+        except FileNotFoundError:
+            pass
+        from baggr.data.table import read_table      # not .data: a bad file is told before numba is even imported
+        X, y = read_table(info["path"], cfg["target"])
+        from baggr.engine import Training
+        tr = self.training = Training(X, y, config, target=cfg["target"])
+        if cfg["data"].get("rows") is None:
+            cfg["data"].update(rows=int(tr.prep.n_rows), features=int(tr.prep.codes.shape[0]))
+            rd.write_config(cfg)
+        extra = {"sha256": info.get("sha256"), "config": config.to_dict(), "schema": tr.prep.schema.to_json(),
+                 "target": cfg["target"]}
+        self.checkpointer = ck = Checkpointer(rd, tr, settings, extra, self.journal)
+        try:
+            resumed = ck.restore()
+        except ModelFileError as e:
+            raise ModelFileError(f"{e}; to start this run over from member 0, remove {rd / CHECKPOINT}") from None
+        if self.stop_reason:
+            return self._stopped(tr, write_checkpoint=False)
+        self._start(tr, cfg, resumed or st.starts > 0)
+        if tr.next_member < config.members:
+            kill_members = os.environ.get(FAULT_KILL, "")
+
+            def on_member(ev):
+                fields = ev.journal_fields()
+                self.journal.write("member", **fields)
+                if self.progress is not None:
+                    self.progress.member(fields)
+                if kill_members:
+                    fault_kill("member", fields["member"])
+                if ck.due():
+                    ck.write()
+
+            def should_stop():
+                if self.stop_reason:
+                    return True
+                if (rd / STOP).exists():
+                    self.stop_reason = "stop requested"
+                    return True
+                if settings.stop_when_stable:
+                    why = stable_now(tr.tally.curve, tr.tally.curve_interval, tr.next_member, settings)
+                    if why:
+                        self.stop_reason = why
+                        return True
+                return False
+
+            tr.run(on_member=on_member, should_stop=should_stop)
+        if tr.next_member >= config.members or (self.stop_reason or "").startswith("stable"):
+            return self._finished(tr)
+        return self._stopped(tr, write_checkpoint=True)
+
+    def _start(self, tr, cfg: dict, resumed: bool) -> None:
+        import psutil
+        p = tr.prep
+        classes = list(p.schema.classes)
+        fields = {"pid": os.getpid(), "pid_started": psutil.Process().create_time(), "host": socket.gethostname(),
+                  "threads": tr.config.resolved_threads(), "task": p.task, "classes": classes,
+                  "class_rows": [int(v) for v in tr.tally.class_rows] if p.task == "classes" else [],
+                  "rows": int(p.n_rows), "features": int(p.codes.shape[0]), "members_target": tr.config.members,
+                  "first_member": tr.next_member, "config": tr.config.to_dict(), "version": __version__,
+                  "target": cfg.get("target"), "data": cfg["data"].get("path")}
+        if resumed:
+            fields["resumed"] = True
+        self.journal.write("start", **fields)
+        self.started = True
+        if self.progress is not None:
+            self.progress.begin(fields)
+
+    def _save_model(self, tr) -> None:
+        ens = tr.ensemble()
+        try:
+            ens.save(self.rd / MODEL)
+        except BaggrError as e:
+            if "No space" in str(e) or "Disk quota" in str(e):
+                raise DiskFullError(f"disk full: {e}") from None
+            raise
+
+    def _finished(self, tr) -> Outcome:
+        self.saving = True
+        m = tr.next_member
+        if m == 0:
+            raise BaggrError("no member was grown")
+        self.checkpointer.wait()
+        self._save_model(tr)
+        fault_kill("model")
+        reason = self.stop_reason if (self.stop_reason or "").startswith("stable") else f"reached {m} members"
+        self._end("finished", reason)
+        self.checkpointer.remove()
+        return Outcome("finished", reason, m, tr.elapsed,
+                       f"finished: {m} members in {fmt_seconds(tr.elapsed)}; model saved to {self.rd / MODEL}")
+
+    def _stopped(self, tr, write_checkpoint: bool) -> Outcome:
+        self.saving = True
+        m = tr.next_member
+        reason = self.stop_reason or "stopped"
+        if m > 0:
+            self.checkpointer.wait()
+            if write_checkpoint and m > self.checkpointer.member:
+                self.checkpointer.write(wait=True)
+            self._save_model(tr)
+        self._end("stopped", reason)
+        if reason == "stop requested":
+            try:
+                (self.rd / STOP).unlink()   # honoured: it must not stop the next job too
+            except FileNotFoundError:
+                pass
+        what = "model and checkpoint saved" if m else "nothing to save yet"
+        return Outcome("stopped", reason, m, tr.elapsed,
+                       f"stopped at {m} of {tr.config.members} members ({reason}); {what}; "
+                       f"continue with: baggr resume {self.rd.path}")
+
+    def _quit(self, name: str) -> Outcome:
+        """A second signal: leave now without saving; the last checkpoint stays for resume."""
+        m = self.checkpointer.member if self.checkpointer else 0
+        reason = f"{name} twice: quit without saving; resume goes on from member {m}"
+        self._end("stopped", reason)
+        el = self.training.elapsed if self.training else 0.0
+        return Outcome("stopped", reason, m, el, f"quit at once ({name} twice); "
+                       f"continue from the checkpoint at member {m} with: baggr resume {self.rd.path}")
+
+    def _end(self, status: str, reason: str) -> None:
+        if self.journal is None:
+            return
+        tr = self.training
+        fields = {"status": status, "reason": reason, "member": tr.next_member if tr else 0,
+                  "elapsed": round(tr.elapsed, 4) if tr else 0.0}
+        try:
+            self.journal.write("end", **fields)
+        except OSError:
+            pass   # a full disk may refuse even this line; the checkpoint is what matters
+
+
+def _terminate_torn_line(path: Path) -> None:
+    """End a torn last line (a job killed mid-write) so the next line is not glued onto it."""
+    try:
+        with open(path, "rb+") as f:
+            f.seek(0, os.SEEK_END)
+            if f.tell() == 0:
+                return
+            f.seek(-1, os.SEEK_END)
+            if f.read(1) != b"\n":
+                f.write(b"\n")
+    except FileNotFoundError:
+        pass
+
+
+def fmt_seconds(s: float) -> str:
+    """1:02:03 / 2:03 / 4.2 s."""
+    if s is None or not math.isfinite(s):
+        return "-"
+    if s < 60:
+        return f"{s:.1f} s"
+    s = int(round(s))
+    h, rem = divmod(s, 3600)
+    m, sec = divmod(rem, 60)
+    return f"{h}:{m:02d}:{sec:02d}" if h else f"{m}:{sec:02d}"
+
