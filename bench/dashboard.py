@@ -154,7 +154,7 @@ def main() -> None:
         del state
         end_to_end(run_dir, a.members, size)
         asyncio.run(measure(run_dir, a.members, a.rate, a.seconds, size))
-    import baggr.runs.journal as journal
+    import baggr.runs.journal_reader as journal
     print(f"machine: {os.cpu_count()} cpus, load {os.getloadavg()[0]:.1f}; "
           f"journal parser: {'orjson' if journal._orjson is not None else 'json (orjson not installed)'}")
 

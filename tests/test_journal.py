@@ -20,7 +20,7 @@ from baggr.runs.journal import (JOURNAL, JournalReader, JournalWriter, RunDirErr
 @pytest.fixture(params=["json", "orjson"])
 def parser(request, monkeypatch):
     """Every reader test runs with the json module and, where it is installed, with orjson."""
-    import baggr.runs.journal as journal
+    import baggr.runs.journal_reader as journal
     if request.param == "orjson":
         monkeypatch.setattr(journal, "_orjson", pytest.importorskip("orjson"))
     else:

@@ -6,7 +6,10 @@ rundir      a run directory, its settings (config.json), the data file's fingerp
 checkpoint  checkpoints and kept-tree chunk files, written in the background; the fault hooks
 job         the training job: resume, train, stop on a signal or a settled curve, save
 detach      the job as its own process, and waiting for it to start
-journal     the journal (pure Python; all the dashboard imports)
+journal     the journal's names, gathered for the dashboard (the one module of baggr.runs it imports);
+            its parts: journal_lines (the line format), journal_writer, journal_reader (tailing),
+            run_state (the folded state; downsample cuts its curve for a plot), job_status (the
+            job's process, its status, the stop file). All pure Python.
 
 The names the command and the tests use are gathered here, each loaded on first use, so that
 `import baggr.runs.journal` (the dashboard) loads none of the rest.

@@ -10,7 +10,7 @@ import time
 from pathlib import Path
 
 from baggr.runs.files import JOB_LOG, JOURNAL, write_error
-from baggr.runs.journal import JournalReader
+from baggr.runs.journal_reader import JournalReader
 from baggr.runs.rundir import RunDir
 
 

@@ -20,7 +20,7 @@ from baggr.config import Config
 from baggr.errors import BaggrError, ModelFileError
 from baggr.runs.checkpoint import FAULT_KILL, Checkpointer, fault_kill, remove_checkpoint
 from baggr.runs.files import CHECKPOINT, JOURNAL, MODEL, STOP, DiskFullError, write_error
-from baggr.runs.journal import JournalWriter
+from baggr.runs.journal_writer import JournalWriter
 from baggr.runs.rundir import RunDir, RunSettings, check_data
 
 

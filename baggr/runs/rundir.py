@@ -18,7 +18,9 @@ from baggr.version import __version__
 from baggr.config import Config
 from baggr.errors import DataError, RunDirError
 from baggr.runs.files import CONFIG, JOURNAL, LOCK, RUN_FILES, write_error, write_json_atomic
+from baggr.runs.job_status import job_status
 from baggr.runs.lock import Lock, lock_holder
+from baggr.runs.run_state import read_state
 
 
 @dataclass
@@ -123,9 +125,8 @@ class RunDir:
 
     def state(self):
         """(RunState of the journal, job status word: running / finished / stopped / failed / crashed / waiting)."""
-        from baggr.runs import journal
-        st = journal.read_state(self.path)
-        return st, journal.job_status(self.path, st)
+        st = read_state(self.path)
+        return st, job_status(self.path, st)
 
     def lock_holder(self) -> int | None:
         """Pid of the job holding the lock, or None when nobody holds it."""
