@@ -225,7 +225,9 @@ def test_plain_progress_prints_every_n_members_or_ten_seconds():
     slow = [m for m in shown if m > 300][:-1]         # the last line is the last member, whenever it comes
     assert all(b - a == 10 for a, b in zip(slow, slow[1:]))
     assert "\x1b" not in out.getvalue()
-    assert "OOB error 0.1500 (95% 0.1300-0.1700)" in lines[1] and "member   1/400" in lines[1]
+    # shares as percentages, as on the dashboard and in the report text (issue 15)
+    assert "OOB error 15.00% (95% 13.0-17.0%)" in lines[1] and "member   1/400" in lines[1]
+    assert "2.00 members/s" in lines[1] and "coverage 10.0%" in lines[1]
 
 
 def test_rich_progress_draws_the_bar():
@@ -237,8 +239,29 @@ def test_rich_progress_draws_the_bar():
     p.note("SIGINT: stopping [after] the member in hand")
     p.close()
     text = buf.getvalue()
-    assert "20/50" in text and "OOB error 0.1500" in text
+    assert "20/50" in text and "OOB error 15.00%" in text and "━" in text
     assert "stopping [after] the member" in text              # notes are printed as they are (no markup)
+
+
+@pytest.mark.parametrize("width", [120, 100, 80, 60, 40, 30, 20])
+def test_the_progress_line_drops_fields_by_rank_members_and_error_last(width):
+    # At 80 columns the old bar line lost its bar and member count ("training OOB error 0.1395 ... le…").
+    from baggr.cli.progress import BAR, fit_line, line_parts
+    f = {"member": 634, "elapsed": 125.3, "error": 0.138812, "interval": [0.1213, 0.1561], "coverage": 1.0,
+         "rate": 5.07}
+    parts = line_parts(f, "classes", 3000, "training")
+    text = fit_line(parts, width, 634 / 3000).plain
+    assert len(text) <= width and "…" not in text
+    shown = [p for p in parts if (p[2] is BAR and "━" in text) or (p[2] is not BAR and p[2] in text)]
+    ranks = sorted(p[0] for p in shown)
+    assert ranks == sorted(p[0] for p in parts)[:len(ranks)]   # whole fields, strictly the most important ones
+    assert "634/3,000" in text                               # members done: the last to go
+    if width >= 30:
+        assert "OOB error 13.88%" in text                    # and the error next
+    if width >= 40:
+        assert "━" in text                                   # then the bar
+    if width >= 80:
+        assert "21%" in text and "left" in text and "(95% 12.1-15.6%)" in text
 
 
 def test_run_dir_require_names_the_problem(tmp_path):
@@ -270,4 +293,4 @@ def test_watch_without_the_dashboard_follows_the_journal(tmp_path, monkeypatch, 
         j.write("end", status="finished", reason="reached 3 members", member=3, elapsed=1.5)
     assert cli.main(["watch", str(rd.path)]) == 0
     out = capsys.readouterr().out
-    assert "member 1/3" in out and "member 3/3 100%" in out and "OOB error 0.2500" in out
+    assert "member 1/3" in out and "member 3/3 100%" in out and "OOB error 25.00%" in out

@@ -8,7 +8,7 @@ import textwrap
 import time
 from pathlib import Path
 
-from baggr.cli.launch import attach, discard, launch, run_mode, say
+from baggr.cli.launch import attach, discard, goes_on, launch, run_mode, say
 from baggr.errors import BaggrError, ConfigError
 
 
@@ -84,7 +84,7 @@ def cmd_watch(args) -> int:
     code = attach(rd)
     st, status = rd.state()
     if status == "running":
-        say(f"the job goes on (pid {st.pid}); reattach with: baggr watch {rd.path}")
+        say(goes_on(rd, st))
     return code
 
 

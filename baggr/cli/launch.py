@@ -16,7 +16,15 @@ def run_mode(args) -> str:
         return "plain"
     if getattr(args, "foreground", False):
         return "rich" if tty else "plain"
-    return "detached" if tty else "plain"
+    # the dashboard also reads keys: without a terminal on stdin the job runs here with plain lines
+    return "detached" if tty and _isatty(sys.stdin) else "plain"
+
+
+def _isatty(stream) -> bool:
+    try:
+        return stream is not None and stream.isatty()
+    except (AttributeError, ValueError, OSError):
+        return False
 
 
 def say(text: str = "") -> None:
@@ -103,7 +111,7 @@ def after_watching(rd) -> int:
     from baggr.runs import JOB_LOG
     st, status = rd.state()
     if status == "running":
-        say(f"the job goes on in the background (pid {st.pid}); reattach with: baggr watch {rd.path}")
+        say(goes_on(rd, st))
         return 0
     if status == "failed":
         sys.stderr.write(f"baggr: error: the job failed at {st.members} members: {st.reason}\n")
@@ -114,6 +122,12 @@ def after_watching(rd) -> int:
         return 2
     say(f"{status} at {st.members} members ({st.reason}); the figures: baggr report {rd.path}")
     return 0
+
+
+def goes_on(rd, st) -> str:
+    """The line said on leaving the dashboard (q or Ctrl-C) while the job runs: it goes on, and how to stop it."""
+    return (f"left the dashboard; the job goes on (pid {st.pid}). Stop it: baggr stop {rd.path}   "
+            f"watch again: baggr watch {rd.path}")
 
 
 def attach(rd) -> int:

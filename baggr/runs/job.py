@@ -301,13 +301,7 @@ def _terminate_torn_line(path: Path) -> None:
 
 
 def fmt_seconds(s: float) -> str:
-    """1:02:03 / 2:03 / 4.2 s."""
-    if s is None or not math.isfinite(s):
-        return "-"
-    if s < 60:
-        return f"{s:.1f} s"
-    s = int(round(s))
-    h, rem = divmod(s, 3600)
-    m, sec = divmod(rem, 60)
-    return f"{h}:{m:02d}:{sec:02d}" if h else f"{m}:{sec:02d}"
+    """4.2s / 42s / 3m 05s / 2h 10m: the one duration format of every surface (baggr.units)."""
+    from baggr.units import duration
+    return duration(s)
 
