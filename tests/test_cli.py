@@ -184,11 +184,11 @@ def test_report_of_a_running_job_shows_the_journals_latest_figures(files, tmp_pa
     assert latest["confusion"] == last["confusion"]
     text = baggr("report", rd).stdout
     flat = " ".join(text.split())
-    assert "47 of 60 so far" in flat and f"Out-of-bag estimate at 47 members" in flat
+    assert "47 of 60 so far" in flat and "Out-of-bag estimate at 47 members" in flat
     assert f"{100 * last['error']:.2f}%" in flat
     for k, name in enumerate(fig["classes"]):
         assert f"{name} error {100 * last['class_error'][k]:.2f}%" in flat
-    assert f"From the checkpoint at {ck} members (written" in flat and f"by ensemble size (checkpoint)" in flat
+    assert f"From the checkpoint at {ck} members (written" in flat and "by ensemble size (checkpoint)" in flat
 
 
 def test_watch_without_a_terminal_says_so_in_one_line_and_exits(run):

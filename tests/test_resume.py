@@ -329,7 +329,9 @@ def test_on_a_terminal_the_job_outlives_the_dashboard_and_the_terminal(medium, t
             time.sleep(0.1)
         assert done.read_text().strip() == "0"
         pane = subprocess.run(["tmux", "capture-pane", "-p", "-J", "-t", name], capture_output=True, text=True).stdout
-        assert f"reattach with: baggr watch {rd}" in " ".join(pane.split())
+        said = " ".join(pane.split())
+        assert f"the job goes on (pid {st.pid})" in said and f"Stop it: baggr stop {rd}" in said
+        assert f"watch again: baggr watch {rd}" in said
     except BaseException:
         subprocess.run(["tmux", "kill-session", "-t", name])
         if rd.is_dir():

@@ -140,6 +140,10 @@ def test_ctrl_c_leaves_the_dashboard_and_the_job_goes_on_at_80x24(tmp_path):
     job = start_job(run_dir)
     tmux = Tmux(f"baggr-test-c-{os.getpid()}")
     try:
+        deadline = time.monotonic() + 30
+        while not (run_dir / "journal.jsonl").exists():      # a run directory once the job has written
+            assert time.monotonic() < deadline and job.poll() is None, "the stand-in job did not start"
+            time.sleep(0.05)
         cmd = f"{shlex.quote(sys.executable)} -m baggr.cli watch {shlex.quote(str(run_dir))}"
         tmux("new-session", "-d", "-s", "dash", "-x", "80", "-y", "24", in_pane(cmd))
         tmux.wait_for("of 100,000", "running · pid", "by class")

@@ -237,7 +237,7 @@ class Dashboard(App):
 
     def action_leave(self) -> None:
         """q or Ctrl-C: leave the dashboard; the job goes on (the command then says how to stop it)."""
-        self.exit(0)
+        self.exit()
 
     def action_log_scale(self) -> None:
         self.log_x = not self.log_x

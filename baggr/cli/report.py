@@ -12,7 +12,7 @@ from baggr import data as _data
 from baggr import units
 from baggr.config import Config
 from baggr.errors import ModelFileError
-from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, fmt_seconds, read_checkpoint
+from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, read_checkpoint
 
 EXPECTED_LEFT_OUT = math.exp(-1.0)   # share of members that leave a row out under a bootstrap draw (1 - 1/n)^n
 
