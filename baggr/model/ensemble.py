@@ -68,9 +68,10 @@ class Ensemble:
             return np.array(self.classes, dtype=object)[np.argmax(s, axis=1)]
         return s[:, 0] / self.forest.members
 
-    def save(self, path) -> None:
-        """Write the model file (trees, binning, schema, OOB results) to path, atomically."""
-        file.save(self, path)
+    def save(self, path, *, compress: bool = False) -> None:
+        """Write the model file (trees, binning, schema, OOB results) to path, atomically.
+        compress: deflate the arrays (smaller; loading then inflates them instead of mapping them)."""
+        file.save(self, path, compress=compress)
 
     def __repr__(self) -> str:
         e = self.oob.error

@@ -34,8 +34,9 @@ OOB_FIELDS = {
 }
 
 
-def save(ensemble, path) -> None:  # ensemble: a baggr.model.ensemble.Ensemble
-    """Write the ensemble to path (atomically: a crash never leaves a torn model file)."""
+def save(ensemble, path, *, compress: bool = False) -> None:  # ensemble: a baggr.model.ensemble.Ensemble
+    """Write the ensemble to path (atomically: a crash never leaves a torn model file).
+    compress: deflate the arrays (see bench/README.md for what it saves and costs on load)."""
     arrays, trees = {}, None
     compact = ensemble.compact
     if compact is not None:
@@ -49,7 +50,7 @@ def save(ensemble, path) -> None:  # ensemble: a baggr.model.ensemble.Ensemble
               "has_trees": compact is not None, "trees": trees, "oob": ensemble.oob.summary(),
               "stats": {k: (float(v) if isinstance(v, (float, np.floating)) else int(v)) for k, v in ensemble.stats.items()}}
     try:
-        npzfile.write_atomic(path, arrays, header)
+        npzfile.write_atomic(path, arrays, header, compress=compress)
     except OSError as e:
         raise BaggrError(f"cannot write the model file {os.fspath(path)}: {e.strerror or e}") from None
 
