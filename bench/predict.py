@@ -29,21 +29,24 @@ M32 = np.uint64(0xFFFFFFFF)
 
 
 @kernel
-def _calibration_walk(codes, nodes, offset, root_leaf):
-    """The plainest walk: each row alone from the root to its leaf, tree after tree; returns the
-    steps taken (sum of path lengths) and a checksum of the leaves."""
+def _calibration_walk(codes, nodes, offset):
+    """The plainest walk: each row alone from the root until it stops moving (a leaf points at
+    itself), tree after tree; returns the steps taken (sum of path lengths) and a checksum."""
     steps, check = 0, 0
+    last = codes.shape[0] - 1
     for t in range(offset.shape[0] - 1):
         s0 = offset[t]
         for i in range(codes.shape[1]):
-            v, leaf = 0, np.int64(root_leaf[t])
-            while leaf == 0:
+            v = 0
+            while True:
                 r = nodes[s0 + v]
-                g = np.int64(np.int64(codes[np.int64(r >> np.uint64(44)), i]) > (np.int64(r >> np.uint64(36)) & 255))
-                v = np.int64(r & M32) + g
-                leaf = np.int64(r >> np.uint64(34 + g)) & 1
+                f = min(np.int64(r >> np.uint64(44)), last)
+                nxt = np.int64(r & M32) + np.int64(np.int64(codes[f, i]) > (np.int64(r >> np.uint64(36)) & 255))
+                if nxt == v:
+                    break
+                v = nxt
                 steps += 1
-            check += np.int64(nodes[s0 + v])
+            check += v
     return steps, check
 
 
@@ -84,19 +87,19 @@ def speed(members, rounds):
 
     def new():
         votes[:] = 0
-        score_compact(codes, 0, n, 8192, a["nodes"], a["nodes"].view(np.float64), a["offset"], a["root_leaf"],
-                      a["shares"], KINDS[c.kind], c.has_cat, np.zeros((0, c.n_out)), votes)
+        score_compact(codes, 0, n, 8192, a["nodes"], a["offset"], a["leaf_offset"], a["leaves"], a["shares"],
+                      KINDS[c.kind], c.has_cat, np.zeros((0, c.n_out)), votes)
 
     def old():
         score_rows(codes, 0, n, fw["left"], fw["right"], fw["feature"], fw["threshold"], fw["is_cat"],
                    fw["missing_left"], fw["cat_masks"], fw["value"], fw["node_offset"], fw["mask_offset"], True)
 
-    steps = _calibration_walk(codes, a["nodes"], a["offset"], a["root_leaf"])[0]
+    steps = _calibration_walk(codes, a["nodes"], a["offset"])[0]
     t_new, t_old, t_cal = [], [], []
     for _ in range(rounds):
         t_new.append(_thread_seconds(new))
         t_old.append(_thread_seconds(old))
-        t_cal.append(_thread_seconds(lambda: _calibration_walk(codes, a["nodes"], a["offset"], a["root_leaf"])))
+        t_cal.append(_thread_seconds(lambda: _calibration_walk(codes, a["nodes"], a["offset"])))
     k = n * members / 1e9
     tn, to, tc = min(t_new) / k, min(t_old) / k, min(t_cal) / k
     print(f"  one thread, CPU time (best of {rounds}): compact scorer {tn:.1f} ns per (row, member), "

@@ -131,17 +131,18 @@ def test_hostile_version_1_trees_are_refused(tmp_path, what):
 
 
 def _tree0(a):
-    """(slot, record, is_inner) of every node of member 0 of a version-2 file, from its root
-    (tests/naive: the layout of baggr/model/compact_kernels.py decoded by hand)."""
+    """(slot, record, is_inner) of every node of member 0 of a version-2 file, from its root (the
+    layout of baggr/model/compact_kernels.py decoded by hand: a leaf points at itself, threshold 255)."""
     nodes = a["tree_nodes"]
-    out, todo = [], [(0, not a["tree_root_leaf"][0])]
+    out, todo = [], [0]
     while todo:
-        v, inner = todo.pop()
+        v = todo.pop()
         r = int(nodes[v])
+        inner = not (r & 0xFFFFFFFF == v and (r >> 36) & 255 == 255)
         out.append((v, r, inner))
         if inner:
-            c, flags = r & 0xFFFFFFFF, (r >> 32) & 15
-            todo += [(c, not flags & 4), (c + 1, not flags & 8)]
+            c = r & 0xFFFFFFFF
+            todo += [c, c + 1]
     return sorted(out)
 
 
@@ -151,8 +152,9 @@ def _set(a, v, r):
 
 
 @pytest.mark.parametrize("what", ["child_out_of_range", "cycle", "self_loop", "feature_out_of_range", "shared_child",
-                                  "threshold_out_of_range", "categorical_flag", "leaf_class", "wrong_dtype",
-                                  "missing_array", "offsets", "orphan_slot", "root_flag", "kind"])
+                                  "threshold_out_of_range", "categorical_flag", "leaf_class", "leaf_number",
+                                  "leaf_elsewhere", "wrong_dtype", "missing_array", "offsets", "leaf_offsets",
+                                  "orphan_slot", "kind"])
 def test_hostile_trees_are_refused(trained, tmp_path, what):
     def change(header, a):
         nodes = _tree0(a)
@@ -165,31 +167,38 @@ def test_hostile_trees_are_refused(trained, tmp_path, what):
         elif what == "cycle":
             _set(a, v, high | 0)  # points back at the root
         elif what == "self_loop":
-            _set(a, v, high | v)
+            _set(a, v, high | v)  # an inner node pointing at itself (a walk would never end)
         elif what == "feature_out_of_range":
             _set(a, v, (r & ((1 << 44) - 1)) | (99 << 44))
         elif what == "shared_child":
             _set(a, v2, (r2 & ~0xFFFFFFFF) | low)
         elif what == "threshold_out_of_range":
-            _set(a, v, r | (255 << 36))
+            _set(a, v, (r & ~(255 << 36)) | (254 << 36) | (1 << 32))  # a categorical split with a threshold
         elif what == "categorical_flag":
             _set(a, v, r | (1 << 32))
         elif what == "leaf_class":
-            _set(a, leaves[0][0], 3)
+            a["tree_leaves"] = a["tree_leaves"].copy()
+            a["tree_leaves"][0] = 3
+        elif what == "leaf_number":
+            lv, lr = leaves[0]
+            _set(a, lv, lr ^ (1 << 44))
+        elif what == "leaf_elsewhere":
+            lv, lr = leaves[0]
+            _set(a, lv, (lr & ~0xFFFFFFFF) | (lv + 1))  # a leaf record that does not point at itself
         elif what == "wrong_dtype":
             a["tree_nodes"] = a["tree_nodes"].astype(np.int64)
         elif what == "missing_array":
-            del a["tree_root_leaf"]
+            del a["tree_leaf_offset"]
         elif what == "offsets":
             a["tree_offset"] = a["tree_offset"].copy()
             a["tree_offset"][1] += 1
+        elif what == "leaf_offsets":
+            a["tree_leaf_offset"] = a["tree_leaf_offset"].copy()
+            a["tree_leaf_offset"][1] -= 1
         elif what == "orphan_slot":
             n0 = int(a["tree_offset"][1])
             a["tree_nodes"] = np.insert(a["tree_nodes"], n0, np.uint64(0))
             a["tree_offset"] = a["tree_offset"] + (np.arange(a["tree_offset"].shape[0]) >= 1)
-        elif what == "root_flag":
-            a["tree_root_leaf"] = a["tree_root_leaf"].copy()
-            a["tree_root_leaf"][0] = 2
         elif what == "kind":
             header["trees"]["kind"] = "values"
     bad = _damaged(tmp_path, trained[2], change)

@@ -195,6 +195,6 @@ def test_wrong_dtypes_and_shapes(files, name, pick, dtype, reshape):
 def test_every_integer_array_is_fuzzed(files):
     # the arrays the out-of-range test picks from, for a version-2 file
     keys = _integer_arrays(files, "v2-hard")
-    for k in ("tree_nodes", "tree_offset", "tree_root_leaf", "bin_binning_offsets", "bin_binning_n_bins",
+    for k in ("tree_nodes", "tree_offset", "tree_leaf_offset", "tree_leaves", "bin_binning_offsets", "bin_binning_n_bins",
               "bin_binning_is_cat", "oob_left_out", "oob_pred"):
         assert k in keys

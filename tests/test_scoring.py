@@ -70,8 +70,8 @@ def test_any_block_and_span(model, block, lo, hi):
     a, kind = c.arrays, KINDS[c.kind]
     votes = np.zeros((hi - lo if kind == 0 else 0, c.n_out), np.int32)
     sums = np.zeros((0 if kind == 0 else hi - lo, c.n_out))
-    score_compact(codes, lo, hi, block, a["nodes"], a["nodes"].view(np.float64), a["offset"], a["root_leaf"],
-                  a["shares"], kind, c.has_cat, sums, votes)
+    score_compact(codes, lo, hi, block, a["nodes"], a["offset"], a["leaf_offset"], a["leaves"], a["shares"], kind,
+                  c.has_cat, sums, votes)
     np.testing.assert_array_equal(votes.astype(np.float64) if kind == 0 else sums, want[lo:hi])
 
 
@@ -82,8 +82,8 @@ def test_the_general_path_alone_agrees(model):
     a, kind = c.arrays, KINDS[c.kind]
     votes = np.zeros((codes.shape[1] if kind == 0 else 0, c.n_out), np.int32)
     sums = np.zeros((0 if kind == 0 else codes.shape[1], c.n_out))
-    score_compact(codes, 0, codes.shape[1], 512, a["nodes"], a["nodes"].view(np.float64), a["offset"],
-                  a["root_leaf"], a["shares"], kind, True, sums, votes)
+    score_compact(codes, 0, codes.shape[1], 512, a["nodes"], a["offset"], a["leaf_offset"], a["leaves"],
+                  a["shares"], kind, True, sums, votes)
     np.testing.assert_array_equal(votes.astype(np.float64) if kind == 0 else sums, want)
 
 
@@ -102,6 +102,9 @@ def test_compact_counts_every_node(model):
     n_sets = ens.forest.arrays["cat_masks"].shape[0]
     assert c.n_nodes == n_nodes and c.has_cat == (n_sets > 0)
     assert c.arrays["nodes"].shape[0] == n_nodes + 4 * n_sets  # one slot a node, 4 a level set
+    assert c.arrays["leaves"].shape[0] == int(np.sum(ens.forest.arrays["left"] < 0))
+    fresh = type(c)(c.arrays, c.kind, c.n_out)  # counted from the records alone, as after a load
+    assert fresh.n_nodes == n_nodes and fresh.has_cat == c.has_cat
 
 
 @pytest.mark.parametrize("vote", ["hard", "shares"])
@@ -109,6 +112,7 @@ def test_trees_that_are_one_leaf(vote):
     # min_leaf above half the rows: no split is allowed, every member is its root
     X, y = _table(600, 8, "classes", True)
     ens = baggr.train(X, y, baggr.Config(members=5, seed=1, threads=1, vote=vote, min_leaf=400))
-    assert ens.compact.arrays["root_leaf"].tolist() == [1] * 5
+    c = ens.compact
+    assert c.arrays["nodes"].shape[0] == 5 and c.n_nodes == 5  # one slot a member: its root, a leaf
     codes = data.encode(X, ens.schema, ens.binning)
     np.testing.assert_array_equal(score(codes, ens.compact, threads=2), _reference(ens, codes))

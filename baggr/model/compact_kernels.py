@@ -3,37 +3,61 @@ checking a loaded compact forest slot by slot before any walk may follow it.
 
 One tree is a run of uint64 slots; slot 0 is its root. An inner node's record:
     bits  0-31  child: slot of the left child, local to the tree; the right child is child + 1
-    bits 32-35  flags: CAT, MISSING_LEFT, LEFT_LEAF, RIGHT_LEAF (the kind of each child)
-    bits 36-43  threshold code of a numeric split (the row goes left when code <= it)
+    bits 32-35  flags: CAT (a categorical split), MISSING_LEFT (code 255 goes left); bits 2-3 are 0
+    bits 36-43  threshold code of a numeric split, 0..254 (the row goes left when code <= it); 0 for CAT
     bits 44-63  feature
+A leaf's record points at itself (child = its own slot), has threshold 255 and MISSING_LEFT, so a
+walk that reaches it stays there whatever the code (no code is above 255): rows walk in lock step
+without asking whether they have arrived. Its feature field and flag bits 2-3 hold the leaf's
+number in its tree (22 bits), counted in slot order; the number indexes the forest's leaf array:
+    VOTES   uint16 class the leaf votes for (hard votes)
+    VALUES  float64 leaf value, bit for bit (regression)
+    SHARES  int32: -1 - class for a leaf holding one class only, else its row of the shares table
 A categorical split's 256-bit level set (bit set: the level goes left) sits in the 4 slots after
-its two children. A leaf's slot is its payload, by the forest's kind:
-    VOTES   the class index the leaf votes for (hard votes)
-    VALUES  the float64 leaf value, bit for bit (regression)
-    SHARES  PURE | class for a leaf holding one class only, else its row of the shares table
-Whether the root is a leaf is kept per tree (root_leaf).
+its two children. Trees are laid out breadth first.
 """
 import numpy as np
 
 from baggr.jit import kernel
 
-CAT, MISSING_LEFT, LEFT_LEAF, RIGHT_LEAF = 1, 2, 4, 8
+CAT, MISSING_LEFT = 1, 2
 VOTES, VALUES, SHARES = 0, 1, 2
-PURE = np.uint64(1) << np.uint64(63)
+LEAF_THRESHOLD = 255
 MAX_FEATURES = 1 << 20
+MAX_LEAVES = 1 << 22
 MAX_SLOTS = 1 << 32
+M32 = np.uint64(0xFFFFFFFF)
 
 # what check() finds wrong, by code (compact.py words them)
-OK, BAD_OFFSETS, BAD_ROOT, BAD_FLAGS, BAD_FEATURE, BAD_THRESHOLD, BAD_CHILD, TWICE, UNREACHED, BAD_LEAF, \
-    BAD_KIND = range(11)
+OK, BAD_OFFSETS, BAD_FLAGS, BAD_FEATURE, BAD_THRESHOLD, BAD_CHILD, TWICE, UNREACHED, BAD_LEAF, BAD_KIND, \
+    BAD_LEAF_COUNT = range(11)
+
+
+
+def leaf_record(slot: int, number: int) -> int:
+    """The record of a leaf at `slot` of its tree with leaf number `number` (for tests and tools)."""
+    return slot | ((MISSING_LEFT | ((number >> 20) << 2)) << 32) | (LEAF_THRESHOLD << 36) | ((number & 0xFFFFF) << 44)
+
+
+@kernel
+def _leaf_record(slot, number):
+    return (np.uint64(slot) | (np.uint64(MISSING_LEFT | ((number >> 20) << 2)) << np.uint64(32))
+            | (np.uint64(LEAF_THRESHOLD) << np.uint64(36)) | (np.uint64(number & 0xFFFFF) << np.uint64(44)))
+
+
+@kernel
+def leaf_number(r):
+    """The leaf number held by a leaf's record."""
+    return np.int64(r >> np.uint64(44)) | ((np.int64(r >> np.uint64(34)) & 3) << 20)
 
 
 @kernel
 def pack_count(left, is_cat, value, node_offset, kind):
-    """Slots per tree and, for SHARES, impure leaves per tree (int64 [M] each)."""
+    """Slots, leaves and (SHARES) impure leaves per tree (int64 [M] each)."""
     m = node_offset.shape[0] - 1
     n_out = value.shape[1]
     slots = np.zeros(m, np.int64)
+    leaves = np.zeros(m, np.int64)
     impure = np.zeros(m, np.int64)
     for t in range(m):
         for u in range(node_offset[t], node_offset[t + 1]):
@@ -41,7 +65,9 @@ def pack_count(left, is_cat, value, node_offset, kind):
             if left[u] >= 0:
                 if is_cat[u]:
                     slots[t] += 4
-            elif kind == SHARES:
+                continue
+            leaves[t] += 1
+            if kind == SHARES:
                 ones = 0
                 zeros = 0
                 for k in range(n_out):
@@ -51,39 +77,38 @@ def pack_count(left, is_cat, value, node_offset, kind):
                         zeros += 1
                 if not (ones == 1 and zeros == n_out - 1):
                     impure[t] += 1
-    return slots, impure
+    return slots, leaves, impure
 
 
 @kernel
-def pack_fill(left, right, feature, threshold, is_cat, missing_left, value, value_bits, cat_masks, node_offset,
-              mask_offset, kind, tree_offset, share_offset, nodes, root_leaf, shares):
-    """Fill nodes (uint64 [S]), root_leaf (uint8 [M]) and shares ([K, n_out]) tree by tree,
-    breadth first: each inner node's two children side by side, then its level set. value_bits is
-    value viewed as uint64 (a leaf value is copied bit for bit)."""
+def pack_fill(left, right, feature, threshold, is_cat, missing_left, value, cat_masks, node_offset, mask_offset,
+              kind, offset, leaf_offset, share_offset, nodes, leaves, shares):
+    """Fill nodes (uint64 [S]), leaves ([L], by kind) and shares ([K, n_out]) tree by tree, breadth
+    first: each inner node's two children side by side, then its level set."""
     m = node_offset.shape[0] - 1
     n_out = value.shape[1]
     biggest = 0
     for t in range(m):
         biggest = max(biggest, node_offset[t + 1] - node_offset[t])
-    queue = np.empty(biggest, np.int64)   # wide node index, local
-    where = np.empty(biggest, np.int64)   # its slot
+    queue = np.empty(biggest, np.int64)   # wide node index, local; its slot is where[]
+    where = np.empty(biggest, np.int64)
     for t in range(m):
-        base, s0, k = node_offset[t], tree_offset[t], share_offset[t]
-        root_leaf[t] = 1 if left[base] < 0 else 0
+        base, s0, l0, k = node_offset[t], offset[t], leaf_offset[t], share_offset[t]
         queue[0], where[0] = 0, 0
-        head, tail, free = 0, 1, 1
-        while head < tail:
-            u, s = base + queue[head], s0 + where[head]
+        head, tail, free, n_leaf = 0, 1, 1, 0
+        while head < tail:   # slots are handed out in the order nodes leave the queue
+            u, v = base + queue[head], where[head]
             head += 1
             if left[u] < 0:
+                nodes[s0 + v] = _leaf_record(v, n_leaf)
                 if kind == VALUES:
-                    nodes[s] = value_bits[u, 0]
+                    leaves[l0 + n_leaf] = value[u, 0]
                 elif kind == VOTES:
                     b = 0
                     for j in range(1, n_out):
                         if value[u, j] > value[u, b]:
                             b = j
-                    nodes[s] = np.uint64(b)
+                    leaves[l0 + n_leaf] = b
                 else:
                     ones, zeros, b = 0, 0, 0
                     for j in range(n_out):
@@ -93,20 +118,19 @@ def pack_fill(left, right, feature, threshold, is_cat, missing_left, value, valu
                         elif value[u, j] == 0.0:
                             zeros += 1
                     if ones == 1 and zeros == n_out - 1:
-                        nodes[s] = PURE | np.uint64(b)
+                        leaves[l0 + n_leaf] = -1 - b
                     else:
                         for j in range(n_out):
                             shares[k, j] = value[u, j]
-                        nodes[s] = np.uint64(k)
+                        leaves[l0 + n_leaf] = k
                         k += 1
+                n_leaf += 1
                 continue
             c = free
             free += 6 if is_cat[u] else 2
-            lu, ru = base + left[u], base + right[u]
-            flags = (CAT if is_cat[u] else 0) | (MISSING_LEFT if missing_left[u] else 0) \
-                | (LEFT_LEAF if left[lu] < 0 else 0) | (RIGHT_LEAF if left[ru] < 0 else 0)
+            flags = (CAT if is_cat[u] else 0) | (MISSING_LEFT if missing_left[u] else 0)
             thr = 0 if is_cat[u] else threshold[u]
-            nodes[s] = np.uint64(c) | (np.uint64(flags) << np.uint64(32)) | (np.uint64(thr) << np.uint64(36)) \
+            nodes[s0 + v] = np.uint64(c) | (np.uint64(flags) << np.uint64(32)) | (np.uint64(thr) << np.uint64(36)) \
                 | (np.uint64(feature[u]) << np.uint64(44))
             if is_cat[u]:
                 for w in range(4):
@@ -117,62 +141,71 @@ def pack_fill(left, right, feature, threshold, is_cat, missing_left, value, valu
 
 
 @kernel
-def check(nodes, values, tree_offset, root_leaf, n_shares, kind, n_out, feature_is_cat):
-    """(code, tree, slot, 0) of the first fault found, (OK, -1, -1, categorical splits) if none: every slot of a tree is
-    reached exactly once from its root, children lie after their parent and inside the tree,
-    features, thresholds and leaf payloads are in range. Nothing here follows an unchecked index."""
-    m = tree_offset.shape[0] - 1
+def check(nodes, offset, leaf_offset, leaves_int, leaves_float, n_shares, kind, n_out, feature_is_cat):
+    """(code, tree, slot, 0) of the first fault found, (OK, -1, -1, categorical splits) if none:
+    every slot of a tree is reached exactly once from its root, children lie after their parent and
+    inside the tree, features and thresholds are in range, leaves are numbered in slot order and
+    their payloads are in range. Nothing here follows an unchecked index. leaves_int is the leaf
+    array as int64 (VOTES, SHARES), leaves_float as float64 (VALUES)."""
+    m = offset.shape[0] - 1
     total = nodes.shape[0]
     if kind < 0 or kind > 2:
         return BAD_KIND, -1, -1, 0
-    if tree_offset[0] != 0 or tree_offset[m] != total or root_leaf.shape[0] != m:
+    if offset[0] != 0 or offset[m] != total or leaf_offset.shape[0] != m + 1 or leaf_offset[0] != 0:
+        return BAD_OFFSETS, -1, -1, 0
+    n_leaves = leaves_float.shape[0] if kind == VALUES else leaves_int.shape[0]
+    if leaf_offset[m] != n_leaves:
         return BAD_OFFSETS, -1, -1, 0
     biggest = 0
     for t in range(m):
-        size = tree_offset[t + 1] - tree_offset[t]
-        if size < 1:
+        size = offset[t + 1] - offset[t]
+        if size < 1 or leaf_offset[t + 1] - leaf_offset[t] < 1:
             return BAD_OFFSETS, t, -1, 0
         biggest = max(biggest, size)
     sets = 0
-    state = np.zeros(biggest, np.uint8)   # 0 unreached, 1 inner node, 2 leaf, 3 level-set word
+    state = np.zeros(biggest, np.uint8)   # 0 unreached, 1 node, 3 level-set word
     p = feature_is_cat.shape[0]
     for t in range(m):
-        s0 = tree_offset[t]
-        size = tree_offset[t + 1] - s0
+        s0, l0 = offset[t], leaf_offset[t]
+        size = offset[t + 1] - s0
         state[:size] = 0
-        if root_leaf[t] > 1:
-            return BAD_ROOT, t, 0, 0
-        state[0] = 2 if root_leaf[t] else 1
+        state[0] = 1
+        n_leaf = 0
         for v in range(size):
             st = state[v]
             if st == 0:
                 return UNREACHED, t, v, 0
-            r = nodes[s0 + v]
-            if st == 2:
-                if kind == VOTES:
-                    if r >= np.uint64(n_out):
-                        return BAD_LEAF, t, v, 0
-                elif kind == VALUES:
-                    if not np.isfinite(values[s0 + v]):
-                        return BAD_LEAF, t, v, 0
-                elif r & PURE:
-                    if (r & ~PURE) >= np.uint64(n_out):
-                        return BAD_LEAF, t, v, 0
-                elif r >= np.uint64(n_shares):
-                    return BAD_LEAF, t, v, 0
-                continue
             if st == 3:
                 continue
-            c = np.int64(r & np.uint64(0xFFFFFFFF))
-            flags = np.int64((r >> np.uint64(32)) & np.uint64(15))
-            thr = np.int64((r >> np.uint64(36)) & np.uint64(255))
+            r = nodes[s0 + v]
+            c = np.int64(r & M32)
+            flags = np.int64(r >> np.uint64(32)) & 15
+            thr = np.int64(r >> np.uint64(36)) & 255
+            if thr == LEAF_THRESHOLD and (flags & CAT) == 0:
+                if c != v or (flags & MISSING_LEFT) == 0:
+                    return BAD_LEAF, t, v, 0
+                if leaf_number(r) != n_leaf or l0 + n_leaf >= leaf_offset[t + 1]:
+                    return BAD_LEAF_COUNT, t, v, 0
+                i = l0 + n_leaf
+                n_leaf += 1
+                if kind == VOTES:
+                    if leaves_int[i] < 0 or leaves_int[i] >= n_out:
+                        return BAD_LEAF, t, v, 0
+                elif kind == VALUES:
+                    if not np.isfinite(leaves_float[i]):
+                        return BAD_LEAF, t, v, 0
+                elif leaves_int[i] >= n_shares or leaves_int[i] < -n_out:
+                    return BAD_LEAF, t, v, 0
+                continue
             f = np.int64(r >> np.uint64(44))
+            if flags > 3:
+                return BAD_FLAGS, t, v, 0
             if f >= p:
                 return BAD_FEATURE, t, v, 0
             cat = (flags & CAT) != 0
             if cat != (feature_is_cat[f] != 0):
                 return BAD_FLAGS, t, v, 0
-            if (cat and thr != 0) or (not cat and thr > 254):
+            if cat and thr != 0:
                 return BAD_THRESHOLD, t, v, 0
             width = 6 if cat else 2
             if c <= v or c + width > size:
@@ -180,34 +213,38 @@ def check(nodes, values, tree_offset, root_leaf, n_shares, kind, n_out, feature_
             for w in range(width):
                 if state[c + w] != 0:
                     return TWICE, t, c + w, 0
-            state[c] = 2 if flags & LEFT_LEAF else 1
-            state[c + 1] = 2 if flags & RIGHT_LEAF else 1
+            state[c] = 1
+            state[c + 1] = 1
             for w in range(2, width):
                 state[c + w] = 3
             if cat:
                 sets += 1
+        if n_leaf != leaf_offset[t + 1] - l0:
+            return BAD_LEAF_COUNT, t, -1, 0
     return OK, -1, -1, sets
 
 
 @kernel
-def count_nodes(nodes, tree_offset, root_leaf):
-    """(nodes, categorical splits) of a checked compact forest: nodes are its slots less the level sets."""
-    m = tree_offset.shape[0] - 1
+def count_sets(nodes, offset):
+    """Categorical splits of a checked compact forest (each takes 4 slots for its level set)."""
+    m = offset.shape[0] - 1
     sets = 0
+    biggest = 0
     for t in range(m):
-        s0, size = tree_offset[t], tree_offset[t + 1] - tree_offset[t]
-        # a parent lies before its children, so one pass in slot order meets every node
-        kind = np.zeros(size, np.uint8)
-        kind[0] = 2 if root_leaf[t] else 1
+        biggest = max(biggest, offset[t + 1] - offset[t])
+    kind = np.zeros(biggest, np.uint8)
+    for t in range(m):
+        s0, size = offset[t], offset[t + 1] - offset[t]
+        kind[:size] = 0
+        # a parent lies before its children, so one pass in slot order meets every record
         for v in range(size):
-            if kind[v] == 1:
-                r = nodes[s0 + v]
-                c = np.int64(r & np.uint64(0xFFFFFFFF))
-                flags = np.int64(r >> np.uint64(32)) & 15
-                kind[c] = 2 if flags & LEFT_LEAF else 1
-                kind[c + 1] = 2 if flags & RIGHT_LEAF else 1
-                if flags & CAT:
-                    sets += 1
-                    for w in range(2, 6):
-                        kind[c + w] = 3
-    return nodes.shape[0] - 4 * sets, sets
+            if kind[v] == 3:
+                continue
+            r = nodes[s0 + v]
+            flags = np.int64(r >> np.uint64(32)) & 15
+            if flags & CAT:
+                sets += 1
+                c = np.int64(r & M32)
+                for w in range(2, 6):
+                    kind[c + w] = 3
+    return sets

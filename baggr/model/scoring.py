@@ -33,8 +33,8 @@ def score(codes: np.ndarray, compact: Compact, *, threads: int | None = None) ->
     has_cat = compact.has_cat
 
     def run(lo: int, hi: int) -> None:
-        score_compact(codes, lo, hi, block, nodes, nodes.view(np.float64), a["offset"], a["root_leaf"],
-                      a["shares"], kind, has_cat, sums[lo:hi] if kind else sums, votes[lo:hi] if kind == 0 else votes)
+        score_compact(codes, lo, hi, block, nodes, a["offset"], a["leaf_offset"], a["leaves"], a["shares"], kind,
+                      has_cat, sums[lo:hi] if kind else sums, votes[lo:hi] if kind == 0 else votes)
 
     if n and compact.members:
         pieces = 1 if threads == 1 else min(threads * SPANS_PER_THREAD, -(-n // 1024))
