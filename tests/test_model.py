@@ -240,3 +240,18 @@ def test_estimate_only_has_no_trees_to_score(trained, tmp_path):
         ens.predict(X)
     ens.save(tmp_path / "est.npz")
     assert baggr.load(tmp_path / "est.npz").oob.error == ens.oob.error
+
+
+def test_members_checked_in_spans_name_the_damaged_member(trained, tmp_path, monkeypatch):
+    from baggr.model import compact
+    monkeypatch.setattr(compact, "CHECK_SPAN", 3)   # 8 members: spans 0-2, 3-5, 6-7 over two threads
+
+    def change(header, a):
+        s0 = int(a["tree_offset"][5])
+        r = int(a["tree_nodes"][s0])   # member 5's root, an inner node
+        _set(a, s0, (r & ~0xFFFFFFFF) | 10 ** 6)
+    bad = _damaged(tmp_path, trained[2], change)
+    with pytest.raises(baggr.ModelFileError, match=r"member 5, slot 0"):
+        baggr.load(bad)
+    good = tmp_path / "good.npz"
+    np.testing.assert_array_equal(baggr.load(good).vote_shares(trained[0]), trained[2].vote_shares(trained[0]))

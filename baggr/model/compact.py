@@ -10,6 +10,7 @@ impurity: training figures that scoring never reads).
 """
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -17,6 +18,7 @@ import numpy as np
 from baggr.errors import BaggrError, ModelFileError
 from baggr.model import compact_kernels as ck
 
+CHECK_SPAN = 4096   # members a thread checks at a time
 KINDS = {"votes": ck.VOTES, "values": ck.VALUES, "shares": ck.SHARES}
 LEAF_DTYPES = {"votes": np.uint16, "values": np.float64, "shares": np.int32}
 # name -> (dtype, ndim) of every array of a compact forest (leaves: LEAF_DTYPES by kind)
@@ -87,7 +89,7 @@ class Compact:
         return cls({"nodes": nodes, "offset": offset, "leaf_offset": leaf_offset, "leaves": leaf, "shares": shares},
                    kind, n_out, int(a["cat_masks"].shape[0]))
 
-    def validate(self, feature_is_cat: np.ndarray, n_out: int) -> None:
+    def validate(self, feature_is_cat: np.ndarray, n_out: int, threads: int = 2) -> None:
         """Check every array and every slot a walk could follow.
         A fault raises ModelFileError naming it (and the member and slot where it lies)."""
         a = self.arrays
@@ -108,14 +110,28 @@ class Compact:
             raise ModelFileError("tree offsets do not cover the stored nodes and leaves")
         if not np.all(np.isfinite(a["shares"])):
             raise ModelFileError("leaf shares hold NaN or infinity")
-        values = self.kind == "values"
-        fault, tree, slot, sets = ck.check(
-            a["nodes"], off, loff, np.zeros(0, np.int64) if values else a["leaves"].astype(np.int64),
-            a["leaves"] if values else np.zeros(0), a["shares"].shape[0], KINDS[self.kind], n_out,
-            np.ascontiguousarray(feature_is_cat, dtype=np.uint8))
-        if fault != ck.OK:
-            where = f" (member {tree}, slot {slot})" if tree >= 0 else ""
-            raise ModelFileError(_FAULTS.get(fault, "the trees are damaged") + where)
+        if off[0] != 0 or off[-1] != a["nodes"].shape[0] or loff[0] != 0 or loff[-1] != a["leaves"].shape[0]:
+            raise ModelFileError("tree offsets do not cover the stored nodes and leaves")
+        is_cat = np.ascontiguousarray(feature_is_cat, dtype=np.uint8)
+        m = off.shape[0] - 1
+        # trees in spans over threads (the check releases the GIL): a large model checks in a fraction
+        spans = [(lo, min(m, lo + CHECK_SPAN)) for lo in range(0, m, CHECK_SPAN)]
+
+        def run(span):
+            lo, hi = span
+            return lo, ck.check(a["nodes"], off[lo:hi + 1], loff[lo:hi + 1], a["leaves"], a["shares"].shape[0],
+                                KINDS[self.kind], n_out, is_cat)
+        if len(spans) > 1 and threads > 1:
+            with ThreadPoolExecutor(max_workers=threads) as pool:
+                results = list(pool.map(run, spans))
+        else:
+            results = [run(s) for s in spans]
+        sets = 0
+        for lo, (fault, tree, slot, n_sets) in results:
+            if fault != ck.OK:
+                where = f" (member {lo + tree}, slot {slot})" if tree >= 0 else ""
+                raise ModelFileError(_FAULTS.get(fault, "the trees are damaged") + where)
+            sets += n_sets
         self._sets = int(sets)
 
     def _count_sets(self) -> int:

@@ -19,6 +19,7 @@ its two children. Trees are laid out breadth first.
 import numpy as np
 
 from baggr.jit import kernel
+from baggr.learn.split_kernels import inline
 
 CAT, MISSING_LEFT = 1, 2
 VOTES, VALUES, SHARES = 0, 1, 2
@@ -45,7 +46,7 @@ def _leaf_record(slot, number):
             | (np.uint64(LEAF_THRESHOLD) << np.uint64(36)) | (np.uint64(number & 0xFFFFF) << np.uint64(44)))
 
 
-@kernel
+@inline
 def leaf_number(r):
     """The leaf number held by a leaf's record."""
     return np.int64(r >> np.uint64(44)) | ((np.int64(r >> np.uint64(34)) & 3) << 20)
@@ -141,21 +142,16 @@ def pack_fill(left, right, feature, threshold, is_cat, missing_left, value, cat_
 
 
 @kernel
-def check(nodes, offset, leaf_offset, leaves_int, leaves_float, n_shares, kind, n_out, feature_is_cat):
-    """(code, tree, slot, 0) of the first fault found, (OK, -1, -1, categorical splits) if none:
-    every slot of a tree is reached exactly once from its root, children lie after their parent and
-    inside the tree, features and thresholds are in range, leaves are numbered in slot order and
-    their payloads are in range. Nothing here follows an unchecked index. leaves_int is the leaf
-    array as int64 (VOTES, SHARES), leaves_float as float64 (VALUES)."""
+def check(nodes, offset, leaf_offset, leaves, n_shares, kind, n_out, feature_is_cat):
+    """(code, tree, slot, 0) of the first fault found among the trees offset and leaf_offset span
+    (absolute offsets into nodes and leaves; the caller checks that they cover both arrays),
+    (OK, -1, -1, categorical splits) if none: every slot of a tree is reached exactly once from its
+    root, children lie after their parent and inside the tree, features and thresholds are in
+    range, leaves point at themselves, are numbered in slot order and hold payloads in range.
+    Nothing here follows an unchecked index."""
     m = offset.shape[0] - 1
-    total = nodes.shape[0]
     if kind < 0 or kind > 2:
         return BAD_KIND, -1, -1, 0
-    if offset[0] != 0 or offset[m] != total or leaf_offset.shape[0] != m + 1 or leaf_offset[0] != 0:
-        return BAD_OFFSETS, -1, -1, 0
-    n_leaves = leaves_float.shape[0] if kind == VALUES else leaves_int.shape[0]
-    if leaf_offset[m] != n_leaves:
-        return BAD_OFFSETS, -1, -1, 0
     biggest = 0
     for t in range(m):
         size = offset[t + 1] - offset[t]
@@ -166,7 +162,7 @@ def check(nodes, offset, leaf_offset, leaves_int, leaves_float, n_shares, kind, 
     state = np.zeros(biggest, np.uint8)   # 0 unreached, 1 node, 3 level-set word
     p = feature_is_cat.shape[0]
     for t in range(m):
-        s0, l0 = offset[t], leaf_offset[t]
+        s0, l0, l1 = offset[t], leaf_offset[t], leaf_offset[t + 1]
         size = offset[t + 1] - s0
         state[:size] = 0
         state[0] = 1
@@ -184,17 +180,18 @@ def check(nodes, offset, leaf_offset, leaves_int, leaves_float, n_shares, kind, 
             if thr == LEAF_THRESHOLD and (flags & CAT) == 0:
                 if c != v or (flags & MISSING_LEFT) == 0:
                     return BAD_LEAF, t, v, 0
-                if leaf_number(r) != n_leaf or l0 + n_leaf >= leaf_offset[t + 1]:
+                if leaf_number(r) != n_leaf or l0 + n_leaf >= l1:
                     return BAD_LEAF_COUNT, t, v, 0
-                i = l0 + n_leaf
+                x = leaves[l0 + n_leaf]
                 n_leaf += 1
-                if kind == VOTES:
-                    if leaves_int[i] < 0 or leaves_int[i] >= n_out:
+                if kind == VALUES:
+                    y = np.float64(x)
+                    if not (y - y == 0.0):   # NaN or infinity
                         return BAD_LEAF, t, v, 0
-                elif kind == VALUES:
-                    if not np.isfinite(leaves_float[i]):
+                elif kind == VOTES:
+                    if np.int64(x) < 0 or np.int64(x) >= n_out:
                         return BAD_LEAF, t, v, 0
-                elif leaves_int[i] >= n_shares or leaves_int[i] < -n_out:
+                elif np.int64(x) >= n_shares or np.int64(x) < -n_out:
                     return BAD_LEAF, t, v, 0
                 continue
             f = np.int64(r >> np.uint64(44))
@@ -215,11 +212,11 @@ def check(nodes, offset, leaf_offset, leaves_int, leaves_float, n_shares, kind, 
                     return TWICE, t, c + w, 0
             state[c] = 1
             state[c + 1] = 1
-            for w in range(2, width):
-                state[c + w] = 3
             if cat:
                 sets += 1
-        if n_leaf != leaf_offset[t + 1] - l0:
+                for w in range(2, width):
+                    state[c + w] = 3
+        if n_leaf != l1 - l0:
             return BAD_LEAF_COUNT, t, -1, 0
     return OK, -1, -1, sets
 
