@@ -116,3 +116,16 @@ def test_trees_that_are_one_leaf(vote):
     assert c.arrays["nodes"].shape[0] == 5 and c.n_nodes == 5  # one slot a member: its root, a leaf
     codes = data.encode(X, ens.schema, ens.binning)
     np.testing.assert_array_equal(score(codes, ens.compact, threads=2), _reference(ens, codes))
+
+
+def test_unpacked_forest_packs_to_the_same_records(model):
+    # a run resumed from compact chunk files rebuilds the learner's arrays from them
+    ens = model[0]
+    c = ens.compact
+    back = c.to_forest()
+    back.validate(len(ens.schema.names), c.n_out)
+    for name in ("left", "right", "feature", "is_cat", "missing_left", "node_offset", "mask_offset"):
+        assert back.arrays[name].shape == ens.forest.arrays[name].shape, name
+    again = Compact.from_forest(back, c.kind)
+    for k, v in c.arrays.items():
+        np.testing.assert_array_equal(again.arrays[k], v, err_msg=k)

@@ -134,6 +134,21 @@ class Compact:
             sets += n_sets
         self._sets = int(sets)
 
+    def to_forest(self):
+        """The learner's node arrays of these trees (a Forest), for a run that goes on from them:
+        packing it again gives these records back bit for bit. What the compact layout does not keep
+        is zero (rows, draw weight, impurity) or one-hot (a hard vote's class)."""
+        from baggr.model.forest import FIELDS, Forest
+        a = self.arrays
+        sets, m = self._count_sets(), self.members
+        n = self.n_nodes
+        w = {name: np.zeros((n, self.n_out) if name == "value" else (sets, 4) if name == "cat_masks" else
+                            (m + 1,) if name.endswith("_offset") else (n,), dtype) for name, (dtype, _) in FIELDS.items()}
+        ck.unpack(a["nodes"], a["offset"], a["leaf_offset"], a["leaves"], a["shares"], KINDS[self.kind], w["left"],
+                  w["right"], w["feature"], w["threshold"], w["is_cat"], w["missing_left"], w["value"], w["cat_masks"],
+                  w["node_offset"], w["mask_offset"])
+        return Forest(w)
+
     def _count_sets(self) -> int:
         if self._sets is None:
             self._sets = int(ck.count_sets(self.arrays["nodes"], self.arrays["offset"]))

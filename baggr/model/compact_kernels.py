@@ -245,3 +245,66 @@ def count_sets(nodes, offset):
                 for w in range(2, 6):
                     kind[c + w] = 3
     return sets
+
+
+@kernel
+def unpack(nodes, offset, leaf_offset, leaves, shares, kind, left, right, feature, threshold, is_cat, missing_left,
+           value, cat_masks, node_offset, mask_offset):
+    """The learner's node arrays of a checked compact forest (the inverse of pack_fill, for nodes in
+    slot order): leaf values become one-hot classes (VOTES, pure SHARES), the share row or the
+    value. Outputs are sized by the caller (nodes = slots - 4 sets; value zeroed)."""
+    m = offset.shape[0] - 1
+    biggest = 0
+    for t in range(m):
+        biggest = max(biggest, offset[t + 1] - offset[t])
+    index = np.empty(biggest, np.int64)   # slot -> local node index, -1 for a level-set word
+    u0, k0 = 0, 0
+    for t in range(m):
+        s0, size, l0 = offset[t], offset[t + 1] - offset[t], leaf_offset[t]
+        node_offset[t], mask_offset[t] = u0, k0
+        index[:size] = 0
+        n = 0
+        for v in range(size):
+            if index[v] < 0:
+                continue
+            index[v] = n
+            n += 1
+            r = nodes[s0 + v]
+            c = np.int64(r & M32)
+            if c != v and (np.int64(r >> np.uint64(32)) & CAT):
+                for w in range(2, 6):
+                    index[c + w] = -1
+        k = 0
+        for v in range(size):
+            if index[v] < 0:
+                continue
+            u = u0 + index[v]
+            r = nodes[s0 + v]
+            c = np.int64(r & M32)
+            flags = np.int64(r >> np.uint64(32)) & 15
+            thr = np.int64(r >> np.uint64(36)) & 255
+            if c == v:
+                left[u], right[u], feature[u], threshold[u] = -1, -1, -1, 0
+                x = leaves[l0 + leaf_number(r)]
+                if kind == VALUES:
+                    value[u, 0] = x
+                elif kind == VOTES or np.int64(x) < 0:
+                    value[u, np.int64(x) if kind == VOTES else -1 - np.int64(x)] = 1.0
+                else:
+                    for j in range(value.shape[1]):
+                        value[u, j] = shares[np.int64(x), j]
+                continue
+            left[u], right[u] = index[c], index[c + 1]
+            feature[u] = np.int64(r >> np.uint64(44))
+            missing_left[u] = 1 if flags & MISSING_LEFT else 0
+            if flags & CAT:
+                is_cat[u] = 1
+                threshold[u] = k
+                for w in range(4):
+                    cat_masks[k0 + k, w] = nodes[s0 + c + 2 + w]
+                k += 1
+            else:
+                threshold[u] = thr
+        u0 += n
+        k0 += k
+    node_offset[m], mask_offset[m] = u0, k0

@@ -22,6 +22,7 @@ from baggr.runs.rundir import RunDir, RunSettings
 CHECKPOINT_FORMAT = "baggr-checkpoint"
 CHECKPOINT_VERSION = 1
 CHUNK_FORMAT = "baggr-members"
+CHUNK_VERSION = 2   # 1: the learner's node arrays; 2: the compact layout of model format 2
 
 FAULT_CHECKPOINT = "BAGGR_FAULT_CHECKPOINT"  # "enospc" or "enospc:N": the N-th checkpoint write fails
 FAULT_KILL = "BAGGR_FAULT_KILL"              # "member:N", "chunk:N" or "model": SIGKILL itself there
@@ -164,13 +165,20 @@ class Checkpointer:
         if self.journal is not None:
             self.journal.write("checkpoint", member=m)
 
+    def _kind(self) -> str:
+        from baggr.model.compact import kind_for
+        return kind_for(self.training.prep.task, self.training.config.vote)
+
     def _write_chunk(self, a: int, b: int, name: str, trees: list) -> None:
+        """Members a..b-1 in the model file's compact layout (chunk format 2; format 1 held the
+        learner's arrays, five times larger)."""
+        from baggr.model.compact import Compact
         from baggr.model.forest import Forest
         path = self.rd / name
         path.parent.mkdir(exist_ok=True)
-        forest = Forest.pack(trees, self.training.n_out)
-        npzfile.write_atomic(path, forest.arrays, {"format": CHUNK_FORMAT, "format_version": CHECKPOINT_VERSION,
-                                                   "first": a, "last": b})
+        compact = Compact.from_forest(Forest.pack(trees, self.training.n_out), self._kind())
+        npzfile.write_atomic(path, compact.arrays, {"format": CHUNK_FORMAT, "format_version": CHUNK_VERSION,
+                                                    "first": a, "last": b, "kind": compact.kind})
 
     def restore(self) -> bool:
         """Continue the training from the checkpoint on disk, if any; True when one was loaded."""
@@ -209,13 +217,27 @@ class Checkpointer:
             h, a = npzfile.read(self.rd / c[2], "members file")
             if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
                 raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
-            forest = Forest(a)
-            forest.validate(n_features, self.training.n_out)
+            if h.get("format_version") == 1:
+                forest = Forest(a)
+                forest.validate(n_features, self.training.n_out)
+            else:
+                forest = self._compact_chunk(c[2], h, a)
             if forest.members != c[1] - c[0]:
                 raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
             trees.extend(forest.unpack())
             at = c[1]
         return trees
+
+    def _compact_chunk(self, name: str, h: dict, a: dict):
+        from baggr.model.compact import Compact
+        if h.get("format_version") != CHUNK_VERSION or h.get("kind") != self._kind():
+            raise ModelFileError(f"{self.rd / name} is not a members file this baggr reads for this run")
+        compact = Compact(a, self._kind(), self.training.n_out)
+        try:
+            compact.validate(self.training.prep.binning.is_cat, self.training.n_out)
+        except ModelFileError as e:
+            raise ModelFileError(f"{self.rd / name}: {e}") from None
+        return compact.to_forest()
 
     def _drop_unreferenced(self) -> None:
         """Remove what a killed job left half done: chunk files its checkpoint never named, temp files."""
