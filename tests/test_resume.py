@@ -207,7 +207,10 @@ def _stop(how):
         assert 5 <= m < MEMBERS
         # The member in hand was finished, then checkpoint and model were written at exactly that size.
         assert load(rd / MODEL).members == m
-        assert npzfile.read(rd / CHECKPOINT)[0]["next_member"] == m
+        header = npzfile.read(rd / CHECKPOINT)[0]
+        assert header["next_member"] == m
+        # one copy of the trees: the checkpoint takes them from the model, the chunk files are gone
+        assert header["chunks"] == [[0, m, MODEL]] and not any((rd / "members").glob("*"))
         assert not (rd / "stop").exists()
         if how in ("SIGINT", "stop file"):            # the others leave the very same files behind
             check_resumes_identically(rd, reference)

@@ -295,3 +295,53 @@ def test_watch_without_the_dashboard_follows_the_journal(tmp_path, monkeypatch, 
     assert cli.main(["watch", str(rd.path)]) == 0
     out = capsys.readouterr().out
     assert "member 1/3" in out and "member 3/3 100%" in out and "OOB error 25.00%" in out
+
+
+def test_a_stop_folds_the_trees_into_the_model_and_resume_reads_them_back(tmp_path):
+    full_ens = _training().run()
+    rd = create(tmp_path / "run")
+    extra = {"sha256": "x", "config": _training().config.to_dict()}
+
+    def stop_at(tr, ck, m, fold=True):
+        tr.run(until=m)
+        ck.write(wait=True)
+        tr.ensemble().save(rd / "model.npz")
+        if fold:
+            ck.fold_into_model("model.npz")
+
+    first = _training()
+    ck = Checkpointer(rd, first, RunSettings(), extra, background=False)
+    stop_at(first, ck, 7)
+    assert ck.chunks == [[0, 7, "model.npz"]] and not any((rd / "members").glob("*"))
+    second = _training()
+    ck2 = Checkpointer(rd, second, RunSettings(), extra, background=False)
+    assert ck2.restore() and second.next_member == 7
+    # stopped again, killed after the model was replaced but before the fold: the checkpoint
+    # names the model for members 0-6 and a chunk for 7-12, and the model holds 13
+    stop_at(second, ck2, 13, fold=False)
+    assert ck2.chunks == [[0, 7, "model.npz"], [7, 13, "members/000007-000013.npz"]]
+    third = _training()
+    ck3 = Checkpointer(rd, third, RunSettings(), extra, background=False)
+    assert ck3.restore() and third.next_member == 13
+    ens = third.run()
+    for k, v in full_ens.compact.arrays.items():
+        np.testing.assert_array_equal(ens.compact.arrays[k], v, err_msg=k)
+    for k, v in full_ens.oob.arrays().items():
+        np.testing.assert_array_equal(ens.oob.arrays()[k], v, err_msg=k)
+
+
+def test_a_checkpoint_naming_a_model_with_too_few_members_is_refused(tmp_path):
+    rd = create(tmp_path / "run")
+    extra = {"sha256": "x", "config": _training().config.to_dict()}
+    tr = _training()
+    ck = Checkpointer(rd, tr, RunSettings(), extra, background=False)
+    tr.run(until=6)
+    ck.write(wait=True)
+    tr.ensemble().save(rd / "model.npz")
+    ck.fold_into_model("model.npz")
+    short = _training(members=24)
+    short.run(until=4)
+    short.ensemble().save(rd / "model.npz")       # replaced by a model of 4 members
+    again = _training()
+    with pytest.raises(ModelFileError, match="fewer than the checkpoint's 6"):
+        Checkpointer(rd, again, RunSettings(), extra, background=False).restore()

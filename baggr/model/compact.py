@@ -134,6 +134,13 @@ class Compact:
             sets += n_sets
         self._sets = int(sets)
 
+    def head(self, k: int) -> "Compact":
+        """The first k members (views; share rows are numbered in member order, so all of them stay)."""
+        a = self.arrays
+        off, loff = a["offset"][:k + 1], a["leaf_offset"][:k + 1]
+        return Compact({"nodes": a["nodes"][:off[-1]], "offset": off, "leaf_offset": loff,
+                        "leaves": a["leaves"][:loff[-1]], "shares": a["shares"]}, self.kind, self.n_out)
+
     def to_forest(self):
         """The learner's node arrays of these trees (a Forest), for a run that goes on from them:
         packing it again gives these records back bit for bit. What the compact layout does not keep

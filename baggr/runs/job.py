@@ -254,6 +254,7 @@ class Job:
             if write_checkpoint and m > self.checkpointer.member:
                 self.checkpointer.write(wait=True)
             self._save_model(tr)
+            self.checkpointer.fold_into_model(MODEL)   # one copy of the trees: the model's
         self._end("stopped", reason)
         if reason == "stop requested":
             try:
