@@ -9,7 +9,7 @@ import time
 from pathlib import Path
 
 from baggr.cli.launch import attach, discard, goes_on, launch, run_mode, say
-from baggr.errors import BaggrError, ConfigError
+from baggr.errors import BaggrError, ConfigError, DataError
 
 
 def _config(args):
@@ -120,10 +120,7 @@ OUT_KINDS = {".csv": "csv", ".tsv": "tsv", ".parquet": "parquet", ".pq": "parque
 
 
 def cmd_predict(args) -> int:
-    import numpy as np
-    import pyarrow as pa
-
-    from baggr import data
+    from baggr.data.batches import Batches
     from baggr.model import ensemble as model
     from baggr.errors import ModelFileError
     from baggr.runs import MODEL, RunDir, RunDirError
@@ -145,39 +142,88 @@ def cmd_predict(args) -> int:
     if not out.parent.resolve().is_dir():
         raise BaggrError(f"cannot write {out}: folder {out.parent} does not exist")
     ens = model.load(path)
-    X = data.read_table(args.data)
-    cols = {}
-    if ens.task == "classes":
-        shares = ens.vote_shares(X)
-        cols["prediction"] = pa.array([ens.classes[k] for k in np.argmax(shares, axis=1)])
-        for k, c in enumerate(ens.classes):
-            cols[f"share_{c}"] = pa.array(shares[:, k])
-    else:
-        cols["prediction"] = pa.array(np.asarray(ens.predict(X), dtype=np.float64))
-    _write_table(pa.table(cols), out, kind)
-    say(f"wrote {len(cols['prediction'])} predictions to {out}")
+    if ens.forest is None or ens.forest.members == 0:
+        raise BaggrError("this model was trained estimate-only (keep_members=False): it has no trees to score new rows")
+    n = _predict_stream(ens, Batches(args.data, ens.schema.names, ens.schema.kinds, rows=BATCH_ROWS), out, kind)
+    say(f"wrote {n} predictions to {out}")
     return 0
 
 
-def _write_table(table, out: Path, kind: str) -> None:
-    """Write via a temp file and rename: a failed write never leaves half a file under the asked name."""
+BATCH_ROWS = 1 << 17   # rows scored at a time: a table larger than memory streams through
+
+
+def _predict_stream(ens, batches, out: Path, kind: str) -> int:
+    """Score batch after batch into a temp file beside out, renamed at the end (a failed run never
+    leaves half a file under the asked name); a progress bar on a terminal. Returns the rows written."""
     import tempfile
+
+    import numpy as np
+    import pyarrow as pa
+
+    classes = pa.array(list(ens.classes)) if ens.task == "classes" else None
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=out.suffix, dir=out.parent.resolve())
     os.close(fd)
+    writer, rows = None, 0
+    bar = _Bar(batches) if sys.stderr.isatty() else None
     try:
-        if kind == "parquet":
-            import pyarrow.parquet as pq
-            pq.write_table(table, tmp)
-        else:
-            import pyarrow.csv as pacsv
-            opts = pacsv.WriteOptions(delimiter="\t" if kind == "tsv" else ",")
-            pacsv.write_csv(table, tmp, write_options=opts)
+        for X in batches:
+            cols = {}
+            if classes is not None:
+                shares = ens.vote_shares(X)
+                cols["prediction"] = classes.take(pa.array(np.argmax(shares, axis=1)))
+                for k, c in enumerate(ens.classes):
+                    cols[f"share_{c}"] = pa.array(shares[:, k])
+            else:
+                cols["prediction"] = pa.array(np.asarray(ens.predict(X), dtype=np.float64))
+            table = pa.table(cols)
+            if writer is None:
+                writer = _writer(tmp, table.schema, kind)
+            writer.write_table(table)
+            rows += table.num_rows
+            if bar is not None:
+                bar.update(rows)
+        if writer is None:
+            raise DataError(f"{batches.path} has no rows")
+        writer.close()
+        writer = None
         os.replace(tmp, out)
     except OSError as e:
         raise BaggrError(f"cannot write {out}: {e.strerror or e}") from None
     finally:
+        if bar is not None:
+            bar.close()
+        if writer is not None:
+            writer.close()
         if os.path.exists(tmp):
             os.unlink(tmp)
+    return rows
+
+
+def _writer(tmp: str, schema, kind: str):
+    if kind == "parquet":
+        import pyarrow.parquet as pq
+        return pq.ParquetWriter(tmp, schema)
+    import pyarrow.csv as pacsv
+    return pacsv.CSVWriter(tmp, schema, write_options=pacsv.WriteOptions(delimiter="\t" if kind == "tsv" else ","))
+
+
+class _Bar:
+    """A progress bar on stderr: bytes of a plain CSV read, else rows of a known total, else rows."""
+
+    def __init__(self, batches):
+        from rich.console import Console
+        from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+        self.batches = batches
+        self.progress = Progress(TextColumn("scoring"), BarColumn(), TextColumn("{task.fields[rows]:,} rows"),
+                                 TimeRemainingColumn(), console=Console(stderr=True), transient=True)
+        self.task = self.progress.add_task("scoring", total=None, rows=0)
+        self.progress.start()
+
+    def update(self, rows: int) -> None:
+        self.progress.update(self.task, completed=self.batches.done, total=self.batches.total, rows=rows)
+
+    def close(self) -> None:
+        self.progress.stop()
 
 
 def cmd_demo(args) -> int:
