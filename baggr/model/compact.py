@@ -74,8 +74,8 @@ class Compact:
         value = np.ascontiguousarray(a["value"])
         slots, leaves, impure = ck.pack_count(a["left"], a["is_cat"], value, a["node_offset"], code)
         if int(slots.max(initial=0)) >= ck.MAX_SLOTS or int(leaves.max(initial=0)) > ck.MAX_LEAVES \
-                or (a["feature"].shape[0] and int(a["feature"].max()) >= ck.MAX_FEATURES):
-            raise BaggrError(f"trees of more than {ck.MAX_LEAVES:,} leaves or on more than {ck.MAX_FEATURES:,} "
+                or (a["feature"].shape[0] and int(a["feature"].max()) >= ck.FEATURE_LIMIT):
+            raise BaggrError(f"trees of more than {ck.MAX_LEAVES:,} leaves or on more than {ck.FEATURE_LIMIT:,} "
                              "features do not fit the compact layout")
         offset = np.concatenate([[0], np.cumsum(slots)]).astype(np.int64)
         leaf_offset = np.concatenate([[0], np.cumsum(leaves)]).astype(np.int64)

@@ -24,7 +24,7 @@ from baggr.learn.split_kernels import inline
 CAT, MISSING_LEFT = 1, 2
 VOTES, VALUES, SHARES = 0, 1, 2
 LEAF_THRESHOLD = 255
-MAX_FEATURES = 1 << 20
+FEATURE_LIMIT = 1 << 20
 MAX_LEAVES = 1 << 22
 MAX_SLOTS = 1 << 32
 M32 = np.uint64(0xFFFFFFFF)
