@@ -25,14 +25,17 @@ import sys, time, resource
 t0 = time.perf_counter()
 import numpy as np, baggr
 t1 = time.perf_counter()
+u0 = resource.getrusage(resource.RUSAGE_SELF)
 ens = baggr.load(sys.argv[1])
 t2 = time.perf_counter()
+u1 = resource.getrusage(resource.RUSAGE_SELF)
+cpu = (u1.ru_utime - u0.ru_utime) + (u1.ru_stime - u0.ru_stime)
 rng = np.random.default_rng(0)
 X = rng.normal(size=(64, 20))
 ens.vote_shares(X, threads=2)
 t3 = time.perf_counter()
 rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**10
-print(f"{t2 - t1:.2f} {t3 - t2:.2f} {rss:.0f} {ens.forest.members}")
+print(f"{t2 - t1:.2f} {t3 - t2:.2f} {rss:.0f} {ens.forest.members} {cpu:.2f}")
 """
 
 
@@ -73,13 +76,14 @@ def main(gib=2.0, folder=None):
         print(f"{time.strftime('%Y-%m-%d %H:%M')} model of {big.forest.members:,} members, {nodes:,} nodes: "
               f"{size / 2**30:.2f} GiB ({size / nodes:.2f} B/node), saved in {t_save:.1f} s")
         del big
+        print(f"  load average {os.getloadavg()[0]:.1f}")
         for what in ("warm", "warm", "cold"):
             if what == "cold" and not drop_caches():
                 print("  cold: cannot drop the page cache here (needs root); not measured")
                 continue
             out = subprocess.run([sys.executable, "-c", LOAD, str(path)], capture_output=True, text=True, check=True)
-            load_s, score_s, rss, members = out.stdout.split()
-            print(f"  {what}: load {load_s} s (map, checksum, check every slot), then 64 rows through all "
+            load_s, score_s, rss, members, cpu = out.stdout.split()
+            print(f"  {what}: load {load_s} s ({cpu} CPU s; map, checksum, check every slot), then 64 rows through all "
                   f"{int(members):,} members {score_s} s; peak RSS {rss} MiB")
 
 
