@@ -15,6 +15,7 @@ from generators import waveform
 
 DATA = Path(__file__).parent / "data"
 FUZZ = settings(max_examples=120, deadline=None, suppress_health_check=list(HealthCheck), derandomize=True)
+FUZZ_MAPPED = settings(FUZZ, max_examples=60)
 LEVELS = np.array(["clay", "stone", "porcelain", "glass"])
 
 
@@ -198,3 +199,54 @@ def test_every_integer_array_is_fuzzed(files):
     for k in ("tree_nodes", "tree_offset", "tree_leaf_offset", "tree_leaves", "bin_binning_offsets", "bin_binning_n_bins",
               "bin_binning_is_cat", "oob_left_out", "oob_pred"):
         assert k in keys
+
+
+@pytest.fixture()
+def map_everything(monkeypatch):
+    monkeypatch.setattr(npzfile, "MAP_BYTES", 0)   # every stored array is mapped, however small
+
+
+def test_stored_arrays_are_aligned_and_mapped(files, map_everything):
+    path = files[0] / "aligned.npz"
+    path.write_bytes(files[1]["v2-hard"])
+    header, arrays = npzfile.read(path)
+    for name, a in arrays.items():
+        if a.size:
+            assert a.ctypes.data % 64 == 0, name          # 64-byte aligned in the mapping
+            assert isinstance(a.base, memoryview) or isinstance(getattr(a.base, "base", None), memoryview), name
+    with np.load(path) as f:                               # an ordinary .npz for numpy (outside check)
+        for name in f.files:
+            if name != "header":
+                np.testing.assert_array_equal(f[name], arrays[name])
+
+
+@FUZZ_MAPPED
+@given(name=st.sampled_from(["v2-hard", "v2-shares", "v1_hard"]),
+       flips=st.lists(st.tuples(st.floats(0, 1, exclude_max=True), st.integers(0, 7)), min_size=1, max_size=3))
+def test_flipped_bits_in_mapped_files(files, map_everything, name, flips):
+    raw = bytearray(files[1][name])
+    for where, bit in flips:
+        raw[int(where * len(raw))] ^= 1 << bit
+    _try(files, name, bytes(raw))
+
+
+@FUZZ_MAPPED
+@given(name=st.sampled_from(["v2-hard", "v1_regression"]), cut=st.floats(0.5, 1, exclude_max=True))
+def test_truncated_mapped_files(files, map_everything, name, cut):
+    raw = files[1][name]
+    assert not _try(files, name, raw[:int(cut * len(raw))])
+
+
+def test_a_flipped_bit_in_mapped_data_fails_the_checksum(files, map_everything):
+    # an entry larger than zipfile's first read (4 KiB), so only the mapping's own CRC check sees it
+    raw = bytearray(files[1]["v2-hard"])
+    (files[0] / "src.npz").write_bytes(raw)
+    with zipfile.ZipFile(files[0] / "src.npz") as z:
+        info = max(z.infolist(), key=lambda i: i.file_size)
+    assert info.file_size > 8192
+    start = info.header_offset + 30 + len(info.filename) + len(info.extra) + info.file_size - 100   # in the data
+    raw[start] ^= 1
+    path = files[0] / "flipped.npz"
+    path.write_bytes(bytes(raw))
+    with pytest.raises(baggr.ModelFileError, match="checksum"):
+        baggr.load(path)
