@@ -67,6 +67,8 @@ class Training:
         """
         target = self.config.members if until is None else until
         backend = backend or Threads(self.config.resolved_threads())
+        # the figures between members are only read through on_member (a run's journal)
+        self.tally.live_fits = on_member is not None
         start, t_run = self.next_member, time.perf_counter()
         elapsed0 = self.elapsed
         recent = collections.deque(maxlen=20)
@@ -102,13 +104,22 @@ class Training:
     def event(self, oob_rows: int, recent=()) -> MemberEvent:
         t = self.tally
         rate = (len(recent) - 1) / (recent[-1] - recent[0]) if len(recent) > 1 and recent[-1] > recent[0] else 0.0
+        raw_error, raw_interval = t.error(), t.interval()
+        live = t.live()
         ev = MemberEvent(member=t.members, members_target=self.config.members, elapsed=self.elapsed,
-                         error=t.error(), interval=t.interval(), coverage=t.coverage, oob_rows=oob_rows, rate=rate)
+                         error=live.get("error", raw_error), interval=live.get("interval", raw_interval),
+                         coverage=t.coverage, oob_rows=oob_rows, rate=rate, raw_error=raw_error,
+                         raw_interval=raw_interval, error_limit=live.get("error_limit", float("nan")),
+                         error_limit_interval=live.get("error_limit_interval"),
+                         members_needed=live.get("members_needed"))
         if t.task == "classes":
-            ev.class_error = t.class_error().tolist()
+            ev.raw_class_error = t.class_error().tolist()
+            ev.class_error = live.get("class_error", ev.raw_class_error)
             ev.confusion = t.confusion.tolist()
         else:
             ev.r2 = t.r2()
+        if t.est is not None and t.est.members == t.members:
+            ev.curve = t.curve_points(self.config.members)
         return ev
 
     @property
@@ -163,6 +174,9 @@ class Training:
         tally = {k[6:]: v for k, v in arrays.items() if k.startswith("tally_")}
         for name, a in self.tally.arrays().items():
             b = tally.get(name)
+            if b is None and name == "value_m2":
+                raise ModelFileError("the checkpoint was written by an older baggr (it lacks the spread of the "
+                                     "members' predictions the estimated curve needs)")
             if b is None or b.dtype != a.dtype or b.shape[1:] != a.shape[1:] or \
                     (name not in ("curve", "class_curve", "curve_interval") and b.shape != a.shape):
                 raise ModelFileError(f"checkpoint array '{name}' does not fit this run's data")
@@ -173,6 +187,9 @@ class Training:
         if self.config.keep_members and len(trees) != m:
             raise ModelFileError(f"checkpoint has {m} members but {len(trees)} kept trees")
         self.tally.restore(tally)
+        bad = self.tally.est.check() if self.tally.est is not None else None
+        if bad:
+            raise ModelFileError(f"checkpoint's estimated curve is damaged: {bad}")
         self.trees = []
         self._arena = self._new_arena()
         if self.config.keep_members:

@@ -7,12 +7,18 @@ from dataclasses import dataclass, field
 
 @dataclass
 class MemberEvent:
-    """Figures after `member` members (1-based: the ensemble size this event describes)."""
+    """Figures after `member` members (1-based: the ensemble size this event describes).
+
+    error, interval and class_error estimate the error of the kept `member`-member ensemble
+    (baggr/oob/curve.py, from the run's latest refit); raw_error and raw_interval are the
+    textbook OOB figures after `member` members. `curve` is set after a refit: the estimated
+    curve at some ensemble sizes, for drawing.
+    """
 
     member: int
     members_target: int
     elapsed: float                  # seconds of training so far (summed over resumes)
-    error: float                    # OOB misclassification rate or MSE; NaN while no row was OOB
+    error: float                    # estimated misclassification rate or MSE; NaN while no row was OOB
     interval: tuple | None
     coverage: float                 # share of rows with at least one OOB vote
     oob_rows: int                   # OOB rows of this member
@@ -20,6 +26,13 @@ class MemberEvent:
     confusion: list | None = None
     r2: float | None = None
     rate: float = 0.0               # members per second, recent
+    raw_error: float = math.nan     # textbook OOB error after `member` members
+    raw_interval: tuple | None = None
+    raw_class_error: list = field(default_factory=list)
+    error_limit: float = math.nan   # estimated error of an unlimited ensemble
+    error_limit_interval: tuple | None = None
+    members_needed: int | None = None
+    curve: dict | None = None       # {"b": sizes, "error", "lo", "hi": lists} after a refit
 
     def journal_fields(self) -> dict:
         """Fields for the journal's member line (strict JSON: NaN becomes null)."""
@@ -27,6 +40,16 @@ class MemberEvent:
              "interval": None if self.interval is None else [_num(v) for v in self.interval],
              "class_error": [_num(v) for v in self.class_error], "coverage": _num(self.coverage),
              "oob_rows": self.oob_rows, "rate": round(self.rate, 4)}
+        d["raw_error"] = _num(self.raw_error)
+        d["raw_interval"] = None if self.raw_interval is None else [_num(v) for v in self.raw_interval]
+        if self.raw_class_error:
+            d["raw_class_error"] = [_num(v) for v in self.raw_class_error]
+        d["error_limit"] = _num(self.error_limit)
+        d["error_limit_interval"] = (None if self.error_limit_interval is None
+                                     else [_num(v) for v in self.error_limit_interval])
+        d["members_needed"] = self.members_needed
+        if self.curve is not None:
+            d["curve"] = {k: [_num(v) if k != "b" else int(v) for v in vs] for k, vs in self.curve.items()}
         if self.confusion is not None:
             d["confusion"] = self.confusion
         if self.r2 is not None:

@@ -12,6 +12,42 @@ def twonorm(n, seed, p=20):
     return X, y
 
 
+def threenorm(n, seed, p=20):
+    """Breiman (1996), Bias, variance and arcing classifiers: class 0 drawn with equal probability from
+    N(a 1, I) and N(-a 1, I), class 1 from N((a, -a, a, -a, ...), I), p=20, a = 2 / sqrt(20); the
+    Bayes error is about 10.5%."""
+    rng = np.random.default_rng(seed)
+    y = rng.integers(0, 2, n)
+    a = 2 / np.sqrt(p)
+    alt = np.where(np.arange(p) % 2 == 0, a, -a)
+    sign = np.where(rng.random(n) < 0.5, 1.0, -1.0)
+    mean = np.where(y[:, None] == 0, sign[:, None] * a, alt)
+    return rng.normal(size=(n, p)) + mean, y
+
+
+def twonorm_p1(X):
+    """P(class 1 | x) for twonorm: the log odds of the two unit normals is 2 a sum(x) (Bayes' rule)."""
+    a = 2 / np.sqrt(X.shape[1])
+    return 1 / (1 + np.exp(-2 * a * X.sum(axis=1)))
+
+
+def threenorm_p1(X):
+    """P(class 1 | x) for threenorm by Bayes' rule: the densities are proportional to cosh(a sum(x)) and
+    exp(alt . x) (the means have equal norms), equal priors."""
+    p = X.shape[1]
+    a = 2 / np.sqrt(p)
+    alt = np.where(np.arange(p) % 2 == 0, a, -a)
+    s, t = a * X.sum(axis=1), X @ alt
+    # log cosh(s) = |s| + log1p(exp(-2|s|)) - log 2
+    log_f0 = np.abs(s) + np.log1p(np.exp(-2 * np.abs(s))) - np.log(2)
+    return 1 / (1 + np.exp(log_f0 - t))
+
+
+def friedman1_mean(X):
+    """The noise-free part of Friedman #1 (its conditional mean)."""
+    return (10 * np.sin(np.pi * X[:, 0] * X[:, 1]) + 20 * (X[:, 2] - 0.5) ** 2 + 10 * X[:, 3] + 5 * X[:, 4])
+
+
 def friedman1(n, seed, p=10, noise=1.0):
     """Friedman (1991), Multivariate adaptive regression splines: y = 10 sin(pi x1 x2) + 20 (x3 - 0.5)^2
     + 10 x4 + 5 x5 + N(0, 1), x ~ U[0, 1]^10 (x6..x10 are noise); the MSE floor is the noise variance 1."""

@@ -20,7 +20,8 @@ def recount_classes(y, n_classes, deltas):
     class_error = np.array([wrong[y == k].sum() / covered[y == k].sum() if covered[y == k].any() else np.nan
                             for k in range(n_classes)])
     return {"covered": int(covered.sum()), "error": wrong.sum() / covered.sum() if covered.any() else np.nan,
-            "confusion": confusion, "class_error": class_error, "left_out": left_out, "pred": pred}
+            "confusion": confusion, "class_error": class_error, "left_out": left_out, "pred": pred,
+            "votes": votes}
 
 
 def recount_regression(y, deltas):

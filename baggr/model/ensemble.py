@@ -44,29 +44,43 @@ class Ensemble:
     def members(self) -> int:
         return self.oob.members
 
-    def _scores(self, X, threads: int | None) -> np.ndarray:
+    def _trees(self, members) -> Compact:
+        """The kept members to score with: all, or the first `members` (as a run of that many)."""
         if self.forest is None or self.forest.members == 0:
             raise BaggrError("this ensemble was trained estimate-only (keep_members=False): "
                              "it has no trees to score new rows")
+        if members is None:
+            return self.compact
+        if isinstance(members, bool) or not isinstance(members, (int, np.integer)) \
+                or not 1 <= members <= self.forest.members:
+            raise BaggrError(f"members must be a whole number from 1 to {self.forest.members} "
+                             f"(the members this ensemble keeps), got {members!r}")
+        return self.compact.head(int(members))
+
+    def _scores(self, X, trees: Compact, threads: int | None) -> np.ndarray:
         if isinstance(X, (str, bytes)) or hasattr(X, "__fspath__"):
             X = data.read_table(X)
         codes = data.encode(X, self.schema, self.binning)
-        return score(codes, self.compact, threads=threads)
+        return score(codes, trees, threads=threads)
 
-    def vote_shares(self, X, threads: int | None = None) -> np.ndarray:
+    def vote_shares(self, X, threads: int | None = None, members: int | None = None) -> np.ndarray:
         """(n, C) share of the members' votes for each class (hard votes, or mean leaf shares).
-        threads: None uses every core; the figures are the same for any number."""
+        threads: None uses every core; the figures are the same for any number. members: score
+        with the first that many members only, as a run of that size would."""
         if self.task != "classes":
             raise BaggrError("vote shares are for classes; this ensemble does regression (use predict)")
-        return self._scores(X, threads) / self.forest.members
+        trees = self._trees(members)
+        return self._scores(X, trees, threads) / trees.members
 
-    def predict(self, X, threads: int | None = None) -> np.ndarray:
+    def predict(self, X, threads: int | None = None, members: int | None = None) -> np.ndarray:
         """Class labels (ties to the first class in label order) or regression means for new rows.
-        threads: None uses every core; the figures are the same for any number."""
-        s = self._scores(X, threads)
+        threads: None uses every core; the figures are the same for any number. members: score
+        with the first that many members only, as a run of that size would."""
+        trees = self._trees(members)
+        s = self._scores(X, trees, threads)
         if self.task == "classes":
             return np.array(self.classes, dtype=object)[np.argmax(s, axis=1)]
-        return s[:, 0] / self.forest.members
+        return s[:, 0] / trees.members
 
     def save(self, path, *, compress: bool = False) -> None:
         """Write the model file (trees, binning, schema, OOB results) to path, atomically.

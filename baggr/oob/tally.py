@@ -5,6 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from baggr.oob import curve as est
 from baggr.oob import tally_kernels as k
 from baggr.oob.intervals import normal_mean, wilson
 
@@ -20,10 +21,16 @@ class MemberDelta:
 
 
 class Tally:
-    """OOB tallies of the members folded so far, updated in O(OOB rows) per member."""
+    """OOB tallies of the members folded so far, updated in O(OOB rows) per member.
+
+    The curve kept here is the textbook OOB error after each member (the raw curve). The
+    estimated error of the kept ensemble (baggr/oob/curve.py) is refitted from the tallies after
+    the members where curve.refit_due says so and read at the current size in between; `est`
+    holds the latest fit (it is part of a checkpoint, so a resumed run reads the same figures).
+    """
 
     ARRAYS = ("votes", "pred", "left_out", "confusion", "class_wrong", "class_covered", "totals",
-              "value_sum", "sq_err", "sums", "curve", "class_curve", "curve_interval")
+              "value_sum", "value_m2", "sq_err", "sums", "curve", "class_curve", "curve_interval")
 
     def __init__(self, task: str, y: np.ndarray, n_classes: int, vote: str, capacity: int):
         self.task, self.y, self.n_classes, self.vote = task, y, n_classes, vote
@@ -46,10 +53,13 @@ class Tally:
             self._no_class = np.zeros(0, np.int32)
         else:
             self.value_sum = np.zeros(n, np.float64)
+            self.value_m2 = np.zeros(n, np.float64)
             self.sq_err = np.zeros(n, np.float64)
             self.sums = np.zeros(5, np.float64)
         self.curve = np.full(capacity, np.nan)
         self.curve_interval = np.full((capacity, 2), np.nan)
+        self.est: est.Fit | None = None
+        self.live_fits = True   # False: nobody reads figures between members, so skip the refits
 
     @property
     def left_out(self) -> np.ndarray:
@@ -81,7 +91,7 @@ class Tally:
                 k.fold_classes(delta.rows, row_votes, row_class, self.y, self.votes, self._pred, self._left_out,
                                self.confusion, self.class_wrong, self.class_covered, self.totals)
         else:
-            k.fold_regression(delta.rows, delta.votes, self.y, self.value_sum, self._left_out,
+            k.fold_regression(delta.rows, delta.votes, self.y, self.value_sum, self.value_m2, self._left_out,
                               self.sq_err, self.sums)
         m = self.members
         self.members += 1
@@ -98,6 +108,8 @@ class Tally:
             iv = self.interval()
         if iv is not None:
             self.curve_interval[m] = iv
+        if self.live_fits and est.refit_due(self.members):
+            self.est = self.fit(sample=est.LIVE_ROWS)
 
     def _grow_curve(self) -> None:
         if self.members <= self.curve.shape[0]:
@@ -154,6 +166,41 @@ class Tally:
         var = self.sums[4] / n - (self.sums[3] / n) ** 2
         return float(1.0 - (self.sums[0] / n) / var) if var > 0 else float("nan")
 
+    # -- the estimated error of the kept ensemble ---------------------------------------------------
+    def fit(self, sample: int | None = None) -> "est.Fit":
+        """Fit the estimated curve to the tallies as they stand (sample: see curve.fit_classes)."""
+        if self.task == "classes":
+            return est.fit_classes(self.votes, self._left_out, self.y, self.n_classes, self.members, sample=sample)
+        return est.fit_regression(self.value_sum, self.value_m2, self._left_out, self.y, self.members)
+
+    def live(self) -> dict:
+        """The estimate for the current size from the latest fit: error, interval, class_error,
+        class_interval, error_limit, error_limit_interval, members_needed (empty before a fit)."""
+        f, b = self.est, self.members
+        if f is None:
+            return {}
+        e, v = float(f.at(b)[0]), float(f.var_at(b)[0])
+        out = {"error": e, "interval": f.interval(e, v), "error_limit": f.limit,
+               "error_limit_interval": f.limit_interval, "members_needed": f.members_needed()}
+        if self.task == "classes":
+            ce, cv = f.class_at(b)[0], f.class_var_at(b)[0]
+            out["class_error"] = ce.tolist()
+            out["class_interval"] = [f.interval(float(a), float(w)) for a, w in zip(ce, cv)]
+        return out
+
+    def curve_points(self, target: int, points: int = 48) -> dict:
+        """The latest fit's curve at about `points` sizes from 1 to past the sizes of interest
+        (the target, members_needed), log-spaced, for a dashboard to draw."""
+        f = self.est
+        need = f.members_needed() or 0
+        top = int(min(max(2 * target, 2 * self.members, need + need // 4, 16), 1 << 22))
+        b = np.unique(np.round(np.geomspace(1, top, points)).astype(np.int64))
+        e, v = f.at(b), f.var_at(b)
+        iv = [f.interval(float(x), float(w)) for x, w in zip(e, v)]
+        short = lambda xs: [float(f"{x:.6g}") for x in xs]  # noqa: E731  (a journal line, not a store)
+        return {"b": b.tolist(), "error": short(e), "lo": short(i[0] if i else float("nan") for i in iv),
+                "hi": short(i[1] if i else float("nan") for i in iv)}
+
     # -- checkpoints -----------------------------------------------------------------------------
     def arrays(self) -> dict:
         """Every array of the tally, for a checkpoint (curves trimmed to the members folded)."""
@@ -162,13 +209,17 @@ class Tally:
             if hasattr(self, name) and name != "left_out":
                 a = getattr(self, name)
                 out[name] = a[: self.members] if name in ("curve", "class_curve", "curve_interval") else a
+        if self.est is not None:
+            out.update({"est_" + name: a for name, a in self.est.arrays().items()})
         return out
 
     def restore(self, arrays: dict) -> None:
         """Load a checkpoint's arrays (already validated for shape and dtype by the caller)."""
         self.members = int(arrays["members"][0])
+        fit = {name[4:]: a for name, a in arrays.items() if name.startswith("est_")}
+        self.est = est.Fit.from_arrays(self.task, fit) if fit else None
         for name, a in arrays.items():
-            if name == "members":
+            if name == "members" or name.startswith("est_"):
                 continue
             if self._derived and name in ("pred", "left_out"):
                 continue  # they follow from the votes

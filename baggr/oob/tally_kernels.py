@@ -131,17 +131,24 @@ def fold_two_hard(rows, row_class, y, votes, confusion, class_wrong, class_cover
 
 
 @kernel
-def fold_regression(rows, row_values, y, value_sum, left_out, sq_err, sums):
+def fold_regression(rows, row_values, y, value_sum, value_m2, left_out, sq_err, sums):
     """Add one member's predictions for its OOB rows and update the running squared-error sums.
 
     sq_err[r]: current squared error of row r's OOB mean; sums = [sse, sum of sq_err**2, covered,
     sum y, sum y**2] over covered rows (floats; folded in member order, so identical everywhere).
+    value_m2[r]: sum of squared deviations of row r's OOB predictions from their mean (Welford 1962),
+    for the spread of a member's prediction that the estimated curve needs.
     """
     for i in range(rows.shape[0]):
         r = rows[i]
-        value_sum[r] += row_values[i]
+        x = row_values[i]
+        k_old = left_out[r]
+        mean_old = value_sum[r] / k_old if k_old > 0 else 0.0
+        value_sum[r] += x
         left_out[r] += 1
-        d = value_sum[r] / left_out[r] - y[r]
+        mean = value_sum[r] / left_out[r]
+        value_m2[r] += (x - mean_old) * (x - mean) if k_old > 0 else 0.0
+        d = mean - y[r]
         e = d * d
         if left_out[r] == 1:
             sums[2] += 1.0

@@ -3,25 +3,38 @@ from __future__ import annotations
 
 import numpy as np
 
+from baggr.oob.curve import Fit
 from baggr.oob.intervals import normal_mean, wilson
 
 
 class OOB:
     """Out-of-bag figures: each row judged only by the members whose draw left it out.
 
-    Caution: with few members each row is judged by about 0.37 x members trees, so a small
-    ensemble's OOB error reads high (Bylander 2002; Janitza & Hornung 2018); read the curve's tail.
+    Each row's OOB vote comes from about 0.37 x members trees, so the textbook OOB error after b
+    members (`raw_curve`) reads high: it is the error of an ensemble of about 0.37 b members
+    (Bylander 2002; Janitza & Hornung 2018). `curve`, `error` and `interval` estimate the error of
+    the kept b-member ensemble itself (baggr/oob/curve.py), `error_limit` that of an unlimited one.
     """
 
     def __init__(self, task: str, classes: list, arrays: dict):
         self.task, self.classes, self._a = task, list(classes), arrays
+        fit = {k[6:]: v for k, v in arrays.items() if k.startswith("final_")}
+        self._fit = Fit.from_arrays(task, fit) if fit else None
 
     @classmethod
     def from_tally(cls, tally, classes) -> "OOB":
-        arrays = {k: np.array(v, copy=True) for k, v in tally.arrays().items()}
+        arrays = {k: np.array(v, copy=True) for k, v in tally.arrays().items() if not k.startswith("est_")}
         if tally.task == "classes":
             arrays["class_rows"] = tally.class_rows.copy()
+        if tally.members > 0:
+            arrays.update({"final_" + k: v for k, v in tally.fit().arrays().items()})
         return cls(tally.task, classes, arrays)
+
+    @property
+    def corrected(self) -> bool:
+        """Whether the figures are the estimate for the kept ensemble (False: a model file written
+        before the estimate existed; curve and error are then the raw OOB figures)."""
+        return self._fit is not None
 
     def arrays(self) -> dict:
         return self._a
@@ -51,35 +64,126 @@ class OOB:
         return self.covered / n if n else 0.0
 
     # -- the estimate ----------------------------------------------------------------------------
+    def _sizes(self) -> np.ndarray:
+        return np.arange(1, self.members + 1, dtype=np.int64)
+
+    def _cached(self, name, make):
+        c = self.__dict__.setdefault("_cache", {})
+        if name not in c:
+            c[name] = make()
+        return c[name]
+
     @property
     def curve(self) -> np.ndarray:
-        """OOB error after 1, 2, ..., M members (MSE for regression)."""
-        return self._a["curve"]
+        """Estimated error (MSE for regression) of the kept b-member ensemble, b = 1..M."""
+        if self._fit is None:
+            return self.raw_curve
+        return self._cached("curve", lambda: self._fit.at(self._sizes()))
 
     @property
     def curve_interval(self) -> np.ndarray:
         """(M, 2) 95% interval of the curve."""
+        if self._fit is None:
+            return self.raw_curve_interval
+        return self._cached("curve_interval", lambda: self._intervals(self.curve, self._fit.var_at(self._sizes())))
+
+    def _intervals(self, e, v) -> np.ndarray:
+        out = np.full((e.shape[0], 2), np.nan)
+        for i, (a, b) in enumerate(zip(e.tolist(), v.tolist())):
+            iv = self._fit.interval(a, b)
+            if iv is not None:
+                out[i] = iv
+        return out
+
+    @property
+    def raw_curve(self) -> np.ndarray:
+        """The textbook OOB error after 1, 2, ..., M members (each row voted on by its OOB members)."""
+        return self._a["curve"]
+
+    @property
+    def raw_curve_interval(self) -> np.ndarray:
         return self._a["curve_interval"]
 
     @property
     def error(self) -> float:
+        """Estimated error of the kept ensemble (all M members)."""
         return float(self.curve[-1]) if self.curve.shape[0] else float("nan")
 
     @property
     def interval(self):
+        if self._fit is not None:
+            if self.members == 0:
+                return None
+            iv = self.curve_interval[-1]
+            return None if np.isnan(iv[0]) else (float(iv[0]), float(iv[1]))
+        return self.raw_interval
+
+    @property
+    def variance(self) -> float:
+        """Variance of `error` (over the sampling of rows) that the interval is built on."""
+        if self._fit is None or self.members == 0:
+            return float("nan")
+        return float(self._fit.var_at(self.members)[0])
+
+    @property
+    def raw_error(self) -> float:
+        return float(self.raw_curve[-1]) if self.raw_curve.shape[0] else float("nan")
+
+    @property
+    def raw_interval(self):
         if self.task == "classes":
             return wilson(int(self._a["totals"][0]), int(self._a["totals"][1]))
         s = self._a["sums"]
         return normal_mean(float(s[0]), float(s[1]), float(s[2]))
 
     @property
+    def error_limit(self) -> float:
+        """Estimated error of an unlimited ensemble (NaN where not estimated)."""
+        return self._fit.limit if self._fit is not None else float("nan")
+
+    @property
+    def error_limit_interval(self):
+        return self._fit.limit_interval if self._fit is not None else None
+
+    @property
+    def members_needed(self) -> int | None:
+        """Fewest members whose estimated error lies within tolerance of error_limit: 1% of it or
+        (classes) 0.1 percentage point, the larger. None: not estimated, or beyond 4 million."""
+        return self._fit.members_needed() if self._fit is not None else None
+
+    @property
+    def tolerance(self) -> float:
+        return self._fit.tolerance() if self._fit is not None else float("nan")
+
+    def estimate_at(self, b: int) -> tuple:
+        """(estimate, 95% interval) for an ensemble of b members (any b >= 1, also beyond M)."""
+        if self._fit is None:
+            raise AttributeError("this model file holds no estimated curve (written by an older baggr)")
+        e, v = float(self._fit.at(b)[0]), float(self._fit.var_at(b)[0])
+        return e, self._fit.interval(e, v)
+
+    @property
     def class_curve(self) -> np.ndarray:
-        """(M, C) per-class OOB error after each member (classes only)."""
+        """(M, C) per-class estimated error of the kept b-member ensemble (classes only)."""
+        self._need_classes()
+        if self._fit is None:
+            return self.raw_class_curve
+        return self._cached("class_curve", lambda: self._fit.class_at(self._sizes()))
+
+    @property
+    def raw_class_curve(self) -> np.ndarray:
         self._need_classes()
         return self._a["class_curve"]
 
     @property
     def class_error(self) -> np.ndarray:
+        self._need_classes()
+        if self._fit is not None:
+            return self.class_curve[-1] if self.members else np.full(len(self.classes), np.nan)
+        return self.raw_class_error
+
+    @property
+    def raw_class_error(self) -> np.ndarray:
         self._need_classes()
         w, c = self._a["class_wrong"], self._a["class_covered"]
         return np.where(c > 0, w / np.maximum(c, 1), np.nan)
@@ -87,6 +191,10 @@ class OOB:
     @property
     def class_interval(self) -> list:
         self._need_classes()
+        if self._fit is not None and self.members:
+            m = self.members
+            e, v = self._fit.class_at(m)[0], self._fit.class_var_at(m)[0]
+            return [self._fit.interval(float(a), float(b)) for a, b in zip(e, v)]
         return [wilson(int(w), int(c)) for w, c in zip(self._a["class_wrong"], self._a["class_covered"])]
 
     @property
@@ -139,10 +247,17 @@ class OOB:
         """JSON-able figures for reports and the model header."""
         d = {"task": self.task, "members": self.members, "error": _f(self.error),
              "interval": None if self.interval is None else [_f(v) for v in self.interval],
+             "raw_error": _f(self.raw_error),
+             "raw_interval": None if self.raw_interval is None else [_f(v) for v in self.raw_interval],
+             "error_limit": _f(self.error_limit),
+             "error_limit_interval": None if self.error_limit_interval is None
+             else [_f(v) for v in self.error_limit_interval],
+             "members_needed": self.members_needed,
              "coverage": self.coverage, "uncovered": self.uncovered}
         if self.task == "classes":
             d["classes"] = self.classes
             d["class_error"] = [_f(v) for v in self.class_error]
+            d["raw_class_error"] = [_f(v) for v in self.raw_class_error]
             d["class_rows"] = [int(v) for v in self.class_rows]
             d["confusion"] = self.confusion.tolist()
         else:

@@ -1,0 +1,453 @@
+"""The estimated error of the kept b-member ensemble, for every b, from the OOB tally.
+
+Why a correction: a row's OOB vote comes from the ~0.37 x M members whose draw left it out, so
+the textbook OOB error after M members estimates the error of an ensemble of about 0.37 x M
+members (Breiman 2001 defines the OOB estimate; the error of a majority-vote ensemble falls
+towards its limit like c/b: Lopes 2019, Annals of Statistics 47(2); Lopes 2020, JSPI 204).
+
+Classes. Given the data, the members are independent draws, so the votes a row gets from
+members that left it out are independent draws from one distribution over the classes: the row's
+vote probabilities p_i. The b-member ensemble errs on row i with probability g_b(p_i), the
+chance that a plurality of b such votes is not the row's class (ties to the lowest class, as in
+scoring); the OOB curve instead averages g_k over k ~ 0.37 b votes. The k_i votes a row has
+pin p_i down only roughly, so the estimate goes through the distribution of p over the rows of
+each class (empirical Bayes, Robbins 1956): that distribution (the prior) is estimated on a grid
+by the smoothed EM of Silverman, Jones, Wilson & Nychka (1990, JRSS B 52: 271-324), the EM of
+the nonparametric maximum likelihood mixing distribution (Kiefer & Wolfowitz 1956; Laird 1978)
+with a small smoothing step each round, which keeps the deconvolution stable. The estimate for
+size b is then sum_j prior_j g_b(p_j), averaged over the classes by their covered rows; b -> oo
+gives the error limit. Two classes: one probability per row (a vote for its class or not).
+Three classes: two (the row's class and the lower-indexed other). Four or more: the row's class,
+its strongest rival by OOB votes and the rest together, ties counted against the row's class
+(an approximation: the rest acts as one rival, so the figure leans high). Leaf-share votes are
+rounded to whole votes per row (exact for pure leaves, the default full trees).
+
+Regression. E[(y - mean of b members)^2 | row] = (y - mu_i)^2 + sigma_i^2 / b, mu_i and sigma_i^2
+the mean and variance of a member's prediction for the row (bias-variance; as in Lopes, Wu & Lee
+2020 for regression ensembles). With k_i OOB predictions of mean m_i and unbiased variance s_i^2,
+(y - m_i)^2 - s_i^2 / k_i + s_i^2 / b is unbiased for it; rows with one prediction take the
+pooled s^2 of the others. So the curve is A + B / b exactly, and the limit is A.
+
+Intervals. The variance of the estimate over the sampling of rows is its infinitesimal jackknife
+(the delta method through the smoothed-EM fixed point, Jaeckel 1972; Efron 1982 ch. 6): each row's
+influence on the figure, squared and summed. For classes the interval is Wilson's (1927) at the
+estimate with the effective number of rows e (1 - e) / variance (the design-effect form used for
+survey proportions, Korn & Graubard 1998); for regression a normal interval. bench/coverage.py
+measures how often these intervals hold the kept ensemble's error on fresh rows.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from baggr.oob import curve_kernels as k
+from baggr.oob.intervals import Z95, wilson
+
+EXACT_SIZES = 64          # every ensemble size up to here has its own value
+SIZE_STEP = 1.05          # above it, pairs (b, b + 1) every 5% (odd and even sizes differ by ties)
+MAX_SIZE = 1 << 22        # beyond the last stored size the curve runs to its limit like c / b
+MAX_SIZE_THREE = 128      # three or more classes: exact sums cost O(b) per grid point and size
+GRID_TWO = 101            # grid of a row's chance of voting right (two classes)
+GRID_THREE = 20           # steps per side of the triangle grid (three or more classes)
+PASSES_TWO, PASSES_THREE = 3, 1
+TOL, MAX_ITER = 1e-9, 5000
+DROP = 1e-10             # grid points a cell's likelihood rules out (share below this) are skipped
+LIVE_ROWS = 4096          # during a run, the prior is refitted on at most this many rows
+TOLERANCE_REL, TOLERANCE_ABS = 0.01, 0.001
+
+
+def refit_due(m: int) -> bool:
+    """Members after which a run refits the estimate: m = round(2^(j/2)), about 2 per doubling.
+
+    A refit reads every row once; in between, the last fit is read at the current size (its
+    prior does not depend on the size, only its precision grows with the members)."""
+    if m < 1:
+        return False
+    j = round(2 * math.log2(m))
+    return any(round(2 ** (i / 2)) == m for i in (j - 1, j, j + 1))
+
+
+# -- ensemble sizes and the g tables -------------------------------------------------------------
+_cache: dict = {}
+
+
+def sizes(max_size: int) -> np.ndarray:
+    """Ensemble sizes with a stored value: 1..64, then pairs (b, b + 1) every 5% up to max_size."""
+    key = ("sizes", max_size)
+    if key not in _cache:
+        out = list(range(1, min(EXACT_SIZES, max_size) + 1))
+        b = float(EXACT_SIZES)
+        while True:
+            b *= SIZE_STEP
+            s = int(round(b))
+            if s + 1 > max_size:
+                break
+            if s > out[-1]:
+                out += [s, s + 1]
+        _cache[key] = np.array(out, np.int64)
+    return _cache[key]
+
+
+def variance_sizes(all_sizes: np.ndarray) -> np.ndarray:
+    """Indices into all_sizes where the influence is computed (about 2 per doubling); the design
+    effect between them is interpolated in log b."""
+    key = ("vsizes", all_sizes.shape[0], int(all_sizes[-1]))
+    if key not in _cache:
+        picks, last = [], 0.0
+        for i, b in enumerate(all_sizes):
+            if b <= 4 or b >= last * math.sqrt(2) or i == all_sizes.shape[0] - 1:
+                picks.append(i)
+                last = float(b)
+        _cache[key] = np.array(picks, np.int64)
+    return _cache[key]
+
+
+def _grid_two() -> tuple[np.ndarray, np.ndarray]:
+    key = "grid2"
+    if key not in _cache:
+        p = np.linspace(0.0, 1.0, GRID_TWO)
+        _cache[key] = (np.ascontiguousarray(np.stack([p, 1.0 - p], axis=1)),
+                       _smoothing(_line_neighbours(GRID_TWO), 2, PASSES_TWO))
+    return _cache[key]
+
+
+def _grid_three() -> tuple[np.ndarray, np.ndarray]:
+    key = "grid3"
+    if key not in _cache:
+        h = GRID_THREE
+        pts = [(i, j) for i in range(h + 1) for j in range(h + 1 - i)]
+        index = {pt: n for n, pt in enumerate(pts)}
+        nbrs = []
+        for i, j in pts:
+            cand = [(i + 1, j), (i - 1, j), (i, j + 1), (i, j - 1), (i + 1, j - 1), (i - 1, j + 1)]
+            nbrs.append([index[c] for c in cand if c in index])
+        grid = np.array([(i / h, j / h, (h - i - j) / h) for i, j in pts])
+        _cache[key] = (np.ascontiguousarray(grid), _smoothing(nbrs, 6, PASSES_THREE))
+    return _cache[key]
+
+
+def _line_neighbours(g: int) -> list:
+    return [[j for j in (i - 1, i + 1) if 0 <= j < g] for i in range(g)]
+
+
+def _smoothing(nbrs: list, degree: int, passes: int) -> np.ndarray:
+    """S = I - L / (2 degree), L the grid graph's Laplacian: symmetric, keeps the total weight,
+    on a line the [1/4, 1/2, 1/4] kernel (EMS's smoothing step, Silverman et al. 1990)."""
+    g = len(nbrs)
+    s = np.eye(g)
+    for i, nb in enumerate(nbrs):
+        for j in nb:
+            s[i, j] += 1.0 / (2 * degree)
+            s[i, i] -= 1.0 / (2 * degree)
+    s = np.linalg.matrix_power(s, passes)
+    s[np.abs(s) < 1e-15] = 0.0
+    ptr = np.concatenate([[0], np.cumsum((s != 0).sum(axis=1))]).astype(np.int64)
+    idx = np.ascontiguousarray(np.nonzero(s)[1].astype(np.int64))
+    return ptr, idx, np.ascontiguousarray(s[s != 0])
+
+
+def _g_two(all_sizes: np.ndarray, tie_wrong: bool) -> np.ndarray:
+    """(G, S + 1): chance that b votes with chance p each of being right elect a wrong class;
+    the last column is b -> oo (a tie at p = 1/2 counts half)."""
+    key = ("g2", all_sizes.shape[0], int(all_sizes[-1]), tie_wrong)
+    if key not in _cache:
+        from scipy.special import bdtr
+        p, _ = _grid_two()
+        p = p[:, 0]
+        b = all_sizes[None, :]
+        # right votes X ~ Bin(b, p); wrong when X < b/2, or X = b/2 with the tie going elsewhere
+        thr = np.where(all_sizes % 2 == 1, (all_sizes - 1) // 2, all_sizes // 2 - 1 + int(tie_wrong))[None, :]
+        with np.errstate(all="ignore"):
+            g = np.where(thr >= 0, bdtr(np.maximum(thr, 0), b, p[:, None]), 0.0)
+        limit = np.where(p < 0.5, 1.0, np.where(p > 0.5, 0.0, 0.5))
+        _cache[key] = np.ascontiguousarray(np.concatenate([g, limit[:, None]], axis=1))
+    return _cache[key]
+
+
+def _g_three(all_sizes: np.ndarray, tie_1: bool, tie_2: bool) -> np.ndarray:
+    """(G, S + 1) for three categories (own class, other 1, other 2); tie_c: a tie with other c
+    goes to the own class. Exact: P(own wins) = sum_x P(X_own = x) P(both others stay below x)."""
+    key = ("g3", all_sizes.shape[0], int(all_sizes[-1]), tie_1, tie_2)
+    if key not in _cache:
+        from scipy.special import bdtr
+        from scipy.stats import binom
+        grid, _ = _grid_three()
+        py, p1, p2 = grid[:, 0], grid[:, 1], grid[:, 2]
+        q = np.where(p1 + p2 > 0, p1 / np.where(p1 + p2 > 0, p1 + p2, 1.0), 0.5)
+        cols = []
+        for b in all_sizes:
+            x = np.arange(b + 1)[:, None]
+            rest = b - x
+            hi = np.minimum(rest, x - 1 + int(tie_1))
+            lo = np.maximum(0, rest - (x - 1 + int(tie_2)))
+            with np.errstate(all="ignore"):
+                upper = np.where(hi >= 0, bdtr(np.maximum(hi, 0), rest, q[None, :]), 0.0)
+                lower = np.where(lo >= 1, bdtr(np.maximum(lo - 1, 0), rest, q[None, :]), 0.0)
+            inside = np.where(hi >= lo, upper - lower, 0.0)
+            win = (binom.pmf(x, b, py[None, :]) * inside).sum(axis=0)
+            cols.append(1.0 - win)
+        # b -> oo: the own class wins when its chance is the largest (ties share)
+        top = np.maximum(p1, p2)
+        limit = np.where(py > top + 1e-12, 0.0, np.where(py < top - 1e-12, 1.0, 0.5))
+        _cache[key] = np.ascontiguousarray(np.clip(np.stack(cols + [limit], axis=1), 0.0, 1.0))
+    return _cache[key]
+
+
+# -- the fit ---------------------------------------------------------------------------------------
+@dataclass
+class Fit:
+    """Estimated error of a b-member ensemble at the stored sizes (last entry: b -> oo), and the
+    variance of each estimate; per class too (classes)."""
+
+    task: str
+    members: int              # members folded when this was fitted
+    sizes: np.ndarray         # int64 ensemble sizes with a value (ascending)
+    error: np.ndarray         # (S + 1,) estimate; last = error limit
+    var: np.ndarray           # (S + 1,) its variance
+    class_error: np.ndarray   # (S + 1, C) or (S + 1, 0) for regression
+    class_var: np.ndarray
+
+    ARRAYS = ("members", "sizes", "error", "var", "class_error", "class_var")
+
+    # -- reading ---------------------------------------------------------------------------------
+    def at(self, b) -> np.ndarray:
+        """Estimate at ensemble sizes b (array of ints >= 1; 0 or less means unlimited)."""
+        return _interp(self.sizes, self.error, b)
+
+    def var_at(self, b) -> np.ndarray:
+        return _interp(self.sizes, self.var, b)
+
+    def class_at(self, b) -> np.ndarray:
+        b = np.atleast_1d(np.asarray(b, np.int64))
+        if self.class_error.shape[1] == 0:
+            return np.zeros((b.shape[0], 0))
+        return np.stack([_interp(self.sizes, self.class_error[:, c], b) for c in range(self.class_error.shape[1])],
+                        axis=1)
+
+    def class_var_at(self, b) -> np.ndarray:
+        b = np.atleast_1d(np.asarray(b, np.int64))
+        if self.class_var.shape[1] == 0:
+            return np.zeros((b.shape[0], 0))
+        return np.stack([_interp(self.sizes, self.class_var[:, c], b) for c in range(self.class_var.shape[1])], axis=1)
+
+    def interval(self, e: float, v: float):
+        """95% interval of an estimate e with variance v (None while e is unknown)."""
+        return interval(self.task, e, v)
+
+    @property
+    def limit(self) -> float:
+        return float(self.error[-1])
+
+    @property
+    def limit_interval(self):
+        return self.interval(float(self.error[-1]), float(self.var[-1]))
+
+    def tolerance(self) -> float:
+        """How close to the limit counts as there: 1% of it or (classes) 0.1 point, the larger."""
+        lim = self.limit
+        if self.task == "classes":
+            return max(TOLERANCE_REL * lim, TOLERANCE_ABS)
+        return TOLERANCE_REL * abs(lim)
+
+    def members_needed(self) -> int | None:
+        """Fewest members from which the estimate stays within tolerance of the limit (None: more
+        than the largest stored size)."""
+        if not np.isfinite(self.limit):
+            return None
+        thr = self.limit + self.tolerance()
+        e = self.error[:-1]
+        above = np.flatnonzero(~(e <= thr))
+        if above.shape[0] == 0:
+            return int(self.sizes[0])
+        i = int(above[-1])
+        if i == e.shape[0] - 1:
+            # beyond the last size the curve falls like c / b: solve lim + (e_last - lim) s / b <= thr
+            s, el = int(self.sizes[-1]), float(e[-1])
+            need = int(math.ceil(s * (el - self.limit) / (thr - self.limit))) if thr > self.limit else None
+            return need if need is not None and need < 1 << 40 else None
+        lo, hi = int(self.sizes[i]) + 1, int(self.sizes[i + 1])
+        cand = np.arange(lo, hi + 1, dtype=np.int64)
+        ok = self.at(cand) <= thr
+        # from the first size after which every size up to hi is in
+        bad = np.flatnonzero(~ok)
+        return int(cand[bad[-1] + 1]) if bad.shape[0] else lo
+
+    # -- storing ---------------------------------------------------------------------------------
+    def arrays(self) -> dict:
+        return {"members": np.array([self.members], np.int64), "sizes": self.sizes, "error": self.error,
+                "var": self.var, "class_error": self.class_error, "class_var": self.class_var}
+
+    @classmethod
+    def from_arrays(cls, task: str, a: dict) -> "Fit":
+        return cls(task, int(a["members"][0]), np.asarray(a["sizes"], np.int64), np.asarray(a["error"], np.float64),
+                   np.asarray(a["var"], np.float64), np.asarray(a["class_error"], np.float64),
+                   np.asarray(a["class_var"], np.float64))
+
+    def check(self) -> str | None:
+        """What is wrong with stored fit arrays (None: nothing)."""
+        s = self.sizes.shape[0]
+        if self.sizes.ndim != 1 or s < 1 or np.any(self.sizes < 1) or np.any(np.diff(self.sizes) <= 0):
+            return "its ensemble sizes are not ascending whole numbers"
+        if self.error.shape != (s + 1,) or self.var.shape != (s + 1,):
+            return "its figures do not match its sizes"
+        if self.class_error.ndim != 2 or self.class_error.shape[0] != s + 1 or self.class_var.shape != self.class_error.shape:
+            return "its class figures do not match its sizes"
+        return None
+
+
+def _interp(all_sizes: np.ndarray, values: np.ndarray, b) -> np.ndarray:
+    """Values at sizes b: stored where b is a stored size; between two stored sizes of b's parity
+    (or the last stored size and the limit) linear in 1/b, the c/b form of the curve's tail."""
+    b = np.atleast_1d(np.asarray(b, np.int64))
+    out = np.empty(b.shape[0])
+    last = int(all_sizes[-1])
+    x_all = 1.0 / all_sizes
+    for par in (0, 1):
+        sel = all_sizes % 2 == par
+        if not np.any(sel):
+            sel = np.ones_like(sel)
+        xs, ys = x_all[sel][::-1], values[:-1][sel][::-1]   # ascending in 1/b
+        xs = np.concatenate([[0.0], xs])
+        ys = np.concatenate([[values[-1]], ys])
+        mine = (b % 2 == par) & (b > 0)
+        out[mine] = np.interp(1.0 / b[mine], xs, ys)
+    out[b <= 0] = values[-1]
+    small = (b > 0) & (b <= last)
+    # exact where stored
+    idx = np.searchsorted(all_sizes, b[small])
+    hit = (idx < all_sizes.shape[0]) & (all_sizes[np.minimum(idx, all_sizes.shape[0] - 1)] == b[small])
+    vals = out[small]
+    vals[hit] = values[idx[hit]]
+    out[small] = vals
+    return out
+
+
+def interval(task: str, e: float, v: float):
+    """Wilson's interval at e with e (1 - e) / v effective rows (classes); normal (regression)."""
+    if not (e == e) or not (v == v):
+        return None
+    if task == "classes":
+        if v <= 0.0:
+            return (e, e)
+        n_eff = e * (1.0 - e) / v
+        if n_eff <= 0.0:
+            # e is 0 or 1: the spread alone
+            h = Z95 * math.sqrt(v)
+            return (max(0.0, e - h), min(1.0, e + h))
+        n_eff = max(n_eff, 1.0)
+        iv = wilson(e * n_eff, n_eff)
+        return iv
+    h = Z95 * math.sqrt(max(v, 0.0))
+    return (max(0.0, e - h), e + h)
+
+
+def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classes: int, members: int,
+                sample: int | None = None) -> Fit:
+    """The estimate from a class tally: votes (n, C), left_out (n,) or empty (hard votes).
+
+    sample: fit each class's prior on every stride-th row only, so that at most about `sample`
+    rows are read by the EM (a run's refits); the estimate is then one smoothed-EM step from that
+    prior over all rows (their average posterior), and the variance the sample's design effect at
+    the full row count. None: every row (the finished ensemble)."""
+    three = n_classes >= 3
+    all_sizes = sizes(MAX_SIZE_THREE if three else MAX_SIZE)
+    vi = variance_sizes(all_sizes)
+    grid, (sp, si, sv) = _grid_three() if three else _grid_two()
+    n_grid = grid.shape[0]
+    cols = np.concatenate([vi, [all_sizes.shape[0]]])   # + the limit column
+    n_sizes = all_sizes.shape[0] + 1
+    class_error = np.full((n_sizes, n_classes), np.nan)
+    class_var = np.full((n_sizes, n_classes), np.nan)
+    covered = np.zeros(n_classes)
+    stride = max(1, votes.shape[0] // sample) if sample else 1
+    parts = []
+    dims, rival = (2 if three else 1), n_classes > 3
+    for c in range(n_classes):
+        cells, counts = k.class_cells(votes, left_out, y, c, dims, rival, 1)
+        nc = float(counts.sum())
+        covered[c] = nc
+        if nc == 0:
+            continue
+        if three:
+            others = [o for o in range(n_classes) if o != c]
+            tie1, tie2 = (c < others[0], c < others[1]) if n_classes == 3 else (c == 0, c == 0)
+            g = _g_three(all_sizes, tie1, tie2)
+        else:
+            g = _g_two(all_sizes, tie_wrong=c > 0)
+        lp, li, lv = k.likelihood(cells, grid, DROP)
+        cf = counts.astype(np.float64)
+        if stride > 1:
+            fcells, fcounts = k.class_cells(votes, left_out, y, c, dims, rival, stride)
+            if fcounts.shape[0] == 0:
+                fcells, fcounts = cells, counts
+            flp, fli, flv = k.likelihood(fcells, grid, DROP)
+            fcf = fcounts.astype(np.float64)
+            pi, _ = k.ems(flp, fli, flv, fcf, sp, si, sv, n_grid, TOL, MAX_ITER)
+            est = k.mean_posterior(lp, li, lv, cf, pi, sp, si, sv) @ g
+        else:
+            flp, fli, flv, fcf = lp, li, lv, cf
+            pi, _ = k.ems(lp, li, lv, cf, sp, si, sv, n_grid, TOL, MAX_ITER)
+            est = pi @ g
+        nf = float(fcf.sum())
+        psi = k.influence(flp, fli, flv, fcf, sp, si, sv, pi, np.ascontiguousarray(g[:, cols]))
+        parts.append((c, est, psi, fcf, nf / nc))
+        class_error[:, c] = est
+        # the sample's variance at the full count of rows: variance x (sample rows / rows)
+        class_var[:, c] = _spread_var(est, (fcf[:, None] * psi ** 2).sum(axis=0) / (nf * nc), cols, all_sizes, nc)
+    total = covered.sum()
+    error = np.full(n_sizes, np.nan)
+    var = np.full(n_sizes, np.nan)
+    if total > 0:
+        q = covered / total
+        error = np.nansum(class_error * q[None, :], axis=1)
+        # a row's influence on the class-weighted figure: its class's estimate and its own pull
+        v = np.zeros(cols.shape[0])
+        for c, est, psi, fcf, share in parts:
+            dev = est[cols][None, :] + psi - error[cols][None, :]
+            v += (fcf[:, None] * dev ** 2).sum(axis=0) / share
+        var = _spread_var(error, v / (total * total), cols, all_sizes, total)
+    return Fit("classes", members, all_sizes, error, var, class_error, class_var)
+
+
+def _spread_var(est: np.ndarray, v_at: np.ndarray, cols: np.ndarray, all_sizes: np.ndarray, n: float) -> np.ndarray:
+    """Variance at every stored size from its value at some: the design effect v / (e (1 - e) / n)
+    interpolated in log b (the last column, the limit, kept as computed)."""
+    e_at = est[cols]
+    base = np.maximum(e_at * (1 - e_at), 1e-12) / n
+    deff = v_at / base
+    logb = np.log(np.concatenate([all_sizes.astype(np.float64), [np.inf]]))
+    lx = logb[cols[:-1]]
+    d = np.interp(np.log(all_sizes.astype(np.float64)), lx, deff[:-1])
+    out = np.empty(est.shape[0])
+    out[:-1] = d * np.maximum(est[:-1] * (1 - est[:-1]), 1e-12) / n
+    out[-1] = v_at[-1]
+    # where the influence itself was computed, keep it exactly
+    out[cols[:-1]] = v_at[:-1]
+    return out
+
+
+def fit_regression(value_sum: np.ndarray, value_m2: np.ndarray, left_out: np.ndarray, y: np.ndarray,
+                   members: int) -> Fit:
+    """The estimate from a regression tally: error(b) = A + B / b (see the module docstring)."""
+    all_sizes = sizes(EXACT_SIZES)
+    e, s2, kk = k.regression_rows(value_sum, value_m2, left_out, y)
+    n = e.shape[0]
+    n_sizes = all_sizes.shape[0] + 1
+    empty = np.zeros((n_sizes, 0))
+    if n == 0:
+        nan = np.full(n_sizes, np.nan)
+        return Fit("regression", members, all_sizes, nan, nan.copy(), empty, empty.copy())
+    two = kk > 1
+    pooled = float(np.mean(s2[two])) if np.any(two) else 0.0
+    s2 = np.where(two, s2, pooled)
+    a = e - s2 / kk
+    # a row's estimate at size b is a + s2 x, x = 1/b (0: unlimited); mean and variance from sums
+    x = np.concatenate([1.0 / all_sizes, [0.0]])
+    sa, ss = float(a.sum()), float(s2.sum())
+    saa, sas, sss = float(a @ a), float(a @ s2), float(s2 @ s2)
+    error = (sa + ss * x) / n
+    total_sq = saa + 2 * sas * x + sss * x * x
+    var = np.maximum(total_sq - n * error ** 2, 0.0) / (n - 1) / n if n > 1 else np.full(n_sizes, np.nan)
+    return Fit("regression", members, all_sizes, error, var, empty, empty.copy())
