@@ -141,3 +141,28 @@ def _check_oob(a: dict, schema, path) -> None:
     else:
         if a["value_sum"].shape != (n,) or a["sq_err"].shape != (n,) or a["sums"].shape != (5,):
             raise ModelFileError(f"{os.fspath(path)}: the OOB sums are damaged")
+        m2 = a.get("value_m2")
+        if m2 is not None and (m2.dtype != np.float64 or m2.shape != (n,)):
+            raise ModelFileError(f"{os.fspath(path)}: the OOB spreads are damaged")
+    _check_fit(a, schema, m, path)
+
+
+def _check_fit(a: dict, schema, members: int, path) -> None:
+    """The estimated curve (final_* arrays, absent in files written before it existed)."""
+    names = {k[6:]: v for k, v in a.items() if k.startswith("final_")}
+    if not names:
+        return
+    from baggr.oob.curve import Fit
+    want = {"members": (np.int64, 1), "sizes": (np.int64, 1), "error": (np.float64, 1), "var": (np.float64, 1),
+            "class_error": (np.float64, 2), "class_var": (np.float64, 2)}
+    for name, (dtype, ndim) in want.items():
+        x = names.get(name)
+        if x is None or x.dtype != np.dtype(dtype) or x.ndim != ndim:
+            raise ModelFileError(f"{os.fspath(path)}: the estimated curve's array '{name}' is missing or damaged")
+    fit = Fit.from_arrays(schema.task, names)
+    bad = fit.check()
+    c = len(schema.classes) if schema.task == "classes" else 0
+    if bad is None and (fit.members != members or fit.class_error.shape[1] != c):
+        bad = "it belongs to another member count or class list"
+    if bad:
+        raise ModelFileError(f"{os.fspath(path)}: the estimated curve is damaged ({bad})")

@@ -30,10 +30,11 @@ pooled s^2 of the others. So the curve is A + B / b exactly, and the limit is A.
 
 Intervals. The variance of the estimate over the sampling of rows is its infinitesimal jackknife
 (the delta method through the smoothed-EM fixed point, Jaeckel 1972; Efron 1982 ch. 6): each row's
-influence on the figure, squared and summed. For classes the interval is Wilson's (1927) at the
-estimate with the effective number of rows e (1 - e) / variance (the design-effect form used for
-survey proportions, Korn & Graubard 1998); for regression a normal interval. bench/coverage.py
-measures how often these intervals hold the kept ensemble's error on fresh rows.
+influence on the figure, squared and summed; the intervals take VARIANCE_FACTOR times it (below).
+For classes the interval is Wilson's (1927) at the estimate with the effective number of rows
+e (1 - e) / variance (the design-effect form used for survey proportions, Korn & Graubard 1998);
+for regression a normal interval. bench/coverage.py measures how often these intervals hold the
+kept ensemble's error on fresh rows.
 """
 from __future__ import annotations
 
@@ -56,6 +57,13 @@ TOL, MAX_ITER = 1e-9, 5000
 DROP = 1e-10             # grid points a cell's likelihood rules out (share below this) are skipped
 LIVE_ROWS = 4096          # during a run, the prior is refitted on at most this many rows
 TOLERANCE_REL, TOLERANCE_ABS = 0.01, 0.001
+# The infinitesimal jackknife runs about 10% low on the benchmark's problems (bench/coverage.py:
+# the estimate minus the kept ensemble's error, over its jackknife standard error, has a standard
+# deviation of about 1.05-1.07 across cells), as the delta-method variance of cross-validation-type
+# estimates does (Bates, Hastie & Tibshirani 2023, JASA): the shared members tie the rows' votes
+# together, and the kept ensemble's own error varies with its members (Lopes 2019). The intervals
+# take this factor times it: a calibration, measured, not derived.
+VARIANCE_FACTOR = 1.1
 
 
 def refit_due(m: int) -> bool:
@@ -233,8 +241,8 @@ class Fit:
         return np.stack([_interp(self.sizes, self.class_var[:, c], b) for c in range(self.class_var.shape[1])], axis=1)
 
     def interval(self, e: float, v: float):
-        """95% interval of an estimate e with variance v (None while e is unknown)."""
-        return interval(self.task, e, v)
+        """95% interval of an estimate e with (jackknife) variance v (None while e is unknown)."""
+        return interval(self.task, e, VARIANCE_FACTOR * v)
 
     @property
     def limit(self) -> float:
@@ -281,6 +289,8 @@ class Fit:
 
     @classmethod
     def from_arrays(cls, task: str, a: dict) -> "Fit":
+        if np.asarray(a["members"]).shape != (1,):
+            raise ValueError("a fit's member count is one number")
         return cls(task, int(a["members"][0]), np.asarray(a["sizes"], np.int64), np.asarray(a["error"], np.float64),
                    np.asarray(a["var"], np.float64), np.asarray(a["class_error"], np.float64),
                    np.asarray(a["class_var"], np.float64))
@@ -288,6 +298,8 @@ class Fit:
     def check(self) -> str | None:
         """What is wrong with stored fit arrays (None: nothing)."""
         s = self.sizes.shape[0]
+        if self.members < 0:
+            return "its member count is negative"
         if self.sizes.ndim != 1 or s < 1 or np.any(self.sizes < 1) or np.any(np.diff(self.sizes) <= 0):
             return "its ensemble sizes are not ascending whole numbers"
         if self.error.shape != (s + 1,) or self.var.shape != (s + 1,):
