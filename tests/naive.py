@@ -169,14 +169,14 @@ def penguins_csv_path():
 # "Probable inference, the law of succession, and statistical inference", JASA 22, eq. for the
 # score interval).
 
-def stable_rule(curve, lo, hi, m, min_members=50, floor=25, part=5) -> bool:
-    """True when after m members the last max(floor, m // part) curve values lie within +-(hi-lo)/2 of curve[m-1]."""
-    if m < min_members:
+def stable_rule(needed, m, min_members=32, refits=3, spread=0.1) -> bool:
+    """True when after m members the last `refits` refits made at min_members members or later (and
+    not after m) all put members_needed within +-spread of the latest one, N, and m >= N."""
+    seen = [(a, b) for a, b in needed if min_members <= a <= m]
+    if len(seen) < refits:
         return False
-    w = min(m, max(floor, m // part))
-    e = curve[m - 1]
-    h = (hi[m - 1] - lo[m - 1]) / 2.0
-    return all(abs(curve[k] - e) <= h for k in range(m - w, m))
+    n = seen[-1][1]
+    return n >= 1 and m >= n and all(b >= 1 and abs(b - n) <= spread * n for _, b in seen[-refits:])
 
 
 def settled_at(curve, lo, hi):

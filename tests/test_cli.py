@@ -103,18 +103,28 @@ def test_report_json_figures_agree_with_a_recount(run, files):
     ens = load(rd / MODEL)
     y = pacsv.read_csv(files["small"]).column("label").to_pylist()
     pred = list(ens.oob.prediction)
-    assert fig["members"] == 40 and len(fig["curve"]) == 40
+    assert fig["members"] == 40 and len(fig["curve"]) == 40 and len(fig["raw_curve"]) == 40
     assert fig["curve"] == [float(v) for v in ens.oob.curve]
-    # The OOB error is the misclassification rate over rows with an OOB vote (its definition).
-    assert fig["oob_error"] == pytest.approx(naive.oob_error_rate(pred, y), abs=1e-12)
+    assert fig["raw_curve"] == [float(v) for v in ens.oob.raw_curve]
+    # The textbook OOB error is the misclassification rate over rows with an OOB vote (its definition).
+    assert fig["raw_error"] == pytest.approx(naive.oob_error_rate(pred, y), abs=1e-12)
+    assert fig["raw_curve"][-1] == fig["raw_error"]
     covered = [p is not None for p in pred]
     wrong = sum(p != t for p, t in zip(pred, y) if p is not None)
     assert fig["coverage"] == pytest.approx(sum(covered) / len(y), abs=1e-12)
     # Wilson's score interval (Wilson 1927) of wrong / covered.
-    assert fig["interval"] == pytest.approx(list(naive.wilson_interval(wrong, sum(covered))), abs=1e-12)
+    assert fig["raw_interval"] == pytest.approx(list(naive.wilson_interval(wrong, sum(covered))), abs=1e-12)
     for k, c in enumerate(fig["classes"]):
         rows = [(p, t) for p, t in zip(pred, y) if t == c and p is not None]
-        assert fig["class_error"][k] == pytest.approx(sum(p != t for p, t in rows) / len(rows), abs=1e-12)
+        assert fig["raw_class_error"][k] == pytest.approx(sum(p != t for p, t in rows) / len(rows), abs=1e-12)
+    # The keys kept their meaning with the estimate of the kept ensemble: its error, its interval,
+    # the curve's last point; the limit and members_needed as the ensemble computes them.
+    assert fig["estimate"] == "kept ensemble"
+    assert fig["oob_error"] == ens.oob.error == fig["curve"][-1]
+    assert fig["interval"] == list(ens.oob.interval)
+    assert fig["class_error"] == [float(v) for v in ens.oob.class_error]
+    assert fig["error_limit"] == ens.oob.error_limit and fig["members_needed"] == ens.oob.members_needed
+    assert fig["error_limit_interval"][0] <= fig["error_limit"] <= fig["error_limit_interval"][1]
     lo, hi = fig["interval"]
     assert fig["settled_at"] == naive.settled_at(fig["curve"], lo, hi)
     assert fig["data"]["sha256"] == fingerprint(files["small"])["sha256"]
@@ -133,7 +143,9 @@ def test_report_tables_say_the_figures_and_the_cautions(run):
     assert 0 <= fig["oob_error"] <= 1 and 0 <= fig["coverage"] <= 1
     assert all(c in text for c in ("Per class", "Read with care", "Settled at", fig["data"]["sha256"]))
     flat = " ".join(text.split())                                     # the cautions wrap to the width
-    assert "patient" in flat and "drift" in flat and "affect people" in flat and "overstates the error" in flat
+    assert "patient" in flat and "drift" in flat and "affect people" in flat and "0.37 b members" in flat
+    assert f"Textbook OOB {100 * fig['raw_error']:.2f}%" in flat and f"Error limit {100 * fig['error_limit']:.2f}%" in flat
+    assert f"Members needed {fig['members_needed']:,}" in flat
     assert not [ln for ln in text.splitlines() if ln != ln.rstrip()]   # no line ends in spaces
 
 
@@ -255,31 +267,32 @@ def _stable_run(tmp_path, cols, members):
     r = baggr("train", data, "--target", "label", "--members", members, "--run-dir", rd, "--no-ui",
               "--stop-when-stable", "--threads", 2)
     assert r.returncode == 0, r.stderr
-    oob = load(rd / MODEL).oob
-    curve, iv = list(oob.curve), oob.curve_interval
-    return rd, curve, list(iv[:, 0]), list(iv[:, 1])
+    lines = [json.loads(x) for x in (rd / "journal.jsonl").read_text().splitlines()]
+    needed = [[e["member"], e["members_needed"] if e["members_needed"] is not None else -1]
+              for e in lines if e["event"] == "member" and "curve" in e]
+    return rd, load(rd / MODEL).members, needed, lines
 
 
-def test_stop_when_stable_stops_early_on_an_easy_problem(tmp_path):
+def test_stop_when_stable_stops_at_members_needed_on_an_easy_problem(tmp_path):
     rng = np.random.default_rng(0)
     X = rng.normal(size=(400, 4))
     cols = {**{f"f{j}": X[:, j] for j in range(4)}, "label": np.where(X[:, 0] > 0, "b", "a")}
-    rd, curve, lo, hi = _stable_run(tmp_path, cols, 400)
-    m = len(curve)
-    assert 50 <= m < 400
-    # The rule (tests/naive.py) holds where it stopped and nowhere before.
-    assert naive.stable_rule(curve, lo, hi, m)
-    assert not any(naive.stable_rule(curve, lo, hi, k) for k in range(1, m))
-    end = [e for e in (json.loads(x) for x in (rd / "journal.jsonl").read_text().splitlines()) if e["event"] == "end"]
+    rd, m, needed, lines = _stable_run(tmp_path, cols, 2000)
+    assert 64 <= m < 2000
+    # The rule (tests/naive.py) holds where it stopped and nowhere before; the journal's refit lines
+    # carry the members_needed estimates it reads.
+    assert naive.stable_rule(needed, m)
+    assert not any(naive.stable_rule(needed, k) for k in range(1, m))
+    end = [e for e in lines if e["event"] == "end"]
     assert end[-1]["status"] == "finished" and end[-1]["reason"].startswith("stable")
 
 
 def test_stop_when_stable_goes_on_to_the_target_on_a_hard_problem(tmp_path):
-    # Many rows (a narrow interval) and 40% of labels redrawn at random: the curve still falls at 50-60 members.
+    # Many rows and 40% of labels redrawn at random: 60 members are not what the estimate asks for.
     cols = noisy_halves(20_000, seed=7)
-    rd, curve, lo, hi = _stable_run(tmp_path, cols, 60)
-    assert len(curve) == 60
-    assert not any(naive.stable_rule(curve, lo, hi, k) for k in range(1, 61))
+    rd, m, needed, lines = _stable_run(tmp_path, cols, 60)
+    assert m == 60
+    assert not any(naive.stable_rule(needed, k) for k in range(1, 61))
 
 
 def test_estimate_only_run_reports_but_cannot_predict(files, tmp_path):

@@ -51,12 +51,12 @@ def test_three_class_table_against_enumeration():
     s = curve.sizes(curve.MAX_SIZE_THREE)
     grid = curve._grid_three()[0]
     rng = np.random.default_rng(0)
-    picks = rng.choice(grid.shape[0], 12, replace=False)
+    picks = rng.choice(grid.shape[0], 8, replace=False)
     for own_rank, (t1, t2) in enumerate([(True, True), (False, True), (False, False)]):
         # own class 0, 1 or 2: the others keep their order around it
         ranks = {0: [0, 1, 2], 1: [1, 0, 2], 2: [2, 0, 1]}[own_rank]
         g = curve._g_three(s, t1, t2)
-        for b in (1, 2, 3, 4, 6):
+        for b in (1, 2, 3, 4, 7):
             i = int(np.flatnonzero(s == b)[0])
             for j in picks:
                 want = _plurality_wrong_by_enumeration(b, grid[j], 0, ranks)
@@ -141,12 +141,11 @@ def test_regression_estimate_is_bias_plus_spread_over_b():
     ests = []
     for rep in range(200):
         k = rng.binomial(8, math.exp(-1), n).astype(np.int32)
-        s = np.zeros(n)
-        m2 = np.zeros(n)
-        for r in range(n):
-            x = rng.normal(mu[r], sigma[r], k[r])
-            s[r] = x.sum()
-            m2[r] = ((x - x.mean()) ** 2).sum() if k[r] else 0.0
+        x = rng.normal(mu[:, None], sigma[:, None], (n, 8))
+        mask = np.arange(8)[None, :] < k[:, None]
+        s = np.where(mask, x, 0.0).sum(axis=1)
+        mean = s / np.maximum(k, 1)
+        m2 = np.where(mask, (x - mean[:, None]) ** 2, 0.0).sum(axis=1)
         ests.append(curve.fit_regression(s, m2, k, y, 8).at(b)[0])
     e = np.array(ests)
     assert abs(e.mean() - truth) < 3 * e.std(ddof=1) / np.sqrt(e.size), (e.mean(), truth)
@@ -173,7 +172,7 @@ def _assert_fit_equal(a, b):
 def test_classes_estimate_incremental_equals_batch(n_classes, soft):
     # after every member, the running estimate is the one a recount of the votes from scratch gives
     rng = np.random.default_rng(10 + n_classes)
-    n, members = 250, 17
+    n, members = (250, 17) if n_classes == 2 else (120, 12)
     y = rng.integers(0, n_classes, n).astype(np.int32)
     deltas = _deltas(rng, n, n_classes, members, soft)
     t = Tally("classes", y, n_classes, "shares" if soft else "hard", capacity=members)

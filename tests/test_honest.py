@@ -107,8 +107,19 @@ def _assert_unbiased_and_raw_high(result, name):
 @pytest.mark.parametrize("name,make,regression", [
     ("twonorm", twonorm, False),      # Breiman (1996), Bias, variance and arcing classifiers
     ("threenorm", threenorm, False),  # Breiman (1996), same paper
-    ("waveform", waveform, False),    # Breiman et al. (1984), CART, sec. 2.6.2
     ("friedman1", friedman1, True),   # Friedman (1991)
 ])
 def test_estimate_of_kept_ensemble_is_unbiased_where_the_textbook_oob_reads_high(name, make, regression):
     _assert_unbiased_and_raw_high(_bias(make, 400, 100, 2000, regression), name)
+
+
+@pytest.mark.bench
+@pytest.mark.parametrize("name,make,regression,n", [
+    ("twonorm", twonorm, False, 1000),
+    ("threenorm", threenorm, False, 1000),
+    ("waveform", waveform, False, 1000),   # Breiman et al. (1984), CART, sec. 2.6.2
+    ("friedman1", friedman1, True, 1000),
+])
+def test_estimate_is_unbiased_at_a_thousand_rows(name, make, regression, n):
+    # the full check (with three classes), 200 repeats: bench/README.md gives its figures
+    _assert_unbiased_and_raw_high(_bias(make, n, 200, 4000, regression), name)

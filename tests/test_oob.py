@@ -4,6 +4,7 @@ import pytest
 
 import baggr
 from baggr import data
+from baggr.oob import curve
 from baggr.learn.draw import Drawer
 from generators import friedman1, waveform
 
@@ -45,11 +46,17 @@ def test_classes_oob_equals_definition_after_every_member(vote):
         cov = count > 0
         pred = np.argmax(total, axis=1)
         err = np.mean(pred[cov] != y[cov])
-        assert ens.oob.curve[b - 1] == pytest.approx(err, abs=1e-12)
+        assert ens.oob.raw_curve[b - 1] == pytest.approx(err, abs=1e-12)
         for k in range(3):
             rows = cov & (y == k)
-            assert ens.oob.class_curve[b - 1, k] == pytest.approx(np.mean(pred[rows] != k), abs=1e-12)
+            assert ens.oob.raw_class_curve[b - 1, k] == pytest.approx(np.mean(pred[rows] != k), abs=1e-12)
     total, count = sizes[-1]
+    # the estimated curve is the one fitted to these votes (recounted from the kept trees)
+    votes = total if vote == "shares" else total.astype(np.int32)
+    fit = curve.fit_classes(votes, count.astype(np.int32) if vote == "shares" else np.zeros(0, np.int32),
+                            np.asarray(y, np.int32), 3, 12)
+    np.testing.assert_allclose(ens.oob.curve, fit.at(np.arange(1, 13)), rtol=1e-12)
+    assert ens.oob.error == ens.oob.curve[-1]
     cov = count > 0
     np.testing.assert_array_equal(ens.oob.left_out, count)
     assert ens.oob.coverage == pytest.approx(cov.mean())
@@ -70,7 +77,7 @@ def test_regression_oob_equals_definition_after_every_member():
     for b, (total, count) in enumerate(sizes, start=1):
         cov = count > 0
         mse = np.mean((total[cov, 0] / count[cov] - y[cov]) ** 2)
-        assert ens.oob.curve[b - 1] == pytest.approx(mse, rel=1e-9)
+        assert ens.oob.raw_curve[b - 1] == pytest.approx(mse, rel=1e-9)
     total, count = sizes[-1]
     cov = count > 0
     np.testing.assert_allclose(ens.oob.prediction[cov], total[cov, 0] / count[cov], rtol=1e-12)

@@ -77,6 +77,7 @@ def latest_figures(st) -> dict:
     """The journal's latest member line as report figures (fractions, as in the JSON)."""
     d = {"members": st.members, "oob_error": _f(st.error), "interval": None if st.interval is None else
          [_f(v) for v in st.interval], "coverage": _f(st.coverage), "elapsed": _f(st.elapsed), "t": _f(st.last_t)}
+    d.update(st.estimate_figures())
     if st.task == "regression":
         d["r2"] = _f(st.r2)
     else:
@@ -144,6 +145,10 @@ def _f(v):
     return v if math.isfinite(v) else None
 
 
+def _pair(iv):
+    return None if iv is None else [_f(iv[0]), _f(iv[1])]
+
+
 def cautions(r: RunReport) -> list[str]:
     """The plain-words cautions every report carries."""
     m = r.oob.members
@@ -155,9 +160,16 @@ def cautions(r: RunReport) -> list[str]:
         "entities or a later period to check.",
         "Decisions that affect people need review beyond this estimate.",
         f"Each row is judged only by the members that left it out: {judged:.1f} of the {m} members here, "
-        "on average. A small ensemble therefore overstates the error the whole ensemble makes; "
-        "read the tail of the curve, not its start.",
+        "on average, so the textbook OOB error after b members is that of an ensemble of about 0.37 b "
+        "members and reads high. The error, interval and curve here estimate the error of the kept "
+        "ensemble itself, from each row's OOB votes extrapolated to the ensemble's size; the textbook "
+        "figures are given beside them.",
     ]
+    if not r.oob.corrected:
+        out[-1] = (f"Each row is judged only by the members that left it out: {judged:.1f} of the {m} members "
+                   "here, on average. This model file predates the estimate of the kept ensemble's error, so "
+                   "its figures are the textbook OOB ones, which overstate a small ensemble's error; read the "
+                   "tail of the curve, not its start.")
     if r.oob.uncovered:
         out.append(f"{r.oob.uncovered} rows were never left out; they are not counted in the error.")
     if r.latest is not None:
@@ -181,6 +193,12 @@ def figures(r: RunReport) -> dict:
          "uncovered": oob.uncovered, "judged_per_row": _f(np.mean(oob.left_out)) if oob.left_out.shape[0] else None,
          "curve": [_f(v) for v in curve], "curve_interval": [[_f(a), _f(b)] for a, b in oob.curve_interval],
          "settled_at": settled_at(curve, *iv) if iv is not None else None,
+         "estimate": "kept ensemble" if oob.corrected else "textbook",
+         "raw_error": _f(oob.raw_error), "raw_interval": _pair(oob.raw_interval),
+         "raw_curve": [_f(v) for v in oob.raw_curve],
+         "raw_curve_interval": [[_f(a), _f(b)] for a, b in oob.raw_curve_interval],
+         "error_limit": _f(oob.error_limit), "error_limit_interval": _pair(oob.error_limit_interval),
+         "members_needed": oob.members_needed, "tolerance": _f(oob.tolerance),
          "config": r.config.to_dict(), "target": r.run.get("target") or r.schema.target,
          "data": r.run.get("data"), "version": r.run.get("version"), "created": r.run.get("created"),
          "cautions": cautions(r), "checkpoint": r.checkpoint, "latest": r.latest}
@@ -192,6 +210,8 @@ def figures(r: RunReport) -> dict:
         d["class_covered"] = [int(v) for v in oob.confusion.sum(axis=1)]
         d["confusion"] = oob.confusion.tolist()
         d["class_curve"] = [[_f(v) for v in row] for row in oob.class_curve]
+        d["raw_class_error"] = [_f(v) for v in oob.raw_class_error]
+        d["raw_class_curve"] = [[_f(v) for v in row] for row in oob.raw_class_curve]
     else:
         d["r2"] = _f(oob.r2)
     return d

@@ -124,7 +124,12 @@ def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
         out.rule("Out-of-bag estimate")
     headline = Text(err_text(task, head["oob_error"]), style="bold")
     headline.append(f"   95% interval {span_text(task, head['interval'])}")
+    corrected = d.get("estimate") == "kept ensemble"
+    if corrected:
+        headline.append(f"   (the kept {units.count(head['members'])} members)", style="dim")
     est = [(what, headline)]
+    if corrected:
+        est += _estimate_rows(task, head)
     if task == "regression":
         est.append(("R2", "-" if head.get("r2") is None else f"{head['r2']:.3f}"))
     if latest:
@@ -149,6 +154,22 @@ def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
     for c in d["cautions"]:
         for i, p in enumerate(textwrap.wrap(c, out.width - 4, break_on_hyphens=False)):
             out.put(("  - " if i == 0 else "    ") + p)
+
+
+def _estimate_rows(task: str, head: dict) -> list:
+    """The textbook OOB figure, the estimated limit and the members needed to come near it."""
+    raw = head.get("raw_error")
+    rows = [("Textbook OOB", f"{err_text(task, raw)}   95% interval {span_text(task, head.get('raw_interval'))}"
+                             "   (each row judged by its OOB members only: reads as a smaller ensemble)")]
+    lim = head.get("error_limit")
+    if lim is not None:
+        rows.append(("Error limit", f"{err_text(task, lim)}   95% interval "
+                                    f"{span_text(task, head.get('error_limit_interval'))}   (an unlimited ensemble)"))
+        need = head.get("members_needed")
+        tol = head.get("tolerance")
+        near = f" (within {err_text(task, tol)} of the limit)" if tol is not None else " (near the limit)"
+        rows.append(("Members needed", (f"{units.count(need)}" if need else "more than 4 million") + near))
+    return rows
 
 
 def _source_rows(d: dict, n_rows) -> list:
@@ -204,23 +225,28 @@ def _curve(out: Lines, d: dict, task: str, what: str, note: str) -> None:
     """The error at a few ensemble sizes, each beside its 95% interval drawn on one shared scale."""
     out.rule(f"{what} by ensemble size" + (f" {note}" if note else ""))
     sizes = curve_sizes(d["members"])
-    cells = [(units.count(m), err_text(task, d["curve"][m - 1]), span_text(task, d["curve_interval"][m - 1]))
-             for m in sizes]
-    w = [max(cell_len(h), *(cell_len(c[i]) for c in cells)) for i, h in enumerate(("members", what, "95% interval"))]
-    used = 2 + w[0] + 2 + w[1] + 2 + w[2] + 3
+    raw = d.get("raw_curve") if d.get("estimate") == "kept ensemble" else None
+    cells = [(units.count(m), err_text(task, d["curve"][m - 1]), span_text(task, d["curve_interval"][m - 1]),
+              err_text(task, raw[m - 1]) if raw else "") for m in sizes]
+    heads = ("members", what, "95% interval", "textbook" if raw else "")
+    w = [max(cell_len(h), *(cell_len(c[i]) for c in cells)) for i, h in enumerate(heads)]
+    used = 2 + w[0] + 2 + w[1] + 2 + w[2] + 3 + (w[3] + 2 if raw else 0)
     strip = min(STRIP_MOST, out.width - used)
     pts = [(d["curve_interval"][m - 1], d["curve"][m - 1]) for m in sizes]
     ends = [v for iv, c in pts for v in ((iv or [None, None]) + [c]) if v is not None]
     lo, hi = (min(ends), max(ends)) if ends else (0.0, 1.0)
-    header = Text(f"  {'members'.rjust(w[0])}  {what.rjust(w[1])}  {'95% interval'.rjust(w[2])}", style="dim")
+    header = Text(f"  {'members'.rjust(w[0])}  {what.rjust(w[1])}  {'95% interval'.rjust(w[2])}"
+                  + (f"  {heads[3].rjust(w[3])}" if raw else ""), style="dim")
     if strip >= 12 and ends:
         left, right = err_text(task, lo), err_text(task, hi)
         header.append("   " + left + " " * max(1, strip - cell_len(left) - cell_len(right)) + right, style="dim")
     out.put(header)
-    for (m, e, s), (iv, c) in zip(cells, pts):
+    for (m, e, s, r), (iv, c) in zip(cells, pts):
         line = Text(f"  {m.rjust(w[0])}  ")
         line.append(e.rjust(w[1]), style="bold")
         line.append(f"  {s.rjust(w[2])}")
+        if raw:
+            line.append(f"  {r.rjust(w[3])}", style="dim")
         if strip >= 12 and ends:
             line.append("   ")
             line.append_text(interval_strip(iv, c, lo, hi, strip))

@@ -148,8 +148,12 @@ def _check_oob(a: dict, schema, path) -> None:
 
 
 def _check_fit(a: dict, schema, members: int, path) -> None:
-    """The estimated curve (final_* arrays, absent in files written before it existed)."""
+    """The estimated curve: final_* arrays (a model file; absent in files written before it
+    existed), or est_* (a checkpoint: the run's latest refit, at or before its member count)."""
     names = {k[6:]: v for k, v in a.items() if k.startswith("final_")}
+    latest = not names
+    if latest:
+        names = {k[4:]: v for k, v in a.items() if k.startswith("est_") and k != "est_needed"}
     if not names:
         return
     from baggr.oob.curve import Fit
@@ -159,10 +163,14 @@ def _check_fit(a: dict, schema, members: int, path) -> None:
         x = names.get(name)
         if x is None or x.dtype != np.dtype(dtype) or x.ndim != ndim:
             raise ModelFileError(f"{os.fspath(path)}: the estimated curve's array '{name}' is missing or damaged")
-    fit = Fit.from_arrays(schema.task, names)
+    try:
+        fit = Fit.from_arrays(schema.task, names)
+    except ValueError as e:
+        raise ModelFileError(f"{os.fspath(path)}: the estimated curve is damaged ({e})") from None
     bad = fit.check()
     c = len(schema.classes) if schema.task == "classes" else 0
-    if bad is None and (fit.members != members or fit.class_error.shape[1] != c):
+    if bad is None and ((fit.members > members if latest else fit.members != members)
+                        or fit.class_error.shape[1] != c):
         bad = "it belongs to another member count or class list"
     if bad:
         raise ModelFileError(f"{os.fspath(path)}: the estimated curve is damaged ({bad})")

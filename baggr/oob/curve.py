@@ -53,6 +53,9 @@ MAX_SIZE_THREE = 128      # three or more classes: exact sums cost O(b) per grid
 GRID_TWO = 101            # grid of a row's chance of voting right (two classes)
 GRID_THREE = 20           # steps per side of the triangle grid (three or more classes)
 PASSES_TWO, PASSES_THREE = 3, 1
+# the triangle's smoothing step scaled so that it spreads weight as far (in chance units) as the
+# line's three [1/4, 1/2, 1/4] passes over steps of 0.01: variance 1.5e-4 per axis
+STRENGTH_THREE = 1.5e-4 / (4 / 12 * (1 / GRID_THREE) ** 2)
 TOL, MAX_ITER = 1e-9, 5000
 DROP = 1e-10             # grid points a cell's likelihood rules out (share below this) are skipped
 LIVE_ROWS = 4096          # during a run, the prior is refitted on at most this many rows
@@ -132,7 +135,7 @@ def _grid_three() -> tuple[np.ndarray, np.ndarray]:
             cand = [(i + 1, j), (i - 1, j), (i, j + 1), (i, j - 1), (i + 1, j - 1), (i - 1, j + 1)]
             nbrs.append([index[c] for c in cand if c in index])
         grid = np.array([(i / h, j / h, (h - i - j) / h) for i, j in pts])
-        _cache[key] = (np.ascontiguousarray(grid), _smoothing(nbrs, 6, PASSES_THREE))
+        _cache[key] = (np.ascontiguousarray(grid), _smoothing(nbrs, 6, PASSES_THREE, STRENGTH_THREE))
     return _cache[key]
 
 
@@ -140,15 +143,17 @@ def _line_neighbours(g: int) -> list:
     return [[j for j in (i - 1, i + 1) if 0 <= j < g] for i in range(g)]
 
 
-def _smoothing(nbrs: list, degree: int, passes: int) -> np.ndarray:
-    """S = I - L / (2 degree), L the grid graph's Laplacian: symmetric, keeps the total weight,
-    on a line the [1/4, 1/2, 1/4] kernel (EMS's smoothing step, Silverman et al. 1990)."""
+def _smoothing(nbrs: list, degree: int, passes: int, strength: float = 1.0):
+    """S = I - strength L / (2 degree), L the grid graph's Laplacian: symmetric, keeps the total
+    weight, on a line the [1/4, 1/2, 1/4] kernel (EMS's smoothing step, Silverman et al. 1990);
+    as a sparse matrix (indptr, index, value)."""
     g = len(nbrs)
     s = np.eye(g)
+    w = strength / (2 * degree)
     for i, nb in enumerate(nbrs):
         for j in nb:
-            s[i, j] += 1.0 / (2 * degree)
-            s[i, i] -= 1.0 / (2 * degree)
+            s[i, j] += w
+            s[i, i] -= w
     s = np.linalg.matrix_power(s, passes)
     s[np.abs(s) < 1e-15] = 0.0
     ptr = np.concatenate([[0], np.cumsum((s != 0).sum(axis=1))]).astype(np.int64)

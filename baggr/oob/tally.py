@@ -60,6 +60,7 @@ class Tally:
         self.curve_interval = np.full((capacity, 2), np.nan)
         self.est: est.Fit | None = None
         self.live_fits = True   # False: nobody reads figures between members, so skip the refits
+        self.needed: list = []  # [member, members_needed or -1] of every refit, for a stopping rule
 
     @property
     def left_out(self) -> np.ndarray:
@@ -110,6 +111,8 @@ class Tally:
             self.curve_interval[m] = iv
         if self.live_fits and est.refit_due(self.members):
             self.est = self.fit(sample=est.LIVE_ROWS)
+            need = self.est.members_needed()
+            self.needed.append([self.members, -1 if need is None else need])
 
     def _grow_curve(self) -> None:
         if self.members <= self.curve.shape[0]:
@@ -211,13 +214,15 @@ class Tally:
                 out[name] = a[: self.members] if name in ("curve", "class_curve", "curve_interval") else a
         if self.est is not None:
             out.update({"est_" + name: a for name, a in self.est.arrays().items()})
+            out["est_needed"] = np.array(self.needed, np.int64).reshape(-1, 2)
         return out
 
     def restore(self, arrays: dict) -> None:
         """Load a checkpoint's arrays (already validated for shape and dtype by the caller)."""
         self.members = int(arrays["members"][0])
-        fit = {name[4:]: a for name, a in arrays.items() if name.startswith("est_")}
+        fit = {name[4:]: a for name, a in arrays.items() if name.startswith("est_") and name != "est_needed"}
         self.est = est.Fit.from_arrays(self.task, fit) if fit else None
+        self.needed = [[int(m), int(n)] for m, n in arrays.get("est_needed", np.zeros((0, 2), np.int64))]
         for name, a in arrays.items():
             if name == "members" or name.startswith("est_"):
                 continue

@@ -18,7 +18,9 @@ class OOB:
 
     def __init__(self, task: str, classes: list, arrays: dict):
         self.task, self.classes, self._a = task, list(classes), arrays
-        fit = {k[6:]: v for k, v in arrays.items() if k.startswith("final_")}
+        # the ensemble's own fit (final_*), or in a checkpoint the run's latest refit (est_*)
+        fit = {k[6:]: v for k, v in arrays.items() if k.startswith("final_")} or \
+            {k[4:]: v for k, v in arrays.items() if k.startswith("est_") and k != "est_needed"}
         self._fit = Fit.from_arrays(task, fit) if fit else None
 
     @classmethod

@@ -6,14 +6,12 @@ checkpoint and ends bit-identical to one never interrupted.
 """
 from __future__ import annotations
 
-import math
 import os
 import signal
 import socket
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
 
 from baggr.version import __version__
 from baggr.config import Config
@@ -24,25 +22,26 @@ from baggr.runs.journal_writer import JournalWriter
 from baggr.runs.rundir import RunDir, RunSettings, check_data
 
 
-def stable_now(curve: np.ndarray, interval: np.ndarray, m: int, settings: RunSettings) -> str | None:
-    """Why the curve counts as settled after m members (None if not).
+def stable_now(needed, m: int, settings: RunSettings) -> str | None:
+    """Why the run may stop after m members (None if not): it has reached members_needed, and the
+    estimate of members_needed has itself settled.
 
-    Rule: m >= stable_min_members, and the last w = max(stable_window, m // stable_window_part)
-    values of the curve all lie within +-h of the current value, h the half-width of the current
-    95% interval.
+    needed: [member, members_needed (-1: beyond reach)] of each refit of the estimated curve (about
+    two per doubling of the members). Rule: take the refits at or after stable_min_members members;
+    the last stable_refits of them all give a members_needed within +-stable_spread of the latest
+    one, N; and m >= N. So the run stops at N members when the estimate has settled by then, or as
+    soon as it settles when N lies behind.
     """
-    if m < settings.stable_min_members or m < 1:
+    rows = [(int(a), int(b)) for a, b in needed if int(a) >= settings.stable_min_members and int(a) <= m]
+    if len(rows) < settings.stable_refits:
         return None
-    w = min(m, max(settings.stable_window, m // settings.stable_window_part))
-    e = float(curve[m - 1])
-    lo, hi = (float(v) for v in interval[m - 1])
-    if not (math.isfinite(e) and math.isfinite(lo) and math.isfinite(hi)):
+    last = rows[-settings.stable_refits:]
+    n = last[-1][1]
+    if n < 1 or any(b < 1 or abs(b - n) > settings.stable_spread * n for _, b in last) or m < n:
         return None
-    h = (hi - lo) / 2.0
-    window = np.asarray(curve[m - w:m], dtype=np.float64)
-    if not np.all(np.isfinite(window)) or np.any(np.abs(window - e) > h):
-        return None
-    return f"stable: the OOB error stayed within {e:.4g} +- {h:.2g} over the last {w} members"
+    at = ", ".join(str(a) for a, _ in last)
+    return (f"stable: {n} members needed to come near the error limit (the estimate agreed within "
+            f"{settings.stable_spread:.0%} at the refits after {at} members)")
 
 
 @dataclass
@@ -194,7 +193,7 @@ class Job:
                     self.stop_reason = "stop requested"
                     return True
                 if settings.stop_when_stable:
-                    why = stable_now(tr.tally.curve, tr.tally.curve_interval, tr.next_member, settings)
+                    why = stable_now(tr.tally.needed, tr.next_member, settings)
                     if why:
                         self.stop_reason = why
                         return True

@@ -74,7 +74,11 @@ class RunState:
         self.curve_lo = array("f")
         self.curve_hi = array("f")
         self.curve_r2 = array("f")
+        self.curve_raw = array("f")   # the textbook OOB error after each member
         self.curve_class: list[array] = []
+        # the run's latest estimated curve over ensemble sizes, from its latest refit line:
+        # {"member": m, "b": [...], "error": [...], "lo": [...], "hi": [...]}
+        self.fit: dict | None = None
         self._drawn: dict = {}     # per series: extremes of complete buckets (see downsample)
 
     # -- folding
@@ -138,10 +142,12 @@ class RunState:
         if cut == len(self.curve_member):
             return
         for arr in (self.curve_member, self.curve_error, self.curve_lo, self.curve_hi, self.curve_r2,
-                    *self.curve_class):
+                    self.curve_raw, *self.curve_class):
             del arr[cut:]
         self._drawn.clear()
         self.members = member
+        if self.fit is not None and self.fit["member"] > member:
+            self.fit = None     # the member lines that follow bring the fit again
         # The latest figures now come from the curve; coverage and confusion are unknown until the next line.
         if cut:
             i = cut - 1
@@ -168,6 +174,14 @@ class RunState:
         r2 = NAN if r2 is None else float(r2)
         ce = ev.get("class_error") or ()
         ce = [NAN if c is None else float(c) for c in ce]
+        raw = ev.get("raw_error", err)      # lines written before the estimate: error was the textbook one
+        raw = NAN if raw is None else float(raw)
+        fit = ev.get("curve")
+        if isinstance(fit, dict):
+            fit = {"member": m, **{k: [NAN if v is None else float(v) for v in fit.get(k) or []]
+                                   for k in ("b", "error", "lo", "hi")}}
+            if not (len(fit["b"]) == len(fit["error"]) == len(fit["lo"]) == len(fit["hi"])):
+                raise ValueError("a curve's lists differ in length")
         # Everything converted: now the arrays grow together or not at all.
         cm = self.curve_member
         if cm and m <= cm[-1]:
@@ -182,6 +196,9 @@ class RunState:
         self.curve_lo.append(lo)
         self.curve_hi.append(hi)
         self.curve_r2.append(r2)
+        self.curve_raw.append(raw)
+        if fit is not None:
+            self.fit = fit
         k = len(ce)
         for j, c in enumerate(curves):
             c.append(ce[j] if j < k else NAN)
@@ -245,6 +262,36 @@ class RunState:
         return _opt(self._get("rate"))
 
     @property
+    def raw_error(self) -> float | None:
+        """The textbook OOB error after the latest member."""
+        return _opt(self._get("raw_error"))
+
+    @property
+    def error_limit(self) -> float | None:
+        return _opt(self._get("error_limit"))
+
+    @property
+    def error_limit_interval(self) -> tuple[float, float] | None:
+        iv = self._get("error_limit_interval")
+        if not iv or iv[0] is None or iv[1] is None:
+            return None
+        return (float(iv[0]), float(iv[1]))
+
+    @property
+    def members_needed(self) -> int | None:
+        v = self._get("members_needed")
+        return int(v) if isinstance(v, (int, float)) and v == v else None
+
+    def estimate_figures(self) -> dict:
+        """The latest line's textbook error and the estimated limit, as report figures."""
+        iv = self._get("raw_interval")
+        lim = self.error_limit_interval
+        return {"raw_error": self.raw_error,
+                "raw_interval": None if not iv or None in iv else [float(v) for v in iv],
+                "error_limit": self.error_limit, "error_limit_interval": None if lim is None else list(lim),
+                "members_needed": self.members_needed}
+
+    @property
     def member_t(self) -> float | None:
         """t of the latest member line."""
         if self._last is None or self._last.get("restored"):
@@ -272,11 +319,13 @@ class RunState:
         return out
 
     def curve(self, series="error", width: int = 200, log: bool = False) -> tuple[list, list]:
-        """The curve of one series downsampled to at most `width` points: "error", "lo", "hi", "r2" or a class index."""
+        """The curve of one series downsampled to at most `width` points: "error", "lo", "hi", "r2", "raw"
+        (the textbook OOB error) or a class index."""
         if isinstance(series, int):
             ys = self.curve_class[series] if series < len(self.curve_class) else array("f")
         else:
-            ys = {"error": self.curve_error, "lo": self.curve_lo, "hi": self.curve_hi, "r2": self.curve_r2}[series]
+            ys = {"error": self.curve_error, "lo": self.curve_lo, "hi": self.curve_hi, "r2": self.curve_r2,
+                  "raw": self.curve_raw}[series]
         return downsample(self.curve_member, ys, width, log=log, cache=self._drawn.setdefault((series, log), {}))
 
     def eta(self) -> float | None:
@@ -288,7 +337,8 @@ class RunState:
 
     def curve_bytes(self) -> int:
         """Memory held by the curve arrays."""
-        arrs = [self.curve_member, self.curve_error, self.curve_lo, self.curve_hi, self.curve_r2, *self.curve_class]
+        arrs = [self.curve_member, self.curve_error, self.curve_lo, self.curve_hi, self.curve_r2, self.curve_raw,
+                *self.curve_class]
         return sum(a.buffer_info()[1] * a.itemsize for a in arrs)
 
 

@@ -37,9 +37,9 @@ class RunSettings:
     checkpoint_budget: float | None = 0.02
     checkpoint_min_seconds: float = 2.0   # with a budget: never more often (tiny data grows 50 members in ms)
     stop_when_stable: bool = False
-    stable_min_members: int = 50
-    stable_window: int = 25          # the window is max(stable_window, members // stable_window_part)
-    stable_window_part: int = 5
+    stable_min_members: int = 32     # refits from here on count for the stopping rule (job.stable_now)
+    stable_refits: int = 3           # ... the last this many of them
+    stable_spread: float = 0.1       # ... agree on members_needed to within this share of the latest
 
     @classmethod
     def from_dict(cls, d: dict | None) -> "RunSettings":
