@@ -10,6 +10,9 @@ def __getattr__(name):
     if name == "train":
         from baggr.engine import train
         return train
+    if name == "grow":
+        from baggr.engine import grow
+        return grow
     if name == "load":
         from baggr.model.ensemble import load
         return load
@@ -25,5 +28,5 @@ def __getattr__(name):
     raise AttributeError(f"module 'baggr' has no attribute {name!r}")
 
 
-__all__ = ["Config", "BaggrError", "ConfigError", "DataError", "ModelFileError", "train", "load",
+__all__ = ["Config", "BaggrError", "ConfigError", "DataError", "ModelFileError", "train", "grow", "load",
            "read_table", "Ensemble", "Training", "__version__"]

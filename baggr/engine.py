@@ -3,6 +3,7 @@ member order, an event after each."""
 from __future__ import annotations
 
 import collections
+import hashlib
 import time
 
 import numpy as np
@@ -13,7 +14,7 @@ from baggr.backends.threads import Threads
 from baggr.data.prepared import Prepared, prepare
 from baggr.model.arena import Arena
 from baggr.config import Config
-from baggr.errors import ConfigError, ModelFileError
+from baggr.errors import ConfigError, DataError, ModelFileError
 from baggr.events import MemberEvent
 from baggr.model.ensemble import Ensemble
 from baggr.model.forest import Forest
@@ -154,8 +155,41 @@ class Training:
     def ensemble(self) -> Ensemble:
         p = self.prep
         stats = dict(self.stats, seconds=self.elapsed)
-        return Ensemble(p.schema, p.binning, self.config, self.forest(), OOB.from_tally(self.tally, p.schema.classes),
-                        stats)
+        oob = OOB.from_tally(self.tally, p.schema.classes, extra={"data_sha256": self.data_sha256()})
+        return Ensemble(p.schema, p.binning, self.config, self.forest(), oob, stats)
+
+    def data_sha256(self) -> np.ndarray:
+        """SHA-256 of the binned table and the targets (uint8[32]), kept with the OOB figures: a
+        continuation checks it was given the same data."""
+        h = hashlib.sha256()
+        for a in (self.prep.codes, self.prep.y_class, self.prep.y_value):
+            h.update(np.ascontiguousarray(a).data)
+        return np.frombuffer(h.digest(), np.uint8).copy()
+
+    @classmethod
+    def from_ensemble(cls, ens: Ensemble, X, y, members: int, target: str | None = None) -> "Training":
+        """A training that continues `ens` (trained on X, y) from its members up to `members`:
+        run() then ends bit-identical to a run of `members` members from the start (members are
+        pure functions of (data, config, seed, m); the tallies are folded on in member order)."""
+        if isinstance(members, bool) or not isinstance(members, int) or members <= ens.members:
+            raise ConfigError(f"members must be a whole number above the ensemble's {ens.members}, got {members!r}")
+        arrays = ens.oob.arrays()
+        if "data_sha256" not in arrays:
+            raise ModelFileError("this ensemble does not record the data it was trained on (saved by an older "
+                                 "baggr): it cannot be grown; train a new one")
+        tr = cls(X, y, ens.config.replace(members=members), target=target)
+        if not np.array_equal(tr.data_sha256(), arrays["data_sha256"]):
+            raise DataError("these rows are not the table this ensemble was trained on: growing needs the same data")
+        tally = {"tally_" + k: v for k, v in arrays.items()
+                 if not k.startswith("final_") and k not in ("class_rows", "data_sha256")}
+        header = {"next_member": ens.members, "elapsed": float(ens.stats.get("seconds", 0.0)),
+                  "stats": {k: v for k, v in ens.stats.items() if k in tr.stats}}
+        trees = None
+        if tr.config.keep_members:
+            forest = ens.forest.to_forest() if hasattr(ens.forest, "to_forest") else ens.forest
+            trees = forest.unpack()
+        tr.restore(tally, header, trees)
+        return tr
 
     # -- checkpoints -----------------------------------------------------------------------------
     def checkpoint(self) -> tuple[dict, dict]:
@@ -204,3 +238,9 @@ class Training:
 def train(X, y, config: Config | None = None, on_member=None) -> Ensemble:
     """Train a bagged tree ensemble and its OOB estimate in one pass; on_member(event) after every member."""
     return Training(X, y, config or Config()).run(on_member=on_member)
+
+
+def grow(ens: Ensemble, X, y, members: int, on_member=None) -> Ensemble:
+    """`ens` grown to `members` members on the table it was trained on (X, y): the same ensemble,
+    bit for bit, as one trained with that many members from the start."""
+    return Training.from_ensemble(ens, X, y, members).run(on_member=on_member)

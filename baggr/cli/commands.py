@@ -62,8 +62,18 @@ def cmd_resume(args) -> int:
     if pid or status == "running":
         raise runs.RunDirError(f"{rd.path} is already running (pid {pid or st.pid}); "
                                f"watch it with: baggr watch {rd.path}")
-    if st.status == "finished" and (rd / runs.MODEL).exists():
-        say(f"{rd.path} is finished ({st.members} members; {st.reason}); nothing to resume")
+    more = getattr(args, "members", None)
+    if more is not None:
+        if more <= st.members:
+            raise ConfigError(f"--members {more} must be above the run's {st.members} members")
+        # asked for more members: the run's target becomes N, and N is what it grows to
+        cfg["config"]["members"] = more
+        cfg.setdefault("run", {})["stop_when_stable"] = False
+        runs.check_data(cfg["data"])
+        rd.write_config(cfg)
+    elif st.status == "finished" and (rd / runs.MODEL).exists():
+        say(f"{rd.path} is finished ({st.members} members; {st.reason}); nothing to resume "
+            f"(to grow it: baggr resume {rd.path} --members N)")
         return 0
     runs.check_data(cfg["data"])
     return launch(rd, run_mode(args), fresh=False)
@@ -144,7 +154,12 @@ def cmd_predict(args) -> int:
     ens = model.load(path)
     if ens.forest is None or ens.forest.members == 0:
         raise BaggrError("this model was trained estimate-only (keep_members=False): it has no trees to score new rows")
-    n = _predict_stream(ens, Batches(args.data, ens.schema.names, ens.schema.kinds, rows=BATCH_ROWS), out, kind)
+    members = getattr(args, "members", None)
+    if members is not None and not 1 <= members <= ens.forest.members:
+        raise ConfigError(f"--members must be from 1 to {ens.forest.members} (the members the model keeps), "
+                          f"got {members}")
+    n = _predict_stream(ens, Batches(args.data, ens.schema.names, ens.schema.kinds, rows=BATCH_ROWS), out, kind,
+                        members)
     say(f"wrote {n} predictions to {out}")
     return 0
 
@@ -152,7 +167,7 @@ def cmd_predict(args) -> int:
 BATCH_ROWS = 1 << 17   # rows scored at a time: a table larger than memory streams through
 
 
-def _predict_stream(ens, batches, out: Path, kind: str) -> int:
+def _predict_stream(ens, batches, out: Path, kind: str, members: int | None = None) -> int:
     """Score batch after batch into a temp file beside out, renamed at the end (a failed run never
     leaves half a file under the asked name); a progress bar on a terminal. Returns the rows written."""
     import tempfile
@@ -169,12 +184,12 @@ def _predict_stream(ens, batches, out: Path, kind: str) -> int:
         for X in batches:
             cols = {}
             if classes is not None:
-                shares = ens.vote_shares(X)
+                shares = ens.vote_shares(X, members=members)
                 cols["prediction"] = classes.take(pa.array(np.argmax(shares, axis=1)))
                 for k, c in enumerate(ens.classes):
                     cols[f"share_{c}"] = pa.array(shares[:, k])
             else:
-                cols["prediction"] = pa.array(np.asarray(ens.predict(X), dtype=np.float64))
+                cols["prediction"] = pa.array(np.asarray(ens.predict(X, members=members), dtype=np.float64))
             table = pa.table(cols)
             if writer is None:
                 writer = _writer(tmp, table.schema, kind)

@@ -108,12 +108,15 @@ def build_parser() -> Parser:
     t.add_argument("--target", "-t", required=True, metavar="COL", help="the column to predict")
     t.set_defaults(func=cmd_train)
 
-    rs = add("resume", "continue an interrupted run from its last checkpoint",
-             "baggr resume runs/firings-20250101-120000", (ui,),
+    rs = add("resume", "continue an interrupted run, or grow a run to more members",
+             "baggr resume runs/firings-20250101-120000 --members 800", (ui,),
              "Continue a stopped, failed or crashed run from its last checkpoint; the result is bit-identical "
-             "to a run never interrupted. The data file must be unchanged. A finished run is left as it is "
-             "(exit 0).")
+             "to a run never interrupted. With --members N, grow the run (finished or not) to N members: "
+             "bit-identical to a run of N members from the start. The data file must be unchanged. A finished "
+             "run without --members is left as it is (exit 0).")
     rs.add_argument("dir", metavar="DIR", help="the run directory")
+    rs.add_argument("--members", type=int, metavar="N", default=None,
+                    help="grow the run to N members (above its count; --stop-when-stable no longer applies)")
     rs.set_defaults(func=cmd_resume)
 
     w = add("watch", "attach the dashboard to a run (running or not)", "baggr watch runs/firings-20250101-120000")
@@ -144,6 +147,8 @@ def build_parser() -> Parser:
     pr.add_argument("data", metavar="DATA", help="the table to score")
     pr.add_argument("--out", "-o", required=True, metavar="FILE", help="output .csv, .tsv or .parquet")
     pr.add_argument("--force", action="store_true", help="replace an existing output file")
+    pr.add_argument("--members", type=int, metavar="K", default=None,
+                    help="score with the first K members only: what a run of K members gives")
     pr.set_defaults(func=cmd_predict)
 
     d = add("demo", "train on a built-in invented scenario and print the report",

@@ -148,14 +148,21 @@ def _check_oob(a: dict, schema, path) -> None:
 
 
 def _check_fit(a: dict, schema, members: int, path) -> None:
-    """The estimated curve: final_* arrays (a model file; absent in files written before it
-    existed), or est_* (a checkpoint: the run's latest refit, at or before its member count)."""
-    names = {k[6:]: v for k, v in a.items() if k.startswith("final_")}
-    latest = not names
-    if latest:
-        names = {k[4:]: v for k, v in a.items() if k.startswith("est_") and k != "est_needed"}
-    if not names:
-        return
+    """The estimated curves: final_* (the ensemble's own; absent in files written before it
+    existed) and est_* (the run's latest refit, at or before its member count), where present."""
+    sha = a.get("data_sha256")
+    if sha is not None and (sha.dtype != np.uint8 or sha.shape != (32,)):
+        raise ModelFileError(f"{os.fspath(path)}: the data fingerprint is damaged")
+    need = a.get("est_needed")
+    if need is not None and (need.dtype != np.int64 or need.ndim != 2 or need.shape[1] != 2):
+        raise ModelFileError(f"{os.fspath(path)}: the refit history is damaged")
+    for prefix, latest in (("final_", False), ("est_", True)):
+        names = {k[len(prefix):]: v for k, v in a.items() if k.startswith(prefix) and k != "est_needed"}
+        if names:
+            _check_one_fit(names, schema, members, latest, path)
+
+
+def _check_one_fit(names: dict, schema, members: int, latest: bool, path) -> None:
     from baggr.oob.curve import Fit
     want = {"members": (np.int64, 1), "sizes": (np.int64, 1), "error": (np.float64, 1), "var": (np.float64, 1),
             "class_error": (np.float64, 2), "class_var": (np.float64, 2)}

@@ -24,12 +24,15 @@ class OOB:
         self._fit = Fit.from_arrays(task, fit) if fit else None
 
     @classmethod
-    def from_tally(cls, tally, classes) -> "OOB":
-        arrays = {k: np.array(v, copy=True) for k, v in tally.arrays().items() if not k.startswith("est_")}
+    def from_tally(cls, tally, classes, extra: dict | None = None) -> "OOB":
+        """The figures of the tallies as they stand; the tally's arrays are kept whole (with the run's
+        latest refit, est_*), so the ensemble can be grown on bit for bit. extra: more arrays to keep."""
+        arrays = {k: np.array(v, copy=True) for k, v in tally.arrays().items()}
         if tally.task == "classes":
             arrays["class_rows"] = tally.class_rows.copy()
         if tally.members > 0:
             arrays.update({"final_" + k: v for k, v in tally.fit().arrays().items()})
+        arrays.update(extra or {})
         return cls(tally.task, classes, arrays)
 
     @property

@@ -206,7 +206,8 @@ class Checkpointer:
         header, arrays = npzfile.read(path, "checkpoint file")
         check_checkpoint_header(path, header, "resume")
         tr = self.training
-        if header.get("config") != tr.config.to_dict():
+        # members may have grown since (resume --members N): every other setting must be the same
+        if dict(header.get("config") or {}, members=None) != dict(tr.config.to_dict(), members=None):
             raise ModelFileError(f"{path} belongs to other settings than {CONFIG}; it cannot be resumed")
         if header.get("sha256") not in (None, self.header_extra.get("sha256")):
             raise ModelFileError(f"{path} was made from other data than the run's data file")
@@ -223,6 +224,13 @@ class Checkpointer:
         self.last_started = self.member
         self._drop_unreferenced()
         return True
+
+    def from_model(self, model_name: str) -> None:
+        """The training was continued from the run's model file (a finished run grown to more
+        members): later checkpoints take its first members from that file, as after a stop."""
+        m = self.training.next_member
+        self.chunks = [[0, m, model_name]] if self.training.config.keep_members and m else []
+        self.member = self.last_started = m
 
     def _load_chunks(self, chunks, n_features: int) -> list:
         from baggr.model.forest import Forest

@@ -146,7 +146,9 @@ class Job:
         settings = RunSettings.from_dict(cfg.get("run"))
         info = cfg["data"]
         st, _ = rd.state()
-        if st.status == "finished" and (rd / MODEL).exists():
+        # a finished run asked for more members (resume --members N) grows on from its model
+        grow = st.status == "finished" and (rd / MODEL).exists() and config.members > st.members
+        if st.status == "finished" and (rd / MODEL).exists() and not grow:
             remove_checkpoint(rd)   # a crash may have left them after the end line
             return Outcome("finished", st.reason or "finished", st.members, st.elapsed,
                            f"{rd.path} is finished ({st.members} members); nothing to resume")
@@ -159,7 +161,11 @@ class Job:
         from baggr.data.table import read_table      # not .data: a bad file is told before numba is even imported
         X, y = read_table(info["path"], cfg["target"])
         from baggr.engine import Training
-        tr = self.training = Training(X, y, config, target=cfg["target"])
+        if grow:
+            remove_checkpoint(rd)
+            tr = self.training = self._from_model(Training, X, y, config, cfg["target"])
+        else:
+            tr = self.training = Training(X, y, config, target=cfg["target"])
         if cfg["data"].get("rows") is None:
             cfg["data"].update(rows=int(tr.prep.n_rows), features=int(tr.prep.codes.shape[0]))
             rd.write_config(cfg)
@@ -170,6 +176,9 @@ class Job:
             resumed = ck.restore()
         except ModelFileError as e:
             raise ModelFileError(f"{e}; to start this run over from member 0, remove {rd / CHECKPOINT}") from None
+        if grow:
+            ck.from_model(MODEL)
+            resumed = True
         if self.stop_reason:
             return self._stopped(tr, write_checkpoint=False)
         self._start(tr, cfg, resumed or st.starts > 0)
@@ -203,6 +212,14 @@ class Job:
         if tr.next_member >= config.members or (self.stop_reason or "").startswith("stable"):
             return self._finished(tr)
         return self._stopped(tr, write_checkpoint=True)
+
+    def _from_model(self, Training, X, y, config: Config, target: str):
+        """The training of a finished run continued from its model file up to config.members."""
+        from baggr.model.ensemble import load
+        ens = load(self.rd / MODEL)
+        if ens.config.replace(members=config.members) != config:
+            raise ModelFileError(f"{self.rd / MODEL} belongs to other settings than the run's; it cannot be grown")
+        return Training.from_ensemble(ens, X, y, config.members, target=target)
 
     def _start(self, tr, cfg: dict, resumed: bool) -> None:
         import psutil
