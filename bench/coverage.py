@@ -24,14 +24,19 @@ Generators (tests/generators.py): twonorm and threenorm (Breiman 1996), Friedman
                              [--workers 2] [--out FILE.jsonl] [--table FILE.jsonl]
 --table prints the tables of an earlier --out file without running anything.
 """
-import argparse
-import json
-import os
-import sys
-import time
-from multiprocessing import Pool
+if __name__ == "coverage":
+    # another bench script's `import coverage` (numba looks for that package) found this file on
+    # the path: it is a script, not that package
+    raise ImportError("bench/coverage.py is a script, not the coverage package")
 
-import numpy as np
+import argparse  # noqa: E402
+import json
+import os  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+from multiprocessing import Pool  # noqa: E402
+
+import numpy as np  # noqa: E402
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 # this file's name is also that of a package numba looks for: keep its folder off the import path

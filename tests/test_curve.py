@@ -186,6 +186,9 @@ def test_classes_estimate_incremental_equals_batch(n_classes, soft):
         left = ref["left_out"].astype(np.int32) if soft else np.zeros(0, np.int32)
         if curve.refit_due(m + 1):
             last = curve.fit_classes(votes, left, y, n_classes, m + 1, sample=curve.LIVE_ROWS)
+        if last is None:                    # no refit yet: the figures are the textbook ones
+            assert t.est is None and t.live() == {}
+            continue
         _assert_fit_equal(t.est, last)
         _assert_fit_equal(t.fit(), curve.fit_classes(votes, left, y, n_classes, m + 1))
         live = t.live()

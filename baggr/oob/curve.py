@@ -57,8 +57,9 @@ PASSES_TWO, PASSES_THREE = 3, 1
 # line's three [1/4, 1/2, 1/4] passes over steps of 0.01: variance 1.5e-4 per axis
 STRENGTH_THREE = 1.5e-4 / (4 / 12 * (1 / GRID_THREE) ** 2)
 TOL, MAX_ITER = 1e-9, 5000
-DROP = 1e-10             # grid points a cell's likelihood rules out (share below this) are skipped
-LIVE_ROWS = 4096          # during a run, the prior is refitted on at most this many rows
+DROP = 1e-6              # grid points a cell's likelihood rules out (share below this) are skipped
+LIVE_ROWS = 1024          # during a run, the estimate is refitted on at most about this many rows
+FIRST_REFIT = 32
 TOLERANCE_REL, TOLERANCE_ABS = 0.01, 0.001
 # The infinitesimal jackknife runs about 10% low on the benchmark's problems (bench/coverage.py:
 # the estimate minus the kept ensemble's error, over its jackknife standard error, has a standard
@@ -70,14 +71,10 @@ VARIANCE_FACTOR = 1.1
 
 
 def refit_due(m: int) -> bool:
-    """Members after which a run refits the estimate: m = round(2^(j/2)), about 2 per doubling.
-
-    A refit reads every row once; in between, the last fit is read at the current size (its
-    prior does not depend on the size, only its precision grows with the members)."""
-    if m < 1:
-        return False
-    j = round(2 * math.log2(m))
-    return any(round(2 ** (i / 2)) == m for i in (j - 1, j, j + 1))
+    """Members after which a run refits the estimate: 32, 64, 128, ... (each doubles the votes
+    a row has). In between, the last fit is read at the current size: the distribution it
+    estimates does not depend on the size, only its precision grows with the members."""
+    return m >= FIRST_REFIT and m & (m - 1) == 0
 
 
 # -- ensemble sizes and the g tables -------------------------------------------------------------
@@ -101,14 +98,14 @@ def sizes(max_size: int) -> np.ndarray:
     return _cache[key]
 
 
-def variance_sizes(all_sizes: np.ndarray) -> np.ndarray:
-    """Indices into all_sizes where the influence is computed (about 2 per doubling); the design
-    effect between them is interpolated in log b."""
-    key = ("vsizes", all_sizes.shape[0], int(all_sizes[-1]))
+def variance_sizes(all_sizes: np.ndarray, step: float = math.sqrt(2)) -> np.ndarray:
+    """Indices into all_sizes where the influence is computed (sizes a factor `step` apart); the
+    design effect between them is interpolated in log b."""
+    key = ("vsizes", all_sizes.shape[0], int(all_sizes[-1]), step)
     if key not in _cache:
         picks, last = [], 0.0
         for i, b in enumerate(all_sizes):
-            if b <= 4 or b >= last * math.sqrt(2) or i == all_sizes.shape[0] - 1:
+            if b <= 2 or b >= last * step or i == all_sizes.shape[0] - 1:
                 picks.append(i)
                 last = float(b)
         _cache[key] = np.array(picks, np.int64)
@@ -227,23 +224,35 @@ class Fit:
     # -- reading ---------------------------------------------------------------------------------
     def at(self, b) -> np.ndarray:
         """Estimate at ensemble sizes b (array of ints >= 1; 0 or less means unlimited)."""
-        return _interp(self.sizes, self.error, b)
+        return self._interp(self.error, b)
 
     def var_at(self, b) -> np.ndarray:
-        return _interp(self.sizes, self.var, b)
+        return self._interp(self.var, b)
 
     def class_at(self, b) -> np.ndarray:
         b = np.atleast_1d(np.asarray(b, np.int64))
-        if self.class_error.shape[1] == 0:
-            return np.zeros((b.shape[0], 0))
-        return np.stack([_interp(self.sizes, self.class_error[:, c], b) for c in range(self.class_error.shape[1])],
-                        axis=1)
+        return np.stack([self._interp(self.class_error[:, c], b) for c in range(self.class_error.shape[1])],
+                        axis=1) if self.class_error.shape[1] else np.zeros((b.shape[0], 0))
 
     def class_var_at(self, b) -> np.ndarray:
         b = np.atleast_1d(np.asarray(b, np.int64))
-        if self.class_var.shape[1] == 0:
-            return np.zeros((b.shape[0], 0))
-        return np.stack([_interp(self.sizes, self.class_var[:, c], b) for c in range(self.class_var.shape[1])], axis=1)
+        return np.stack([self._interp(self.class_var[:, c], b) for c in range(self.class_var.shape[1])],
+                        axis=1) if self.class_var.shape[1] else np.zeros((b.shape[0], 0))
+
+    def _interp(self, values: np.ndarray, b) -> np.ndarray:
+        """Values at sizes b: stored where b is a stored size; between two stored sizes of b's
+        parity (or the last one and the limit) linear in 1/b, the c/b form of the curve's tail."""
+        b = np.atleast_1d(np.asarray(b, np.int64))
+        tabs = self.__dict__.get("_tabs")
+        if tabs is None:
+            tabs = self.__dict__["_tabs"] = _parity_tables(self.sizes)
+        out = np.empty(b.shape[0])
+        for par, (xs, idx) in enumerate(tabs):
+            mine = (b % 2 == par) & (b > 0)
+            if mine.any():
+                out[mine] = np.interp(1.0 / b[mine], xs, values[idx])
+        out[b <= 0] = values[-1]
+        return out
 
     def interval(self, e: float, v: float):
         """95% interval of an estimate e with (jackknife) variance v (None while e is unknown)."""
@@ -257,6 +266,13 @@ class Fit:
     def limit_interval(self):
         return self.interval(float(self.error[-1]), float(self.var[-1]))
 
+    def point(self, b: int) -> tuple:
+        """(estimate, variance) at one size b, quickly (a run reads this after every member)."""
+        i = b - 1
+        if 0 <= i < EXACT_SIZES and i < self.sizes.shape[0] and self.sizes[i] == b:
+            return float(self.error[i]), float(self.var[i])
+        return float(self.at(b)[0]), float(self.var_at(b)[0])
+
     def tolerance(self) -> float:
         """How close to the limit counts as there: 1% of it or (classes) 0.1 point, the larger."""
         lim = self.limit
@@ -267,6 +283,11 @@ class Fit:
     def members_needed(self) -> int | None:
         """Fewest members from which the estimate stays within tolerance of the limit (None: more
         than the largest stored size)."""
+        if "_needed" not in self.__dict__:
+            self.__dict__["_needed"] = self._members_needed()
+        return self.__dict__["_needed"]
+
+    def _members_needed(self) -> int | None:
         if not np.isfinite(self.limit):
             return None
         thr = self.limit + self.tolerance()
@@ -314,30 +335,17 @@ class Fit:
         return None
 
 
-def _interp(all_sizes: np.ndarray, values: np.ndarray, b) -> np.ndarray:
-    """Values at sizes b: stored where b is a stored size; between two stored sizes of b's parity
-    (or the last stored size and the limit) linear in 1/b, the c/b form of the curve's tail."""
-    b = np.atleast_1d(np.asarray(b, np.int64))
-    out = np.empty(b.shape[0])
-    last = int(all_sizes[-1])
-    x_all = 1.0 / all_sizes
+def _parity_tables(all_sizes: np.ndarray) -> list:
+    """Per parity of b: 1/b of the stored sizes of that parity, ascending, with 0 (the limit) first,
+    and the indices of their values (the limit is the last stored value)."""
+    out = []
+    last = all_sizes.shape[0]
     for par in (0, 1):
-        sel = all_sizes % 2 == par
-        if not np.any(sel):
-            sel = np.ones_like(sel)
-        xs, ys = x_all[sel][::-1], values[:-1][sel][::-1]   # ascending in 1/b
-        xs = np.concatenate([[0.0], xs])
-        ys = np.concatenate([[values[-1]], ys])
-        mine = (b % 2 == par) & (b > 0)
-        out[mine] = np.interp(1.0 / b[mine], xs, ys)
-    out[b <= 0] = values[-1]
-    small = (b > 0) & (b <= last)
-    # exact where stored
-    idx = np.searchsorted(all_sizes, b[small])
-    hit = (idx < all_sizes.shape[0]) & (all_sizes[np.minimum(idx, all_sizes.shape[0] - 1)] == b[small])
-    vals = out[small]
-    vals[hit] = values[idx[hit]]
-    out[small] = vals
+        sel = np.flatnonzero(all_sizes % 2 == par)
+        if sel.shape[0] == 0:
+            sel = np.arange(last)
+        sel = sel[::-1]
+        out.append((np.concatenate([[0.0], 1.0 / all_sizes[sel]]), np.concatenate([[last], sel])))
     return out
 
 
@@ -364,13 +372,12 @@ def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classe
                 sample: int | None = None) -> Fit:
     """The estimate from a class tally: votes (n, C), left_out (n,) or empty (hard votes).
 
-    sample: fit each class's prior on every stride-th row only, so that at most about `sample`
-    rows are read by the EM (a run's refits); the estimate is then one smoothed-EM step from that
-    prior over all rows (their average posterior), and the variance the sample's design effect at
-    the full row count. None: every row (the finished ensemble)."""
+    sample: fit to every stride-th row only, so that about `sample` rows are read (a run's refits:
+    their cost does not grow with the table); the figures and their variance are then those of
+    that sample, a spread-out part of the table. None: every row (the finished ensemble)."""
     three = n_classes >= 3
     all_sizes = sizes(MAX_SIZE_THREE if three else MAX_SIZE)
-    vi = variance_sizes(all_sizes)
+    vi = variance_sizes(all_sizes, 2.0 if sample else math.sqrt(2))   # a run's refits: fewer
     grid, (sp, si, sv) = _grid_three() if three else _grid_two()
     n_grid = grid.shape[0]
     cols = np.concatenate([vi, [all_sizes.shape[0]]])   # + the limit column
@@ -382,7 +389,7 @@ def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classe
     parts = []
     dims, rival = (2 if three else 1), n_classes > 3
     for c in range(n_classes):
-        cells, counts = k.class_cells(votes, left_out, y, c, dims, rival, 1)
+        cells, counts = k.class_cells(votes, left_out, y, c, dims, rival, stride)
         nc = float(counts.sum())
         covered[c] = nc
         if nc == 0:
@@ -395,24 +402,12 @@ def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classe
             g = _g_two(all_sizes, tie_wrong=c > 0)
         lp, li, lv = k.likelihood(cells, grid, DROP)
         cf = counts.astype(np.float64)
-        if stride > 1:
-            fcells, fcounts = k.class_cells(votes, left_out, y, c, dims, rival, stride)
-            if fcounts.shape[0] == 0:
-                fcells, fcounts = cells, counts
-            flp, fli, flv = k.likelihood(fcells, grid, DROP)
-            fcf = fcounts.astype(np.float64)
-            pi, _ = k.ems(flp, fli, flv, fcf, sp, si, sv, n_grid, TOL, MAX_ITER)
-            est = k.mean_posterior(lp, li, lv, cf, pi, sp, si, sv) @ g
-        else:
-            flp, fli, flv, fcf = lp, li, lv, cf
-            pi, _ = k.ems(lp, li, lv, cf, sp, si, sv, n_grid, TOL, MAX_ITER)
-            est = pi @ g
-        nf = float(fcf.sum())
-        psi = k.influence(flp, fli, flv, fcf, sp, si, sv, pi, np.ascontiguousarray(g[:, cols]))
-        parts.append((c, est, psi, fcf, nf / nc))
+        pi, _ = k.ems(lp, li, lv, cf, sp, si, sv, n_grid, TOL, MAX_ITER)
+        est = pi @ g
+        psi = k.influence(lp, li, lv, cf, sp, si, sv, pi, np.ascontiguousarray(g[:, cols]))
+        parts.append((c, est, psi, cf))
         class_error[:, c] = est
-        # the sample's variance at the full count of rows: variance x (sample rows / rows)
-        class_var[:, c] = _spread_var(est, (fcf[:, None] * psi ** 2).sum(axis=0) / (nf * nc), cols, all_sizes, nc)
+        class_var[:, c] = _spread_var(est, (cf[:, None] * psi ** 2).sum(axis=0) / (nc * nc), cols, all_sizes, nc)
     total = covered.sum()
     error = np.full(n_sizes, np.nan)
     var = np.full(n_sizes, np.nan)
@@ -421,9 +416,9 @@ def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classe
         error = np.nansum(class_error * q[None, :], axis=1)
         # a row's influence on the class-weighted figure: its class's estimate and its own pull
         v = np.zeros(cols.shape[0])
-        for c, est, psi, fcf, share in parts:
+        for c, est, psi, cf in parts:
             dev = est[cols][None, :] + psi - error[cols][None, :]
-            v += (fcf[:, None] * dev ** 2).sum(axis=0) / share
+            v += (cf[:, None] * dev ** 2).sum(axis=0)
         var = _spread_var(error, v / (total * total), cols, all_sizes, total)
     return Fit("classes", members, all_sizes, error, var, class_error, class_var)
 

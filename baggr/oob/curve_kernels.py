@@ -23,6 +23,8 @@ def class_cells(votes, left_out, y, target, dims, rival, stride):
     Returns (cells (m, 1 + dims) int64, counts (m,) int64), sorted by cell.
     """
     n, c = votes.shape
+    if dims == 1:
+        return _cells_dense(votes, left_out, y, target, stride)
     keys = np.empty(n, np.int64)
     m = 0
     for r in range(0, n, stride):
@@ -87,6 +89,57 @@ def class_cells(votes, left_out, y, target, dims, rival, stride):
 
 
 @kernel
+def _cells_dense(votes, left_out, y, target, stride):
+    """class_cells for one probability per row, (k, v) counted in a table over the k that occur
+    (no sort: two passes over the rows and one over the table)."""
+    n, c = votes.shape
+    kmin, kmax = np.int64(1) << 62, np.int64(0)
+    for r in range(0, n, stride):
+        if y[r] != target:
+            continue
+        k = _row_k(votes, left_out, r, c)
+        if k > 0:
+            kmin = min(kmin, k)
+            kmax = max(kmax, k)
+    if kmax == 0:
+        return np.zeros((0, 2), np.int64), np.zeros(0, np.int64)
+    table = np.zeros((kmax - kmin + 1, kmax + 1), np.int64)
+    for r in range(0, n, stride):
+        if y[r] != target:
+            continue
+        k = _row_k(votes, left_out, r, c)
+        if k > 0:
+            v = min(k, np.int64(math.floor(votes[r, target] + 0.5)))
+            table[k - kmin, v] += 1
+    n_cells = 0
+    for i in range(table.shape[0]):
+        for v in range(table.shape[1]):
+            if table[i, v] > 0:
+                n_cells += 1
+    cells = np.zeros((n_cells, 2), np.int64)
+    counts = np.zeros(n_cells, np.int64)
+    j = 0
+    for i in range(table.shape[0]):
+        for v in range(table.shape[1]):
+            if table[i, v] > 0:
+                cells[j, 0] = kmin + i
+                cells[j, 1] = v
+                counts[j] = table[i, v]
+                j += 1
+    return cells, counts
+
+
+@kernel
+def _row_k(votes, left_out, r, c):
+    if left_out.shape[0] > 0:
+        return np.int64(left_out[r])
+    k = np.int64(0)
+    for j in range(c):
+        k += np.int64(votes[r, j])
+    return k
+
+
+@kernel
 def likelihood(cells, grid, drop):
     """Multinomial probability of each cell's votes at each grid point (grid: (G, D + 1) chances
     of each category, the last the rest), as a sparse matrix (indptr, index, value): points whose
@@ -97,6 +150,11 @@ def likelihood(cells, grid, drop):
     g = grid.shape[0]
     row = np.zeros(g)
     keep = np.zeros(g, np.bool_)
+    log_grid = np.full((g, dims + 1), -np.inf)
+    for j in range(g):
+        for d in range(dims + 1):
+            if grid[j, d] > 0.0:
+                log_grid[j, d] = math.log(grid[j, d])
     indptr = np.zeros(n_cells + 1, np.int64)
     cap = n_cells * 8 + 64
     index = np.empty(cap, np.int64)
@@ -113,15 +171,11 @@ def likelihood(cells, grid, drop):
         top = 0.0
         for j in range(g):
             s = log_coef
-            ok = True
             for d in range(dims + 1):
                 v = cells[c, 1 + d] if d < dims else rest
                 if v > 0:
-                    if grid[j, d] <= 0.0:
-                        ok = False
-                        break
-                    s += v * math.log(grid[j, d])
-            row[j] = math.exp(s) if ok else 0.0
+                    s += v * log_grid[j, d]      # -inf where the grid point gives the category no chance
+            row[j] = math.exp(s) if s > -np.inf else 0.0
             top = max(top, row[j])
         for j in range(g):
             keep[j] = row[j] > 0.0 and row[j] >= drop * top
@@ -215,20 +269,6 @@ def ems(lp, li, lv, counts, sp, si, sv, g, tol, max_iter):
         _ems_map(lp, li, lv, w, sp, si, sv, nxt, r, pi)
         evals += 1
     return pi, evals
-
-
-@kernel
-def mean_posterior(lp, li, lv, counts, pi, sp, si, sv):
-    """One smoothed-EM step from pi on these cells: the average of the rows' posteriors, smoothed."""
-    g = pi.shape[0]
-    total = 0.0
-    for c in range(counts.shape[0]):
-        total += counts[c]
-    w = counts / total
-    r = np.zeros(g)
-    out = np.zeros(g)
-    _ems_map(lp, li, lv, w, sp, si, sv, pi, r, out)
-    return out
 
 
 @kernel
