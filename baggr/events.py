@@ -32,7 +32,9 @@ class MemberEvent:
     error_limit: float = math.nan   # estimated error of an unlimited ensemble
     error_limit_interval: tuple | None = None
     members_needed: int | None = None
-    curve: dict | None = None       # {"b": sizes, "error", "lo", "hi": lists} after a refit
+    curve: dict | None = None       # {"b": sizes, "error", "lo", "hi": lists, "class_error": one per class}
+
+    estimate_fields = staticmethod(lambda d: _estimate_fields(d))
 
     def journal_fields(self) -> dict:
         """Fields for the journal's member line (strict JSON: NaN becomes null)."""
@@ -49,12 +51,27 @@ class MemberEvent:
                                      else [_num(v) for v in self.error_limit_interval])
         d["members_needed"] = self.members_needed
         if self.curve is not None:
-            d["curve"] = {k: [_num(v) if k != "b" else int(v) for v in vs] for k, vs in self.curve.items()}
+            d["curve"] = _estimate_fields({"curve": self.curve})["curve"]
         if self.confusion is not None:
             d["confusion"] = self.confusion
         if self.r2 is not None:
             d["r2"] = _num(self.r2)
         return d
+
+
+def _estimate_fields(d: dict) -> dict:
+    """An estimate's figures (OOB.figures) in strict JSON."""
+    out = {"error": _num(d.get("error")), "interval": None if d.get("interval") is None else
+           [_num(v) for v in d["interval"]], "error_limit": _num(d.get("error_limit")),
+           "error_limit_interval": None if d.get("error_limit_interval") is None else
+           [_num(v) for v in d["error_limit_interval"]], "members_needed": d.get("members_needed")}
+    if "class_error" in d:
+        out["class_error"] = [_num(v) for v in d["class_error"]]
+    c = d.get("curve")
+    if c is not None:
+        out["curve"] = {k: ([int(v) for v in vs] if k == "b" else [[_num(v) for v in col] for col in vs]
+                            if k == "class_error" else [_num(v) for v in vs]) for k, vs in c.items()}
+    return out
 
 
 def _num(v):

@@ -169,14 +169,14 @@ def penguins_csv_path():
 # "Probable inference, the law of succession, and statistical inference", JASA 22, eq. for the
 # score interval).
 
-def stable_rule(needed, m, min_members=32, refits=3, spread=0.1) -> bool:
+def stable_rule(needed, m, min_members=32, refits=3, spread=0.1, slack=16) -> bool:
     """True when after m members the last `refits` refits made at min_members members or later (and
-    not after m) all put members_needed within +-spread of the latest one, N, and m >= N."""
+    not after m) all put members_needed within +-max(spread N, slack) of the latest one, N, and m >= N."""
     seen = [(a, b) for a, b in needed if min_members <= a <= m]
     if len(seen) < refits:
         return False
     n = seen[-1][1]
-    return n >= 1 and m >= n and all(b >= 1 and abs(b - n) <= spread * n for _, b in seen[-refits:])
+    return n >= 1 and m >= n and all(b >= 1 and abs(b - n) <= max(spread * n, slack) for _, b in seen[-refits:])
 
 
 def settled_at(curve, lo, hi):

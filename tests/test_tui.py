@@ -8,6 +8,7 @@ import os
 import threading
 import time
 
+import numpy as np
 import psutil
 import pytest
 from rich.console import Console
@@ -103,7 +104,7 @@ def test_classes_run_shows_members_error_and_each_class(tmp_path):
             assert cells == ["burst"] + [v for c, p in zip(burst, shares) for v in (f"{c:,}", p)]
             # the caution under the curve: about e^-1 of the members leave a row out (Breiman 1996)
             words = " ".join(widget_text(app, "#caution").split())
-            assert "judged by only ~0.37 x members trees" in words
+            assert "judged by only ~0.37 x members trees" in words and "textbook OOB error (faint) reads high" in words
             assert "(Bylander 2002; Janitza & Hornung 2018)" in words
             # this process's own figures, one line of the progress panel under the job's status
             side = widget_text(app, "#progress").splitlines()
@@ -299,7 +300,8 @@ def test_log_class_and_help_keys(tmp_path):
             await pilot.pause()
             assert isinstance(app.screen, HelpScreen)
             keys = widget_text(app, "#help-keys").splitlines()
-            for key, words in [("q", "leave"), ("s", "stop"), ("l", "log"), ("c", "class"), ("?", "list")]:
+            for key, words in [("q", "leave"), ("s", "stop"), ("l", "log"), ("r", "textbook"), ("c", "class"),
+                               ("?", "list")]:
                 assert any(line.strip("│ ").startswith(key + " ") and words in line for line in keys), key
             await pilot.press("escape")
             await pilot.pause()
@@ -307,6 +309,53 @@ def test_log_class_and_help_keys(tmp_path):
             await pilot.press("q")
             await pilot.pause()
         assert app.return_code in (0, None)
+    run(go())
+
+
+def test_estimated_curve_its_limit_needed_members_and_the_textbook_toggle(tmp_path):
+    # a real run's journal (in this process): refit lines carry the estimated curve over sizes, and
+    # the end line the saved ensemble's own; the dashboard draws from them, and r hides the textbook
+    import baggr
+    from baggr.runs.journal import read_state
+    from generators import waveform
+    run_dir = tmp_path / "kappa"
+    run_dir.mkdir()
+    X, y = waveform(400, seed=3)
+    lines = []
+    with JournalWriter(run_dir / JOURNAL) as w:
+        w.write("start", **start_fields(members_target=70, classes=["0", "1", "2"], class_rows=[
+            int(v) for v in np.bincount(y, minlength=3)]))
+
+        def on_member(ev):
+            f = ev.journal_fields()
+            lines.append(f)
+            w.write("member", **f)
+        ens = baggr.train(X, y, baggr.Config(members=70, seed=2, threads=1), on_member=on_member)
+        from baggr.events import MemberEvent
+        w.write("end", status="finished", reason="reached 70 members", member=70, elapsed=1.0,
+                estimate=MemberEvent.estimate_fields(ens.oob.figures(70)))
+    refits = [f for f in lines if "curve" in f]
+    assert [f["member"] for f in refits] == [32, 64]            # refits as members double, from 32
+    before = read_state(run_dir)
+    # the end line's estimate (the saved ensemble, over every row) is what the journal leaves
+    assert before.fit["member"] == 70 and before.members_needed == ens.oob.members_needed
+    assert before.error == ens.oob.error and before.error_limit == ens.oob.error_limit
+    assert before.fit["error"][0] == pytest.approx(ens.oob.curve[0], rel=1e-5)
+
+    async def go():
+        app = Dashboard(run_dir)
+        async with app.run_test(size=(120, 40)) as pilot:
+            await settle(pilot, app, caught_up(app))
+            key = " ".join(widget_text(app, "#curve-key").split())
+            need = ens.oob.members_needed
+            assert f"limit {100 * ens.oob.error_limit:.2f}% · needed {need:,}" in key and "textbook" in key
+            words = " ".join(widget_text(app, "#caution").split())
+            assert "textbook OOB error (faint) reads high" in words and "kept ensemble's error" in words
+            assert "r textbook curve: shown" in screen_text(app)
+            await pilot.press("r")
+            await pilot.pause()
+            assert not app.show_raw and "r textbook curve: hidden" in screen_text(app)
+            assert "textbook" not in " ".join(widget_text(app, "#curve-key").split())
     run(go())
 
 

@@ -76,6 +76,7 @@ class Dashboard(App):
         self.tail = Tail(self.run_dir, self.post_message, poll=poll, opening=opening)
         self.probe = ProcessProbe()
         self.log_x = False
+        self.show_raw = True        # the textbook OOB curve, faint beside the estimate (key r)
         self.highlight: int | None = None
         self.status = "waiting"
         self.redraws = 0            # drawn frames (read by the benchmark)
@@ -178,7 +179,7 @@ class Dashboard(App):
             view = make_view(state, run_name=self.run_dir.name, status=self.status, now=self.get_time(),
                              width=curve.plot_width, log_x=self.log_x, highlight=self.highlight,
                              stop_requested=stop_requested(self.run_dir), malformed=self.tail.reader.malformed,
-                             curves=heavy)
+                             curves=heavy, show_raw=self.show_raw)
         if not heavy and self.view is not None:
             view.curves = self.view.curves      # the curves last drawn, not downsampled again
         self.view = view
@@ -241,6 +242,10 @@ class Dashboard(App):
 
     def action_log_scale(self) -> None:
         self.log_x = not self.log_x
+        self.redraw()
+
+    def action_raw_curve(self) -> None:
+        self.show_raw = not self.show_raw
         self.redraw()
 
     def action_cycle_class(self) -> None:

@@ -45,6 +45,10 @@ def _axis_words(app) -> str:
     return f"members axis: {'log' if app.log_x else 'linear'}"
 
 
+def _raw_words(app) -> str:
+    return f"textbook curve: {'shown' if getattr(app, 'show_raw', True) else 'hidden'}"
+
+
 def _class_words(app) -> str:
     hidden = getattr(app, "classes_hidden", 0)
     return f"next class ({hidden} more)" if hidden else "next class"
@@ -54,6 +58,8 @@ KEYS = [
     Key("q", "q", "leave", "leave", "leave the dashboard; the job goes on (Ctrl-C does the same)", "top"),
     Key("s", "s", "stop_job", _stop_words, "ask the job to stop cleanly (asks first)", "progress"),
     Key("l", "l", "log_scale", _axis_words, "member axis: linear or log scale", "curve"),
+    Key("r", "r", "raw_curve", _raw_words, "show or hide the textbook OOB curve (faint) beside the estimate",
+        "curve"),
     Key("c", "c", "cycle_class", _class_words, "highlight the next class in the curve and tables", "classes",
         when=_classes),
     Key("question_mark", "?", "help", "keys", "this list", "top"),

@@ -40,6 +40,13 @@ class View:
     log_x: bool = False
     highlight: int | None = None
     curves: dict = field(default_factory=dict)   # series -> (xs, ys), downsampled for drawing
+    # the estimated error of the kept ensemble over sizes, from the run's latest refit (None before)
+    fit: dict | None = None
+    raw_error: float | None = None  # the textbook OOB error after the latest member
+    error_limit: float | None = None
+    error_limit_interval: tuple | None = None
+    members_needed: int | None = None
+    show_raw: bool = True           # draw the textbook curve (faint) beside the estimate
     config: dict | None = None      # the start line's settings
     version: int = 0                # events folded so far: the curve changed when this did
 
@@ -49,7 +56,8 @@ class View:
 
 
 def make_view(state: RunState, *, run_name: str, status: str, now: float, width: int, log_x: bool,
-              highlight: int | None, stop_requested: bool, malformed: int, curves: bool = True) -> View:
+              highlight: int | None, stop_requested: bool, malformed: int, curves: bool = True,
+              show_raw: bool = True) -> View:
     """Copy the figures out of `state` (call with its lock held); curves downsampled to `width` points
     (none when `curves` is false: a redraw that does not build the plot)."""
     running = status == "running"
@@ -58,7 +66,7 @@ def make_view(state: RunState, *, run_name: str, status: str, now: float, width:
         elapsed += max(0.0, now - state.member_t)   # the clock goes on between member lines
     want_curves, curves = curves, {}
     if want_curves and state.curve_member:
-        series = ["error", "lo", "hi"]
+        series = ["error", "lo", "hi", "raw"]
         if state.task == "regression":
             series.append("r2")
         series += list(range(len(state.curve_class)))
@@ -77,4 +85,6 @@ def make_view(state: RunState, *, run_name: str, status: str, now: float, width:
         warnings=list(state.warnings)[-3:], unreadable=malformed + state.unreadable,
         stop_requested=stop_requested, log_x=log_x, highlight=highlight, curves=curves,
         version=state.events, config=dict(state.config) if isinstance(state.config, dict) else None,
+        fit=None if state.fit is None else dict(state.fit), raw_error=state.raw_error, error_limit=state.error_limit,
+        error_limit_interval=state.error_limit_interval, members_needed=state.members_needed, show_raw=show_raw,
     )

@@ -280,6 +280,25 @@ class Fit:
             return max(TOLERANCE_REL * lim, TOLERANCE_ABS)
         return TOLERANCE_REL * abs(lim)
 
+    def points(self, top: int, count: int = 48) -> dict:
+        """The curve at about `count` sizes from 1 to `top`, log-spaced, with its band (and per class),
+        in short floats: what a journal line carries for a dashboard to draw."""
+        # odd sizes: even ones add ties (decided by class order), a zigzag no one chooses a size by
+        b = np.unique(np.round(np.geomspace(1, max(2, top), count)).astype(np.int64) | 1)
+        e, v = self.at(b), self.var_at(b)
+        iv = [self.interval(float(x), float(w)) for x, w in zip(e, v)]
+        short = lambda xs: [float(f"{x:.6g}") for x in xs]  # noqa: E731  (a journal line, not a store)
+        out = {"b": b.tolist(), "error": short(e), "lo": short(i[0] if i else float("nan") for i in iv),
+               "hi": short(i[1] if i else float("nan") for i in iv)}
+        if self.task == "classes":
+            out["class_error"] = [short(col) for col in self.class_at(b).T]
+        return out
+
+    def points_top(self, target: int, members: int) -> int:
+        """How far `points` should reach: past the target, the members so far and members_needed."""
+        need = self.members_needed() or 0
+        return int(min(max(2 * target, 2 * members, need + need // 4, 16), MAX_SIZE))
+
     def members_needed(self) -> int | None:
         """Fewest members from which the estimate stays within tolerance of the limit (None: more
         than the largest stored size)."""

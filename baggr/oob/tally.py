@@ -193,18 +193,9 @@ class Tally:
             out["class_error"] = f.class_at(b)[0].tolist()
         return out
 
-    def curve_points(self, target: int, points: int = 48) -> dict:
-        """The latest fit's curve at about `points` sizes from 1 to past the sizes of interest
-        (the target, members_needed), log-spaced, for a dashboard to draw."""
-        f = self.est
-        need = f.members_needed() or 0
-        top = int(min(max(2 * target, 2 * self.members, need + need // 4, 16), 1 << 22))
-        b = np.unique(np.round(np.geomspace(1, top, points)).astype(np.int64))
-        e, v = f.at(b), f.var_at(b)
-        iv = [f.interval(float(x), float(w)) for x, w in zip(e, v)]
-        short = lambda xs: [float(f"{x:.6g}") for x in xs]  # noqa: E731  (a journal line, not a store)
-        return {"b": b.tolist(), "error": short(e), "lo": short(i[0] if i else float("nan") for i in iv),
-                "hi": short(i[1] if i else float("nan") for i in iv)}
+    def curve_points(self, target: int) -> dict:
+        """The latest fit's curve over sizes, for a dashboard to draw (curve.Fit.points)."""
+        return self.est.points(self.est.points_top(target, self.members))
 
     # -- checkpoints -----------------------------------------------------------------------------
     def arrays(self) -> dict:

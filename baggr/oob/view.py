@@ -160,6 +160,19 @@ class OOB:
     def tolerance(self) -> float:
         return self._fit.tolerance() if self._fit is not None else float("nan")
 
+    def figures(self, target: int | None = None) -> dict:
+        """The estimate as a run's journal carries it: error, interval, error_limit(_interval),
+        members_needed, class_error and the curve over sizes (empty without an estimate)."""
+        f = self._fit
+        if f is None or self.members == 0:
+            return {}
+        out = {"error": self.error, "interval": self.interval, "error_limit": f.limit,
+               "error_limit_interval": f.limit_interval, "members_needed": f.members_needed(),
+               "curve": f.points(f.points_top(target or self.members, self.members))}
+        if self.task == "classes":
+            out["class_error"] = self.class_error.tolist()
+        return out
+
     def estimate_at(self, b: int) -> tuple:
         """(estimate, 95% interval) for an ensemble of b members (any b >= 1, also beyond M)."""
         if self._fit is None:

@@ -27,21 +27,22 @@ def stable_now(needed, m: int, settings: RunSettings) -> str | None:
     estimate of members_needed has itself settled.
 
     needed: [member, members_needed (-1: beyond reach)] of each refit of the estimated curve (about
-    two per doubling of the members). Rule: take the refits at or after stable_min_members members;
-    the last stable_refits of them all give a members_needed within +-stable_spread of the latest
-    one, N; and m >= N. So the run stops at N members when the estimate has settled by then, or as
-    soon as it settles when N lies behind.
+    one per doubling of the members). Rule: take the refits at or after stable_min_members members;
+    the last stable_refits of them all give a members_needed within +-max(stable_spread N,
+    stable_slack) of the latest one, N; and m >= N. So the run stops at N members when the estimate
+    has settled by then, or as soon as it settles when N lies behind.
     """
     rows = [(int(a), int(b)) for a, b in needed if int(a) >= settings.stable_min_members and int(a) <= m]
     if len(rows) < settings.stable_refits:
         return None
     last = rows[-settings.stable_refits:]
     n = last[-1][1]
-    if n < 1 or any(b < 1 or abs(b - n) > settings.stable_spread * n for _, b in last) or m < n:
+    room = max(settings.stable_spread * n, settings.stable_slack)
+    if n < 1 or any(b < 1 or abs(b - n) > room for _, b in last) or m < n:
         return None
     at = ", ".join(str(a) for a, _ in last)
     return (f"stable: {n} members needed to come near the error limit (the estimate agreed within "
-            f"{settings.stable_spread:.0%} at the refits after {at} members)")
+            f"{room:.0f} members at the refits after {at} members)")
 
 
 @dataclass
@@ -240,6 +241,7 @@ class Job:
 
     def _save_model(self, tr) -> None:
         ens = tr.ensemble()
+        self._final = ens.oob.figures(tr.config.members)   # the end line carries them
         try:
             ens.save(self.rd / MODEL)
         except BaggrError as e:
@@ -297,6 +299,11 @@ class Job:
         tr = self.training
         fields = {"status": status, "reason": reason, "member": tr.next_member if tr else 0,
                   "elapsed": round(tr.elapsed, 4) if tr else 0.0}
+        final = getattr(self, "_final", None)
+        if final:
+            # the saved ensemble's own estimate (fitted over every row), for the dashboard and the report
+            from baggr.events import MemberEvent
+            fields["estimate"] = MemberEvent.estimate_fields(final)
         try:
             self.journal.write("end", **fields)
         except OSError:

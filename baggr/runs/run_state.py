@@ -77,7 +77,7 @@ class RunState:
         self.curve_raw = array("f")   # the textbook OOB error after each member
         self.curve_class: list[array] = []
         # the run's latest estimated curve over ensemble sizes, from its latest refit line:
-        # {"member": m, "b": [...], "error": [...], "lo": [...], "hi": [...]}
+        # {"member": m, "b": [...], "error": [...], "lo": [...], "hi": [...], "class_error": [[...], ...]}
         self.fit: dict | None = None
         self._drawn: dict = {}     # per series: extremes of complete buckets (see downsample)
 
@@ -176,12 +176,7 @@ class RunState:
         ce = [NAN if c is None else float(c) for c in ce]
         raw = ev.get("raw_error", err)      # lines written before the estimate: error was the textbook one
         raw = NAN if raw is None else float(raw)
-        fit = ev.get("curve")
-        if isinstance(fit, dict):
-            fit = {"member": m, **{k: [NAN if v is None else float(v) for v in fit.get(k) or []]
-                                   for k in ("b", "error", "lo", "hi")}}
-            if not (len(fit["b"]) == len(fit["error"]) == len(fit["lo"]) == len(fit["hi"])):
-                raise ValueError("a curve's lists differ in length")
+        fit = _fit(ev.get("curve"), m)
         # Everything converted: now the arrays grow together or not at all.
         cm = self.curve_member
         if cm and m <= cm[-1]:
@@ -214,6 +209,13 @@ class RunState:
         self.reason = ev.get("reason")
         if ev.get("elapsed") is not None:
             self.elapsed = float(ev["elapsed"])
+        est = ev.get("estimate")
+        if isinstance(est, dict) and self._last is not None:
+            # the saved ensemble's own estimate (over every row) replaces the run's last refit
+            fit = _fit(est.get("curve"), int(ev.get("member") or self.members))
+            self._last = {**self._last, **{k: v for k, v in est.items() if k != "curve"}}
+            if fit is not None:
+                self.fit = fit
 
     # -- the latest figures, from the last member line
 
@@ -340,6 +342,19 @@ class RunState:
         arrs = [self.curve_member, self.curve_error, self.curve_lo, self.curve_hi, self.curve_r2, self.curve_raw,
                 *self.curve_class]
         return sum(a.buffer_info()[1] * a.itemsize for a in arrs)
+
+
+def _fit(got, member: int) -> dict | None:
+    """A journal line's curve over sizes as drawn (NaN for gaps); ValueError when damaged."""
+    if not isinstance(got, dict):
+        return None
+    fit = {"member": member, **{k: [NAN if v is None else float(v) for v in got.get(k) or []]
+                                for k in ("b", "error", "lo", "hi")}}
+    fit["class_error"] = [[NAN if v is None else float(v) for v in c] for c in got.get("class_error") or []]
+    n = len(fit["b"])
+    if not (len(fit["error"]) == len(fit["lo"]) == len(fit["hi"]) == n) or any(len(c) != n for c in fit["class_error"]):
+        raise ValueError("a curve's lists differ in length")
+    return fit
 
 
 def _none_if_nan(v):

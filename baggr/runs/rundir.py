@@ -40,6 +40,7 @@ class RunSettings:
     stable_min_members: int = 32     # refits from here on count for the stopping rule (job.stable_now)
     stable_refits: int = 3           # ... the last this many of them
     stable_spread: float = 0.1       # ... agree on members_needed to within this share of the latest
+    stable_slack: int = 16           # ... or within this many members, whichever is more
 
     @classmethod
     def from_dict(cls, d: dict | None) -> "RunSettings":

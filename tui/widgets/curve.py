@@ -1,4 +1,5 @@
-"""The OOB error curve over ensemble size: all rows, each class, and the 95% band."""
+"""The error by ensemble size: the estimated error of the kept ensemble (all rows, each class) with
+its 95% band, the textbook OOB curve faintly beside it, the error limit and the members needed."""
 from __future__ import annotations
 
 import math
@@ -12,21 +13,30 @@ from textual.app import ComposeResult
 from ..view import View
 from .base import Column, Painted, Panel, TextPanel
 from .braille import Series, plot_lines
-from .palette import (BAND, DIMMED, MONO_BAND, MONO_DIMMED, MONO_DIMMED_KEY, MONO_OVERALL, OVERALL, class_colour,
-                      class_mark, rgb)
+from .palette import (BAND, DIMMED, LIMIT, MONO_BAND, MONO_DIMMED, MONO_DIMMED_KEY, MONO_LIMIT, MONO_OVERALL,
+                      MONO_RAW, OVERALL, RAW, class_colour, class_mark, rgb)
 
 # About e^-1 = 0.368 of the members leave a given row out of their bootstrap draw (Breiman 1996).
 OOB_SHARE = math.exp(-1)
 
 
 def caution(v: View, room: int = 1000) -> str:
-    """The caution about small ensembles; with the present count of judging trees when it fits on the line."""
-    cite = "(Bylander 2002; Janitza & Hornung 2018)."
+    """What the curves are: each row is judged by only ~0.37 x members trees, so the textbook OOB
+    curve reads high; the bright curve is corrected to the kept ensemble's size (with the present
+    count of judging trees when it fits on the line)."""
+    cite = "(Bylander 2002; Janitza & Hornung 2018)"
     judged = OOB_SHARE * v.members
-    long = f"Early OOB error reads high: each row is judged by only ~0.37 x members trees (now ~{judged:,.0f}) {cite}"
+    now = f" (now ~{judged:,.0f})"
+    if v.fit is None:
+        tail = "the estimate for the kept ensemble comes at 32 members."
+    else:
+        tail = ("the bright curve estimates the kept ensemble's error at each size (refitted as members "
+                "double; the saved ensemble's own at the end).")
+    long = (f"Each row is judged by only ~0.37 x members trees{now}, so the textbook OOB error (faint) reads "
+            f"high {cite}; {tail}")
     if len(long) <= room:
         return long
-    return f"Early OOB error reads high: each row is judged by only ~0.37 x members trees {cite}"
+    return f"Each row is judged by only ~0.37 x members trees: the textbook OOB error (faint) reads high {cite}; {tail}"
 
 
 def nice_ticks(lo: float, hi: float, most: int = 6) -> list[int]:
@@ -72,7 +82,7 @@ class CurvePlot(Painted):
     def draw(self, v: View, mono: bool) -> None:
         """Plot the view's curves unless they are drawn already (the app decides how often to ask)."""
         self._last_args = (v, mono)
-        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes))
+        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes), v.show_raw)
         if key == self._drawn:
             return
         self._drawn = key
@@ -93,53 +103,117 @@ class CurvePlot(Painted):
         return lines
 
 
+def x_top(v: View) -> float:
+    """The member axis runs to the members so far, or on to members_needed when that is near
+    enough (within 2x, or any distance on a log axis)."""
+    top = float(max(v.members, 2))
+    need = v.members_needed
+    if v.fit is not None and need and need > top and (v.log_x or need <= 2 * top):
+        top = need * 1.1
+    return top
+
+
+def _dashed(xs: np.ndarray, ys: np.ndarray, pieces: int = 24) -> tuple[np.ndarray, np.ndarray]:
+    """A straight line from (xs[0], ys[0]) to (xs[1], ys[1]) cut into dashes (NaN gaps)."""
+    t = np.linspace(0.0, 1.0, 2 * pieces)
+    x = xs[0] + (xs[1] - xs[0]) * t
+    y = ys[0] + (ys[1] - ys[0]) * t
+    y[2::4] = np.nan      # every other pair of points dropped: dashes
+    y[3::4] = np.nan
+    return x, y
+
+
 def render_curves(v: View, mono: bool, width: int, height: int) -> list:
-    """The view's curves as lines of (text, style) runs (marks without colour): band, classes, then all rows on top."""
+    """The view's curves as lines of (text, style) runs (marks without colour): the textbook curve
+    faintly, the band, the classes, then all rows on top; the limit and members_needed dashed."""
     scale = 100.0 if v.is_classes else 1.0
     log = v.log_x
     series = []
 
-    def put(name, colour, mark):
-        xs, ys = v.curves.get(name, ((), ()))
-        if len(xs) == 0:
-            return
+    def add(xs, ys, colour, mark):
         xs = np.asarray(xs, float)
         ys = np.asarray([np.nan if y is None else y for y in ys], float) * scale
-        series.append(Series(np.log10(xs) if log else xs, ys, None if mono else rgb(colour), mark if mono else None))
+        if len(xs):
+            series.append(Series(np.log10(np.maximum(xs, 1e-9)) if log else xs, ys,
+                                 None if mono else rgb(colour), mark if mono else None))
+
+    def put(name, colour, mark):
+        xs, ys = v.curves.get(name, ((), ()))
+        add(xs, ys, colour, mark)
 
     if not v.curves or not len(v.curves.get("error", ((), ()))[0]):
         return [[("no members yet", Style(italic=True))]]
-    put("lo", BAND, MONO_BAND)
-    put("hi", BAND, MONO_BAND)
+    top = x_top(v)
+    fit = v.fit
+    if v.show_raw:
+        put("raw" if "raw" in v.curves else "error", RAW, MONO_RAW)
+    order = []
     if v.is_classes:
         order = [k for k in range(len(v.classes)) if k != v.highlight]
         if v.highlight is not None:
             order.append(v.highlight)          # drawn last: on top
+    if fit is None:
+        # before the first refit the journal's figures are the textbook ones, member by member
+        put("lo", BAND, MONO_BAND)
+        put("hi", BAND, MONO_BAND)
         for k in order:
             dim = v.highlight is not None and k != v.highlight
-            # without colour the highlight stands out by its mark: the other classes draw plain dots
             put(k, DIMMED if dim else class_colour(k), MONO_DIMMED if dim else class_mark(k))
-    put("error", OVERALL, MONO_OVERALL)
-    xs = v.curves["error"][0]
-    lo, hi = xs[0], xs[-1]
-    if log:
-        x_range = (math.log10(max(lo, 1)), math.log10(max(hi, 1)))
-        ticks = log_ticks(lo, hi, width)
+        put("error", OVERALL, MONO_OVERALL)
     else:
-        x_range = (float(lo), float(hi))
-        t = nice_ticks(lo, hi, most=max(2, width // 10))
+        b = np.asarray(fit["b"], float)
+        # the sizes up to the axis' end and one past it, so that the line reaches the edge
+        keep = slice(0, min(b.shape[0], int(np.searchsorted(b, top, side="right")) + 1))
+        bx = b[keep]
+        add(bx, np.asarray(fit["lo"])[keep], BAND, MONO_BAND)
+        add(bx, np.asarray(fit["hi"])[keep], BAND, MONO_BAND)
+        for k in order:
+            if k < len(fit.get("class_error") or []):
+                dim = v.highlight is not None and k != v.highlight
+                add(bx, np.asarray(fit["class_error"][k])[keep], DIMMED if dim else class_colour(k),
+                    MONO_DIMMED if dim else class_mark(k))
+        add(bx, np.asarray(fit["error"])[keep], OVERALL, MONO_OVERALL)
+        lim = v.error_limit
+        if lim is not None:
+            x, y = _dashed(np.array([1.0, top]), np.array([lim, lim]))
+            add(x, y, LIMIT, MONO_LIMIT)
+    # x range first: the members_needed marker spans the y range of what is drawn
+    xs = v.curves["error"][0]
+    lo = xs[0]
+    if log:
+        x_range = (math.log10(max(lo, 1)), math.log10(max(top, 1)))
+        ticks = log_ticks(lo, top, width)
+    else:
+        x_range = (float(lo), float(top))
+        t = nice_ticks(lo, top, most=max(2, width // 10))
         ticks = (t, [f"{x:,}" for x in t])
     if x_range[1] <= x_range[0]:
         x_range = (x_range[0] - 0.5, x_range[0] + 0.5)
+    need = v.members_needed
+    if fit is not None and need and need <= top:
+        ys = [s.ys[np.isfinite(s.ys)] for s in series]
+        ys = [y for y in ys if y.size]
+        if ys:
+            y0, y1 = min(float(y.min()) for y in ys), max(float(y.max()) for y in ys)
+            x, y = _dashed(np.array([need, need], float), np.array([y0, y1]) / scale, pieces=max(3, height))
+            add(x, y, LIMIT, MONO_LIMIT)
     return plot_lines(series, width, height, x_range=x_range, x_ticks=ticks)
 
 
 def curve_key(v: View, mono: bool) -> Text:
-    """One line saying which line is which."""
+    """One line saying which line is which, with the error limit and the members needed."""
     t = Text(no_wrap=True, overflow="ellipsis")
     t.append((MONO_OVERALL if mono else "━") + " all", style="" if mono else rgb(OVERALL))
     t.append("  ")
     t.append((MONO_BAND if mono else "─") + " 95%", style="" if mono else rgb(BAND))
+    if v.show_raw:
+        t.append("  ")
+        t.append((MONO_RAW if mono else "━") + " textbook", style="" if mono else rgb(RAW))
+    if v.fit is not None and v.error_limit is not None:
+        t.append("  ")
+        lim = f"{100 * v.error_limit:.2f}%" if v.is_classes else f"{v.error_limit:.4g}"
+        need = f"{v.members_needed:,}" if v.members_needed else "beyond reach"
+        t.append((MONO_LIMIT if mono else "╌") + f" limit {lim} · needed {need}", style="" if mono else rgb(LIMIT))
     if v.is_classes:
         for k, name in enumerate(v.classes):
             dim = v.highlight is not None and k != v.highlight
@@ -153,7 +227,7 @@ def curve_key(v: View, mono: bool) -> Text:
 
 
 class Caution(TextPanel):
-    """The line under the curve about small ensembles."""
+    """The line under the curve: what the textbook and the estimated curves are."""
 
     DEFAULT_CSS = """
     Caution {
@@ -179,11 +253,12 @@ class CurveKey(Panel):
     """
 
     def show(self, v: View, mono: bool) -> None:
-        self.put((tuple(v.classes), v.highlight, mono, v.task), lambda: curve_key(v, mono), lines=1)
+        self.put((tuple(v.classes), v.highlight, mono, v.task, v.show_raw, v.error_limit, v.members_needed,
+                  v.fit is not None), lambda: curve_key(v, mono), lines=1)
 
 
 class CurvePanel(Column):
-    """Plot, its key and the caution about small ensembles."""
+    """Plot and its key (the caution line sits under the panel)."""
 
     DEFAULT_CSS = """
     CurvePanel {
@@ -200,7 +275,7 @@ class CurvePanel(Column):
         yield CurveKey(id="curve-key")
 
     def on_mount(self) -> None:
-        self.border_title = "OOB error by ensemble size"
+        self.border_title = "Error of the kept ensemble by size"
 
     @property
     def plot_width(self) -> int:
@@ -220,8 +295,8 @@ class CurvePanel(Column):
 
     def show(self, v: View) -> None:
         mono = self.app.no_color
-        what = "OOB error, % of rows" if v.is_classes else "OOB MSE"
-        title = f"{what} by ensemble size"
+        what = "% of rows" if v.is_classes else "MSE"
+        title = f"Error of the kept ensemble by size ({what})"
         if title != self.border_title:      # setting it repaints (the keys' captions: the app, tui/keys.py)
             self.border_title = title
         if self._plot() is None:

@@ -4,6 +4,8 @@ from __future__ import annotations
 OVERALL = (232, 226, 208)          # warm off-white: the all-rows curve
 BAND = (118, 128, 140)             # slate: the 95% band
 DIMMED = (84, 90, 98)              # classes not highlighted while one is
+RAW = (104, 100, 88)               # the textbook OOB curve: faint beside the estimate
+LIMIT = (170, 150, 110)            # the error limit and the members needed: dashed
 BAR_DONE = (112, 162, 212)         # the progress bar: members done
 BAR_LEFT = (58, 64, 72)            # and to go
 CLASSES = [
@@ -20,6 +22,8 @@ CLASSES = [
 # Without colour the lines differ by their marks instead.
 MONO_OVERALL = "@"
 MONO_BAND = "."
+MONO_RAW = ":"
+MONO_LIMIT = "-"
 MONO_CLASSES = "123456789abcdefghijklmnopqrstuvwxyz"
 MONO_DIMMED = None                 # classes not highlighted while one is: braille dots, no mark
 MONO_DIMMED_KEY = "⠒"              # and how the curve's key shows them
