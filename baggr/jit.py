@@ -10,3 +10,16 @@ njit = numba.njit
 def kernel(fn):
     """Compile a kernel with the project's flags."""
     return numba.njit(**KERNEL)(fn)
+
+
+def cached(dispatcher) -> bool:
+    """Whether a kernel has compiled code on disk for its current source (cheap: reads its cache index).
+
+    False when it has never been compiled here, or its source changed since: its first call compiles.
+    """
+    if dispatcher.signatures:          # compiled or loaded in this process already
+        return True
+    try:
+        return bool(dispatcher._cache._cache_file._load_index())
+    except Exception:                  # noqa: BLE001 - numba's cache layout is not a public interface
+        return True                    # unknown: say nothing rather than promise a wait

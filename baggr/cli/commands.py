@@ -12,6 +12,12 @@ from baggr.cli.launch import attach, discard, goes_on, launch, run_mode, say
 from baggr.errors import BaggrError, ConfigError, DataError
 
 
+def text_width() -> int:
+    """Columns to wrap prose to: the terminal's (80 when not a terminal), at most 100, one spare."""
+    import shutil
+    return max(40, min(shutil.get_terminal_size((80, 24)).columns, 100) - 1)
+
+
 def _config(args):
     from baggr.config import Config
     return Config(members=args.members, features_per_split=args.features_per_split, min_leaf=args.min_leaf,
@@ -40,11 +46,13 @@ def _settings(args):
 
 def cmd_train(args) -> int:
     from baggr import runs
+    from baggr.cli.main import table_options
     config, settings = _config(args), _settings(args)
     info = runs.fingerprint(args.data)
     rd = runs.create(args.run_dir or runs.default_run_dir(args.data), force=args.force)
     try:
-        runs.init_config(rd, data=info, target=args.target, config=config, settings=settings)
+        runs.init_config(rd, data=info, target=args.target, config=config, settings=settings,
+                         table=table_options(args))
     except BaggrError:
         discard(rd)
         raise
@@ -91,10 +99,11 @@ def cmd_watch(args) -> int:
 def cmd_stop(args) -> int:
     from baggr.runs import journal
     from baggr.runs import RunDir, RunDirError
+    from baggr.runs import status_words
     rd = RunDir(args.dir).require()
     st, status = rd.state()
     if status != "running":
-        raise RunDirError(f"no job is running in {rd.path} (it is {status})")
+        raise RunDirError(f"no job is running in {rd.path}: {status_words(status, st.members)}")
     journal.request_stop(rd.path)
     say(f"asked the job (pid {st.pid}) to stop after the member in hand")
     if args.wait:
@@ -111,28 +120,34 @@ def cmd_report(args) -> int:
     if args.json:
         say(json.dumps(report.figures(r), allow_nan=False))
         return 0
-    from rich.console import Console
-    report.render(r, Console())
+    print_report(r)
     return 0
+
+
+def print_report(r) -> None:
+    """The report on stdout, each line without the spaces that tables pad it with on the right."""
+    import re
+
+    from rich.console import Console
+
+    from baggr.cli import report
+    console = Console()
+    with console.capture() as cap:
+        report.render(r, console)
+    text = cap.get()
+    # a line may end in spaces followed by the codes that end its styles
+    say("\n".join(re.sub(r" +((?:\x1b\[[0-9;]*m)*)$", r"\1", line) for line in text.split("\n")).rstrip("\n"))
 
 
 OUT_KINDS = {".csv": "csv", ".tsv": "tsv", ".parquet": "parquet", ".pq": "parquet"}
 
 
 def cmd_predict(args) -> int:
+    from baggr.cli.main import _joined
     from baggr.data.batches import Batches
     from baggr.model import ensemble as model
-    from baggr.errors import ModelFileError
-    from baggr.runs import MODEL, RunDir, RunDirError
-    src = Path(args.model)
-    path = src / MODEL if src.is_dir() else src
-    if src.is_dir() and not path.exists():
-        rd = RunDir(src).require()
-        st, status = rd.state()
-        raise RunDirError(f"{src} has no model yet (the run is {status} at {st.members} members): "
-                          "wait for it to finish, or stop it (baggr stop DIR) to save one")
-    if not path.exists():
-        raise ModelFileError(f"model file not found: {path}")
+    from baggr.runs import model_path
+    path = model_path(args.model)
     out = Path(args.out)
     kind = OUT_KINDS.get(out.suffix.lower())
     if kind is None:
@@ -143,8 +158,18 @@ def cmd_predict(args) -> int:
         raise BaggrError(f"cannot write {out}: folder {out.parent} does not exist")
     ens = model.load(path)
     if ens.forest is None or ens.forest.members == 0:
-        raise BaggrError("this model was trained estimate-only (keep_members=False): it has no trees to score new rows")
-    n = _predict_stream(ens, Batches(args.data, ens.schema.names, ens.schema.kinds, rows=BATCH_ROWS), out, kind)
+        raise BaggrError(f"{path} was trained with --estimate-only: it has no trees to score new rows")
+    keep = _joined(args.keep)
+    made = ["prediction"] + ([f"share_{c}" for c in ens.classes] if ens.task == "classes" else [])
+    clash = [k for k in keep if k in made]
+    if clash:
+        raise BaggrError(f"--keep {clash[0]}: the output has its own column {clash[0]!r}")
+    batches = Batches(args.data, ens.schema.names, ens.schema.kinds, rows=BATCH_ROWS, dates=ens.schema.dates,
+                      keep=keep, delimiter=args.delimiter)
+    unseen: dict = {}
+    n = _predict_stream(ens, batches, out, kind, keep, unseen)
+    if unseen:
+        sys.stderr.write(unseen_line(unseen) + "\n")
     say(f"wrote {n} predictions to {out}")
     return 0
 
@@ -152,14 +177,28 @@ def cmd_predict(args) -> int:
 BATCH_ROWS = 1 << 17   # rows scored at a time: a table larger than memory streams through
 
 
-def _predict_stream(ens, batches, out: Path, kind: str) -> int:
+def unseen_line(unseen: dict) -> str:
+    """One warning line: how many values were categories the model never saw, and per column."""
+    total = sum(k for k, _ in unseen.values())
+    per = ", ".join(f"{name} {k}" for name, (k, _) in sorted(unseen.items(), key=lambda kv: -kv[1][0])[:5])
+    more = ", ..." if len(unseen) > 5 else ""
+    pooled = [name for name, (_, p) in unseen.items() if p]
+    how = "scored as missing" if not pooled else \
+        "scored as missing (as '(other)' in " + ", ".join(pooled) + ", which pooled rare categories)"
+    what = "1 value was a category" if total == 1 else f"{total} values were categories"
+    return f"warning: {what} the model never saw ({per}{more}); {how}"
+
+
+def _predict_stream(ens, batches, out: Path, kind: str, keep=(), unseen=None) -> int:
     """Score batch after batch into a temp file beside out, renamed at the end (a failed run never
-    leaves half a file under the asked name); a progress bar on a terminal. Returns the rows written."""
+    leaves half a file under the asked name); a progress bar on a terminal. Returns the rows written.
+    keep: columns of the table copied first; unseen: a dict that adds up unseen_levels per batch."""
     import tempfile
 
     import numpy as np
     import pyarrow as pa
 
+    from baggr.data import unseen_levels
     classes = pa.array(list(ens.classes)) if ens.task == "classes" else None
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=out.suffix, dir=out.parent.resolve())
     os.close(fd)
@@ -167,7 +206,10 @@ def _predict_stream(ens, batches, out: Path, kind: str) -> int:
     bar = _Bar(batches) if sys.stderr.isatty() else None
     try:
         for X in batches:
-            cols = {}
+            cols = {k: X.column(k) for k in keep}
+            if unseen is not None:
+                for name, (k, pooled) in unseen_levels(X, ens.schema).items():
+                    unseen[name] = (unseen.get(name, (0, pooled))[0] + k, pooled)
             if classes is not None:
                 shares = ens.vote_shares(X)
                 cols["prediction"] = classes.take(pa.array(np.argmax(shares, axis=1)))
@@ -240,7 +282,7 @@ def cmd_demo(args) -> int:
     rd = runs.create(args.run_dir or runs.default_run_dir("demo"), force=args.force)
     mode = run_mode(args)
     try:
-        say("\n".join(textwrap.wrap(scenario.DESCRIPTION, 88)))
+        say("\n".join(textwrap.wrap(scenario.DESCRIPTION, text_width())))
         say()
         say(str(rd.path))
         path = scenario.write(rd / "demo-data.csv", rows=args.rows, seed=args.data_seed)
@@ -252,10 +294,9 @@ def cmd_demo(args) -> int:
     code = launch(rd, mode, fresh=True)
     st, status = rd.state()
     if code == 0 and status in ("finished", "stopped"):
-        from rich.console import Console
         say()
-        report.render(report.load(rd.path), Console())
+        print_report(report.load(rd.path))
         say()
-        say(f"next: baggr report {rd.path} --json   |   "
-             f"baggr predict {rd.path} {rd / 'demo-data.csv'} --out scored.csv")
+        say(f"next: baggr report {rd.path} --json")
+        say(f"      baggr predict {rd.path} {rd / 'demo-data.csv'} --out scored.csv")
     return code

@@ -46,11 +46,19 @@ class Announced:
     def __init__(self, inner, line: str):
         self.inner, self.line = inner, line
 
-    def begin(self, start: dict) -> None:
+    def _announce(self) -> None:
         if self.line is not None:
             say(self.line)
             self.line = None
+
+    def begin(self, start: dict) -> None:
+        self._announce()
         self.inner.begin(start)
+
+    def note(self, text: str) -> None:
+        """A note before the start (the data was read: the run will start) comes after the line."""
+        self._announce()
+        self.inner.note(text)
 
     def __getattr__(self, name):
         return getattr(self.inner, name)
@@ -88,9 +96,22 @@ def detached(rd, *, fresh: bool, announce: str | None = None) -> int:
     proc = runs.spawn(rd)
     from rich.console import Console
     console = Console()
+    said = []
+
+    def on_event(ev):
+        """The job's lines before its start: the compile note and warnings, printed as they come."""
+        if ev.get("event") in ("compiling", "warning") and ev.get("message"):
+            if announce is not None and not said:
+                console.print(announce, markup=False, highlight=False)
+            said.append(ev)
+            prefix = "warning: " if ev["event"] == "warning" else ""
+            console.print(prefix + str(ev["message"]), markup=False, highlight=False)
+            if ev["event"] == "compiling":
+                status.update(f"{ev['message']} (job pid {proc.pid}) ...")
+
     try:
-        with console.status(f"reading the data (job pid {proc.pid}) ..."):
-            code = runs.wait_started(rd, proc, st.starts)
+        with console.status(f"reading the data (job pid {proc.pid}) ...") as status:
+            code = runs.wait_started(rd, proc, st.starts, on_event=on_event)
     except KeyboardInterrupt:
         say(f"left the job starting in the background (pid {proc.pid}); reattach with: baggr watch {rd.path}")
         return 0
@@ -100,7 +121,7 @@ def detached(rd, *, fresh: bool, announce: str | None = None) -> int:
         if fresh and code == 2:
             discard(rd)
         return code if code else 2
-    if announce is not None:
+    if announce is not None and not said:
         say(announce)
     attach(rd)
     return after_watching(rd)

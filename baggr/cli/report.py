@@ -10,9 +10,10 @@ import numpy as np
 
 from baggr import data as _data
 from baggr import units
+from baggr.cli.settings_text import setting_rows, settings_json
 from baggr.config import Config
 from baggr.errors import ModelFileError
-from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, read_checkpoint
+from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, read_checkpoint, status_words
 
 EXPECTED_LEFT_OUT = math.exp(-1.0)   # share of members that leave a row out under a bootstrap draw (1 - 1/n)^n
 
@@ -36,6 +37,8 @@ class RunReport:
     # (latest_figures), shown as the headline, and which checkpoint the rest comes from.
     latest: dict | None = None
     checkpoint: dict | None = None            # {"member": next member of the checkpoint, "t": when it was written}
+    missing_target: int | None = None         # rows left out for a missing target (None: not recorded)
+    threads: int | None = None                # the job's threads (from its journal)
 
     @property
     def task(self) -> str:
@@ -49,7 +52,7 @@ def load(path) -> RunReport:
     if p.is_file():
         ens = load_model(p)
         return RunReport(p, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"),
-                         members_target=ens.config.members)
+                         members_target=ens.config.members, missing_target=_count(ens.stats.get("missing_target")))
     rd = RunDir(p).require()
     run = rd.read_config()
     for _ in range(3):     # a job finishing meanwhile removes its checkpoint after writing the model: look again
@@ -60,11 +63,12 @@ def load(path) -> RunReport:
             break
     ck_m = int(ck[0].get("next_member", 0)) if ck else None
     common = dict(status=status, reason=st.reason, members_target=st.members_target or run["config"].get("members"),
-                  journal_members=st.members, run=run)
+                  journal_members=st.members, run=run, threads=st.threads if isinstance(st.threads, int) else None,
+                  missing_target=_count((run.get("data") or {}).get("missing_target")))
     if ens is not None and (ck_m is None or ens.members >= ck_m):
         return RunReport(rd.path, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"), **common)
     if ck is None:
-        raise RunDirError(f"{rd.path} has no figures yet ({status}; the journal shows {st.members} members and no "
+        raise RunDirError(f"{rd.path} has no figures yet ({status_words(status)}; the journal shows {st.members} members and no "
                           f"checkpoint has been written): watch it with: baggr watch {rd.path}")
     header, arrays = ck
     common["checkpoint"] = {"member": ck_m, "t": _f(header.get("t"))}
@@ -86,6 +90,10 @@ def latest_figures(st) -> dict:
         d["class_covered"] = [f["covered"] for f in figs]
         d["confusion"] = st.confusion
     return d
+
+
+def _count(v) -> int | None:
+    return int(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and v >= 0 else None
 
 
 def _from_checkpoint(path, header, arrays, common) -> RunReport:
@@ -181,7 +189,9 @@ def figures(r: RunReport) -> dict:
          "uncovered": oob.uncovered, "judged_per_row": _f(np.mean(oob.left_out)) if oob.left_out.shape[0] else None,
          "curve": [_f(v) for v in curve], "curve_interval": [[_f(a), _f(b)] for a, b in oob.curve_interval],
          "settled_at": settled_at(curve, *iv) if iv is not None else None,
-         "config": r.config.to_dict(), "target": r.run.get("target") or r.schema.target,
+         "config": settings_json(r.config, r.schema.n_features, r.task, r.threads),
+         "missing_target": r.missing_target, "table": r.run.get("table"), "dates": r.schema.dates,
+         "target": r.run.get("target") or r.schema.target,
          "data": r.run.get("data"), "version": r.run.get("version"), "created": r.run.get("created"),
          "cautions": cautions(r), "checkpoint": r.checkpoint, "latest": r.latest}
     if r.task == "classes":
@@ -210,18 +220,20 @@ def _interval(task, iv) -> str:
     return units.value_span(iv) if task == "regression" else units.percent_span(iv, 2)
 
 
-def _settings_text(key, value, r: RunReport) -> str:
-    """A setting as the report shows it: what None chose, in words."""
-    if value is not None:
-        return str(value)
-    task = r.task
-    auto = {"features_per_split": "sqrt" if task == "classes" else "1/3 of the features",
-            "depth_limit": "none", "criterion": "gini" if task == "classes" else "variance",
-            "task": f"{task} (from the target)", "threads": "all cores"}
-    return auto.get(key, "auto")
+def columns_text(d: dict) -> str:
+    """Which columns the run left out or kept, and its date columns, in one line ('' when none)."""
+    parts = []
+    table = d.get("table") or {}
+    if table.get("only"):
+        parts.append("only " + ", ".join(table["only"]))
+    if table.get("drop"):
+        parts.append("left out " + ", ".join(table["drop"]))
+    for x in d.get("dates") or []:
+        parts.append(f"{x['column']} as dates ({', '.join(p.replace('_', ' ') for p in x['parts'])})")
+    return "; ".join(parts)
 
 
 def render(r: RunReport, console) -> None:
     """Print the report (baggr/cli/report_text.py: the look; plain text, no markup from the data)."""
     from baggr.cli.report_text import render_text
-    render_text(r, figures(r), console, settings_text=lambda k, v: _settings_text(k, v, r))
+    render_text(r, figures(r), console, settings=setting_rows(r.config, r.schema.n_features, r.task, r.threads))

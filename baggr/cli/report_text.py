@@ -82,8 +82,9 @@ def clock(t) -> str:
     return "-" if t is None else datetime.fromtimestamp(t).strftime("%Y-%m-%d %H:%M:%S")
 
 
-def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
-    """Print the report of `r` from its figures `d` (baggr.cli.report.figures)."""
+def render_text(r, d: dict, console, settings=None) -> None:
+    """Print the report of `r` from its figures `d` (baggr.cli.report.figures); settings: (label, text)
+    pairs in the command's words (baggr.cli.settings_text), else the config's keys and values."""
     out = Lines(console)
     task = d["task"]
     what = "OOB error" if task == "classes" else "OOB MSE"
@@ -104,8 +105,13 @@ def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
                  if data.get("rows") else "")
         size = units.count(data.get("bytes")) if isinstance(data.get("bytes"), int) else data.get("bytes")
         rows += [("Data", f"{data.get('path')} ({size} bytes{shape})"), ("SHA-256", str(data.get("sha256")))]
+    from baggr.cli.report import columns_text
+    columns = columns_text(d)
+    if columns:
+        rows.append(("Columns", columns))
     kind = f"{len(d['classes'])} classes" if task == "classes" else "regression"
-    rows.append(("Target", f"{d['target'] or '-'} ({kind})"))
+    missing = f"; {units.count(d['missing_target'])} rows without it left out" if d.get("missing_target") else ""
+    rows.append(("Target", f"{d['target'] or '-'} ({kind}){missing}"))
     target = f" of {units.count(d['members_target'])}" if d["members_target"] else ""
     if latest:
         rows.append(("Members", f"{units.count(latest['members'])}{target} so far, "
@@ -143,7 +149,7 @@ def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
     _curve(out, d, task, what, "(checkpoint)" if latest else "")
 
     out.rule("Settings")
-    out.pairs([(k, settings_text(k, v)) for k, v in d["config"].items()])
+    out.pairs(settings or [(k, str(v)) for k, v in d["config"].items()])
 
     out.rule("Read with care")
     for c in d["cautions"]:

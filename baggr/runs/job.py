@@ -21,7 +21,10 @@ from baggr.errors import BaggrError, ModelFileError
 from baggr.runs.checkpoint import FAULT_KILL, Checkpointer, fault_kill, remove_checkpoint
 from baggr.runs.files import CHECKPOINT, JOURNAL, MODEL, STOP, DiskFullError, write_error
 from baggr.runs.journal_writer import JournalWriter
-from baggr.runs.rundir import RunDir, RunSettings, check_data
+from baggr.runs.rundir import RunDir, RunSettings, check_data, table_options
+
+# Seconds a first run spends compiling the kernels, measured on a 2-core VM (bench/README.md).
+COMPILE_SECONDS = 30
 
 
 def stable_now(curve: np.ndarray, interval: np.ndarray, m: int, settings: RunSettings) -> str | None:
@@ -158,12 +161,28 @@ class Job:
         except FileNotFoundError:
             pass
         from baggr.data.table import read_table      # not .data: a bad file is told before numba is even imported
-        X, y = read_table(info["path"], cfg["target"])
-        from baggr.engine import Training
-        tr = self.training = Training(X, y, config, target=cfg["target"])
-        if cfg["data"].get("rows") is None:
-            cfg["data"].update(rows=int(tr.prep.n_rows), features=int(tr.prep.codes.shape[0]))
+        table = table_options(cfg)
+        X, y = read_table(info["path"], cfg["target"], drop=table["drop"], only=table["only"],
+                          delimiter=table["delimiter"])
+        from baggr.engine import Training, compiled_before, missing_target_text
+        guess = config.task or ("regression" if str(y.type).startswith(("float", "double", "decimal")) else "classes")
+        if not compiled_before(guess):
+            self._compiling()
+        tr = self.training = Training(X, y, config, target=cfg["target"], missing_target=table["missing_target"])
+        first = cfg["data"].get("rows") is None
+        missing = tr.prep.missing_target
+        if missing:
+            text = missing_target_text(missing, tr.prep.n_rows, cfg["target"])
+            self._note(f"warning: {text}")
+            if first:   # once in the journal, not again at every resume
+                self.journal.write("warning", message=text)
+        if first:
+            s = tr.prep.schema
+            cfg["data"].update(rows=int(tr.prep.n_rows), features=int(tr.prep.codes.shape[0]),
+                               missing_target=int(missing), dates=s.dates)
+            cfg["resolved"] = config.resolved(s.n_features, s.task)
             rd.write_config(cfg)
+        tr.warm_up()   # compiling (a first run) or loading the kernels: out of the training figures
         extra = {"sha256": info.get("sha256"), "config": config.to_dict(), "schema": tr.prep.schema.to_json(),
                  "target": cfg["target"]}
         self.checkpointer = ck = Checkpointer(rd, tr, settings, extra, self.journal)
@@ -205,6 +224,12 @@ class Job:
             return self._finished(tr)
         return self._stopped(tr, write_checkpoint=True)
 
+    def _compiling(self) -> None:
+        """Say, before the kernels compile on a first run, that it happens once and about how long it takes."""
+        text = f"preparing compiled code, once: about {COMPILE_SECONDS} s"
+        self.journal.write("compiling", message=text, seconds=COMPILE_SECONDS)
+        self._note(text)
+
     def _start(self, tr, cfg: dict, resumed: bool) -> None:
         import psutil
         p = tr.prep
@@ -214,7 +239,8 @@ class Job:
                   "class_rows": [int(v) for v in tr.tally.class_rows] if p.task == "classes" else [],
                   "rows": int(p.n_rows), "features": int(p.codes.shape[0]), "members_target": tr.config.members,
                   "first_member": tr.next_member, "config": tr.config.to_dict(), "version": __version__,
-                  "target": cfg.get("target"), "data": cfg["data"].get("path")}
+                  "target": cfg.get("target"), "data": cfg["data"].get("path"),
+                  "resolved": tr.config.resolved(p.schema.n_features, p.task), "missing_target": p.missing_target}
         if resumed:
             fields["resumed"] = True
         self.journal.write("start", **fields)
