@@ -121,8 +121,9 @@ class Training:
         or loading them (once per process) then stays out of the training figures (elapsed and
         members/s). Once per process and kind of run; returns its seconds (0 when done before)."""
         p, cfg = self.prep, self.config
+        y = p.y_class if p.task == "classes" else p.y_value
         key = (p.task, cfg.vote, cfg.resolved_criterion(p.task), cfg.draw, cfg.keep_members,
-               bool(np.any(p.binning.is_cat)), min(p.n_classes, 3))
+               bool(np.any(p.binning.is_cat)), min(p.n_classes, 3), p.codes.flags.writeable, y.flags.writeable)
         if key in _WARM:
             return 0.0
         _WARM.add(key)
@@ -133,9 +134,10 @@ class Training:
                                             [np.flatnonzero(p.y_class == c)[:4] for c in range(p.n_classes)]))
         else:
             rows = np.arange(min(n, 48))
-        small = Prepared(p.schema, p.binning, np.ascontiguousarray(p.codes[:, rows]),
-                         p.y_class[rows] if p.task == "classes" else p.y_class,
-                         p.y_value[rows] if p.task == "regression" else p.y_value, p.task)
+        # the same dtypes, layouts and read-only flags as the table's own arrays: the same compiled code
+        small = Prepared(p.schema, p.binning, _alike(p.codes[:, rows], p.codes),
+                         _alike(p.y_class[rows], p.y_class) if p.task == "classes" else p.y_class,
+                         _alike(p.y_value[rows], p.y_value) if p.task == "regression" else p.y_value, p.task)
         Training(None, None, cfg.replace(members=2, threads=1), prepared=small).run(backend=Threads(1))
         seconds = time.perf_counter() - t0
         self.warm_up_seconds += seconds
@@ -217,18 +219,41 @@ class Training:
 _WARM: set = set()   # kinds of run warmed up in this process (Training.warm_up)
 
 
-def compiled_before(task: str | None) -> bool:
-    """Whether the kernels a training of this task runs are compiled on disk (a cheap look at numba's
-    cache index): False on a first run, or after the kernels' source changed."""
+def _alike(part: np.ndarray, whole: np.ndarray) -> np.ndarray:
+    """A C-contiguous copy of part, read-only when whole is (numba compiles each flag apart)."""
+    out = np.ascontiguousarray(part)
+    if not whole.flags.writeable:
+        out.flags.writeable = False
+    return out
+
+
+# CPU seconds a first run spends compiling the kernels, on one core of the project's 2-core VM
+# (bench/first_run.py, bench/README.md): all of them, or one task's share when the other task's are on disk.
+COMPILE_ALL = 15.0
+COMPILE_TASK = 9.0
+
+
+def compile_seconds(task: str | None) -> float:
+    """About how long the kernels a training of this task runs take to compile here: 0 when numba's
+    cache holds them (a cheap look at its index), else the measured CPU time stretched by the load
+    (a busy machine lends the compiler only part of a core)."""
     from baggr import jit
-    from baggr.data.binning_kernels import bin_numeric
     from baggr.learn.tree_kernels import grow_kernel
     from baggr.oob import tally_kernels as tk
-    if not (jit.cached(bin_numeric) and jit.cached(grow_kernel)):
-        return False
-    if task == "regression":
-        return jit.cached(tk.fold_regression)
-    return jit.cached(tk.fold_two_hard) or jit.cached(tk.fold_classes)
+    if not jit.cached(grow_kernel):
+        cpu = COMPILE_ALL
+    elif task == "regression":
+        cpu = 0.0 if jit.cached(tk.fold_regression) else COMPILE_TASK
+    else:
+        cpu = 0.0 if jit.cached(tk.fold_two_hard) or jit.cached(tk.fold_classes) else COMPILE_TASK
+    if cpu:
+        import os
+        try:
+            busy = os.getloadavg()[0] / (os.cpu_count() or 1)
+        except OSError:
+            busy = 1.0
+        cpu *= min(4.0, max(1.0, busy))
+    return cpu
 
 
 def train(X, y, config: Config | None = None, on_member=None, *, drop=None, only=None,

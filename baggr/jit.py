@@ -7,9 +7,14 @@ KERNEL = dict(cache=True, nogil=True, boundscheck=False, error_model="numpy")
 njit = numba.njit
 
 
+KERNELS: list = []   # every kernel made by `kernel`, in the order their modules were imported
+
+
 def kernel(fn):
     """Compile a kernel with the project's flags."""
-    return numba.njit(**KERNEL)(fn)
+    d = numba.njit(**KERNEL)(fn)
+    KERNELS.append(d)
+    return d
 
 
 def cached(dispatcher) -> bool:

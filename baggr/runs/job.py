@@ -23,8 +23,6 @@ from baggr.runs.files import CHECKPOINT, JOURNAL, MODEL, STOP, DiskFullError, wr
 from baggr.runs.journal_writer import JournalWriter
 from baggr.runs.rundir import RunDir, RunSettings, check_data, table_options
 
-# Seconds a first run spends compiling the kernels, measured on a 2-core VM (bench/README.md).
-COMPILE_SECONDS = 30
 
 
 def stable_now(curve: np.ndarray, interval: np.ndarray, m: int, settings: RunSettings) -> str | None:
@@ -164,11 +162,11 @@ class Job:
         table = table_options(cfg)
         X, y = read_table(info["path"], cfg["target"], drop=table["drop"], only=table["only"],
                           delimiter=table["delimiter"])
-        from baggr.engine import Training, compiled_before, missing_target_text
-        guess = config.task or ("regression" if str(y.type).startswith(("float", "double", "decimal")) else "classes")
-        if not compiled_before(guess):
-            self._compiling()
+        from baggr.engine import Training, compile_seconds, missing_target_text
         tr = self.training = Training(X, y, config, target=cfg["target"], missing_target=table["missing_target"])
+        seconds = compile_seconds(tr.prep.task)   # the data is good: the run will start
+        if seconds:
+            self._compiling(seconds)
         first = cfg["data"].get("rows") is None
         missing = tr.prep.missing_target
         if missing:
@@ -224,10 +222,10 @@ class Job:
             return self._finished(tr)
         return self._stopped(tr, write_checkpoint=True)
 
-    def _compiling(self) -> None:
+    def _compiling(self, seconds: float) -> None:
         """Say, before the kernels compile on a first run, that it happens once and about how long it takes."""
-        text = f"preparing compiled code, once: about {COMPILE_SECONDS} s"
-        self.journal.write("compiling", message=text, seconds=COMPILE_SECONDS)
+        text = f"preparing compiled code, once: about {compile_words(seconds)}"
+        self.journal.write("compiling", message=text, seconds=round(seconds, 1))
         self._note(text)
 
     def _start(self, tr, cfg: dict, resumed: bool) -> None:
@@ -325,6 +323,12 @@ def _terminate_torn_line(path: Path) -> None:
                 f.write(b"\n")
     except FileNotFoundError:
         pass
+
+
+def compile_words(seconds: float) -> str:
+    """'15 s', '1 min 30 s': an estimate, rounded to 5 s."""
+    s = max(5, int(round(seconds / 5.0)) * 5)
+    return f"{s} s" if s < 60 else f"{s // 60} min" + (f" {s % 60} s" if s % 60 else "")
 
 
 def fmt_seconds(s: float) -> str:
