@@ -340,7 +340,8 @@ def test_delimiter_gives_the_way_out_of_a_semicolon_csv(tmp_path):
     assert baggr.load(tmp_path / "r").schema.names == ["a", "b"]
     tab = tmp_path / "tab.csv"
     tab.write_text(semi.read_text().replace(";", "\t"))
-    ok(baggr_cmd("resume", tmp_path / "r"))      # a finished run: the delimiter is kept in its config.json
+    # kept in config.json: a resumed job reads the table the same way
+    assert json.loads((tmp_path / "r" / "config.json").read_text())["table"]["delimiter"] == ";"
     ok(baggr_cmd("train", tab, "--target", "label", "--delimiter", "tab", "--members", 5, "--run-dir", tmp_path / "t"))
     one_error(baggr_cmd("train", tab, "--target", "label", "--delimiter", "ab"), "expected one character")
 
