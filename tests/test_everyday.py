@@ -211,6 +211,23 @@ def test_the_report_and_errors_use_the_commands_words(d, trained):
     assert "keep_members" not in r.stderr
 
 
+def test_the_dashboards_settings_use_the_commands_words_and_the_resolved_values(trained):
+    """The settings panel reads the start line's config and resolved values (no Python names or values)."""
+    from baggr.runs.journal import read_state
+    from tui.view import make_view
+    from tui.widgets.settings import settings_rows
+    _, rd, _ = trained
+    st = read_state(rd)
+    view = make_view(st, run_name="run", status="finished", now=0.0, width=40, log_x=False, highlight=None,
+                     stop_requested=False, malformed=0, curves=False)
+    rows = dict(settings_rows(view))
+    assert rows["features/split"] == "2 of 6 (sqrt)" and rows["trees kept"] == "yes"
+    assert rows["depth limit"] == "none" and rows["threads"] == f"all cores ({st.threads})"
+    flat = " ".join(f"{k} {v}" for k, v in rows.items())
+    for leak in ("keep_members", "features_per_split", "None", "True", "auto"):
+        assert leak not in flat, leak
+
+
 # ---------------------------------------------------------------- 13. the first run
 
 def test_a_cold_cache_is_told_before_compiling_and_kept_out_of_the_figures(d, trained, monkeypatch):

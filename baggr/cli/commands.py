@@ -120,23 +120,9 @@ def cmd_report(args) -> int:
     if args.json:
         say(json.dumps(report.figures(r), allow_nan=False))
         return 0
-    print_report(r)
-    return 0
-
-
-def print_report(r) -> None:
-    """The report on stdout, each line without the spaces that tables pad it with on the right."""
-    import re
-
     from rich.console import Console
-
-    from baggr.cli import report
-    console = Console()
-    with console.capture() as cap:
-        report.render(r, console)
-    text = cap.get()
-    # a line may end in spaces followed by the codes that end its styles
-    say("\n".join(re.sub(r" +((?:\x1b\[[0-9;]*m)*)$", r"\1", line) for line in text.split("\n")).rstrip("\n"))
+    report.render(r, Console())
+    return 0
 
 
 OUT_KINDS = {".csv": "csv", ".tsv": "tsv", ".parquet": "parquet", ".pq": "parquet"}
@@ -294,8 +280,9 @@ def cmd_demo(args) -> int:
     code = launch(rd, mode, fresh=True)
     st, status = rd.state()
     if code == 0 and status in ("finished", "stopped"):
+        from rich.console import Console
         say()
-        print_report(report.load(rd.path))
+        report.render(report.load(rd.path), Console())
         say()
         say(f"next: baggr report {rd.path} --json")
         say(f"      baggr predict {rd.path} {rd / 'demo-data.csv'} --out scored.csv")
