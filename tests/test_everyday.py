@@ -180,6 +180,31 @@ def test_unseen_categories_score_as_missing_with_one_warning_and_keep_copies_col
     one_error(baggr_cmd("predict", rd, new, "--out", d / "k.csv", "--keep", "nope"), "has no column 'nope'")
 
 
+def test_predict_streams_dates_kept_columns_and_unseen_counts_batch_by_batch(d, trained, tmp_path):
+    """Scoring in batches of a few rows gives what scoring the whole table does (its own Python API)."""
+    from baggr.cli.commands import _predict_stream
+    from baggr.data.batches import Batches
+    _, rd, _ = trained
+    ens = baggr.load(rd)
+    cols = {k: v for k, v in visits(90, 11).items() if k != "label"}
+    cols["site"] = [s if i % 7 else "west" for i, s in enumerate(cols["site"])]      # 13 unseen values
+    for path in (write(tmp_path / "s.csv", cols), tmp_path / "s.parquet"):
+        if path.suffix == ".parquet":
+            import pyarrow.parquet as pq
+            t = pa.table(dict(cols, day=pa.array(np.array(cols["day"], dtype="datetime64[D]"))))
+            pq.write_table(t, path, row_group_size=20)
+        batches = Batches(path, ens.schema.names, ens.schema.kinds, rows=8, block_bytes=512, dates=ens.schema.dates,
+                          keep=["id", "day"])
+        unseen = {}
+        assert _predict_stream(ens, batches, tmp_path / "o.csv", "csv", ["id", "day"], unseen) == 90
+        out = pacsv.read_csv(tmp_path / "o.csv", convert_options=pacsv.ConvertOptions(
+            column_types={"day": pa.string()}))
+        assert out.column("id").to_pylist() == cols["id"] and out.column("day").to_pylist() == cols["day"]
+        whole = pa.table(cols)
+        assert out.column("prediction").to_pylist() == list(ens.predict(whole))
+        assert unseen == {"site": (13, False)}
+
+
 # ---------------------------------------------------------------- 12. the command's own words
 
 def test_the_report_and_errors_use_the_commands_words(d, trained):
