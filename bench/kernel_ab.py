@@ -45,7 +45,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 
 from generators import friedman1, twonorm, waveform  # noqa: E402
 from baggr.config import Config  # noqa: E402
-from baggr.engine import prepare  # noqa: E402
+from baggr.data.prepared import prepare  # noqa: E402
 from baggr.learn.draw import Drawer  # noqa: E402
 from baggr.learn.rng import STREAM_TREE, stream_state  # noqa: E402
 from baggr.learn.tree import Learner  # noqa: E402

@@ -8,7 +8,7 @@ machine code is at hand), writes /tmp/perf-PID.map naming each compiled function
 (perf's format for code generated at run time) and waits; `perf record` then attaches to it for
 the trees alone. Prints each function's share of the samples that fell in compiled code and in the
 runtime helpers it calls (reference counts, memset, memmove); the rest (Python, numpy) below that.
-Helpers inlined into grow_kernel count as grow_kernel.
+Helpers inlined into grow_nodes count as grow_nodes.
 """
 import gc
 import os
