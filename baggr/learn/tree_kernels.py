@@ -119,6 +119,45 @@ def load_rows(weights, n, y_class, y_value, regression, shift, idx, lw, yv, oob_
         orow[o] = oob_rows[o]
 
 
+@inline
+def fit_work(work, n, d, n_keep, n_out, C, regression):
+    """The caller's working arrays, each replaced by a fresh one where too small for this tree (the
+    caller's pool sizes them for its table)."""
+    idx, lw, yv, ws, ni, nf, stk, stkc = work
+    if idx.shape[1] < n:
+        idx = np.empty((2, n), np.int32)
+    if lw.shape[1] < n:
+        lw = np.empty((2, n), np.int32)
+    if regression and yv.shape[1] < d:
+        yv = np.empty((2, d), np.float64)
+    if regression and ws.shape[0] < d:
+        ws = np.empty(d, np.float64)
+    if ni.shape[0] < n_keep:
+        ni = np.empty((n_keep, 8), np.int32)
+    if nf.shape[0] < n_keep or nf.shape[1] < n_out + 1:
+        nf = np.empty((n_keep, n_out + 1), np.float64)
+    if stk.shape[0] < d + 1:
+        stk = np.empty((d + 1, 6), np.int32)
+    if stkc.shape[0] < d + 1 or stkc.shape[1] < C:
+        stkc = np.empty((d + 1, C), np.float64)
+    return idx, lw, yv, ws, ni, nf, stk, stkc
+
+
+@inline
+def node_scratch(p, C, n_out, regression, nbatch):
+    """The working arrays of the split search and of the node under work, for one tree."""
+    sx = Search(np.zeros((nbatch if not regression else 1, 256 * C), np.int32),
+                np.zeros((nbatch if regression else 1, 256), np.int32),
+                np.zeros((nbatch if regression else 1, 256), np.float64),
+                np.zeros((nbatch, 4), np.uint64), np.zeros(nbatch, np.int64), np.zeros(256, np.int32),
+                np.zeros(C, np.float64), np.zeros(C, np.float64), np.zeros(C, np.float64), np.zeros(C, np.float64),
+                np.zeros(256, np.float64), np.empty((5, 256), np.float64), np.zeros(256, np.int32),
+                np.arange(p).astype(np.int32))
+    nd = Node(np.zeros(C, np.float64), np.zeros(n_out, np.float64), np.zeros(C, np.float64),
+              np.zeros(4, np.uint64), np.zeros(256, np.uint8))
+    return sx, nd
+
+
 # ---- a node: the stack, its statistics and record ---------------------------------------------------
 
 @inline
@@ -553,7 +592,6 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, rng_state, reg
     (ascending), oob_int, oob_val, status (OK, NO_ROWS, TOO_HEAVY: a draw count too large to
     pack with the class).
     """
-    idx, lw, yv, ws, ni, nf, stk, stkc = work
     p = codes.shape[0]
     n = codes.shape[1]
     n_out = 1 if regression else n_classes
@@ -580,23 +618,7 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, rng_state, reg
         if is_cat[f]:
             any_cat = True
     n_keep = max_nodes if keep else 1
-    # scratch too small for this call: replaced (the caller's pool sizes it for its table)
-    if idx.shape[1] < n:
-        idx = np.empty((2, n), np.int32)
-    if lw.shape[1] < n:
-        lw = np.empty((2, n), np.int32)
-    if regression and yv.shape[1] < d:
-        yv = np.empty((2, d), np.float64)
-    if regression and ws.shape[0] < d:
-        ws = np.empty(d, np.float64)
-    if ni.shape[0] < n_keep:
-        ni = np.empty((n_keep, 8), np.int32)
-    if nf.shape[0] < n_keep or nf.shape[1] < n_out + 1:
-        nf = np.empty((n_keep, n_out + 1), np.float64)
-    if stk.shape[0] < d + 1:
-        stk = np.empty((d + 1, 6), np.int32)
-    if stkc.shape[0] < d + 1 or stkc.shape[1] < C:
-        stkc = np.empty((d + 1, C), np.float64)
+    idx, lw, yv, ws, ni, nf, stk, stkc = fit_work(work, n, d, n_keep, n_out, C, regression)
     cat_masks = np.empty((d if (any_cat and keep) else 0, 4), np.uint64)
     if status != OK:
         return (np.empty(0, np.int32), np.empty(0, np.int32), np.empty(0, np.int32), np.empty(0, np.int32),
@@ -610,15 +632,7 @@ def grow_kernel(codes, n_bins, is_cat, y_class, y_value, weights, rng_state, reg
     nbatch = max(1, min(8, features_per_split, HIST_BYTES // (1024 * C)))
     rule = Rule(regression, C, n_out, crit, features_per_split, min_leaf, depth_limit, exact_below, keep, oob_mode,
                 shift, (1 << shift) - 1, nbatch)
-    sx = Search(np.zeros((nbatch if not regression else 1, 256 * C), np.int32),
-                np.zeros((nbatch if regression else 1, 256), np.int32),
-                np.zeros((nbatch if regression else 1, 256), np.float64),
-                np.zeros((nbatch, 4), np.uint64), np.zeros(nbatch, np.int64), np.zeros(256, np.int32),
-                np.zeros(C, np.float64), np.zeros(C, np.float64), np.zeros(C, np.float64), np.zeros(C, np.float64),
-                np.zeros(256, np.float64), np.empty((5, 256), np.float64), np.zeros(256, np.int32),
-                np.arange(p).astype(np.int32))
-    nd = Node(np.zeros(C, np.float64), np.zeros(n_out, np.float64), np.zeros(C, np.float64),
-              np.zeros(4, np.uint64), np.zeros(256, np.uint8))
+    sx, nd = node_scratch(p, C, n_out, regression, nbatch)
 
     # the root; depth-first: at most one pending sibling per level, so depth + 2 <= d + 1 entries
     push(stk, 0, 0, 0, d, 0, 0, k_oob)
