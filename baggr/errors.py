@@ -19,3 +19,11 @@ class ModelFileError(BaggrError):
 
 class RunDirError(BaggrError):
     """A run directory is missing, busy, or cannot be used as asked."""
+
+
+class ClusterError(BaggrError):
+    """A Dask cluster cannot be used: the extra is not installed, the address is wrong, nobody answers."""
+
+
+class ClusterLostError(ClusterError):
+    """The cluster's scheduler went away mid-run; the members folded before it are intact."""
