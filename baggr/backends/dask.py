@@ -33,7 +33,7 @@ TIMEOUT = 10.0                    # seconds to reach the scheduler and see a fir
 TIMEOUT_ENV = "BAGGR_CLUSTER_TIMEOUT"
 NO_WORKERS = 60.0                 # a run with no worker for this long (and at least TIMEOUT) stops
 OVERHEAD_SHARE = 0.05             # the cluster's cost per chunk, as a share of the chunk's member time
-TASK_COST = 0.002                 # s: least cost of one task (scheduler, messages, (de)serialising)
+TASK_COST = 0.005                 # s: least CPU cost of one task, driver and worker (measured: bench/README.md)
 MAX_CHUNK = 1024
 MAX_CHUNK_BYTES = 64 << 20        # results of one chunk (trees and deltas) wait in a worker's memory
 IN_FLIGHT_PER_THREAD = 2          # chunks submitted and not yet handed on, per worker thread
@@ -206,7 +206,9 @@ class Dask(Backend):
             self._local = distributed.LocalCluster(
                 n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
                 dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.ERROR)
-            self.client = _client_class()(self._local, timeout=self.timeout, set_as_default=False)
+            # the driver reaches its own workers: results come straight from them, not through the scheduler
+            self.client = _client_class()(self._local, timeout=self.timeout, set_as_default=False,
+                                          direct_to_workers=True)
         except (OSError, RuntimeError, ValueError) as e:
             self.shutdown()
             raise ClusterError(f"cannot start a local cluster of {n} workers ({_line(e)})") from None
