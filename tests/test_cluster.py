@@ -5,12 +5,17 @@ The workers are spawned processes that import baggr from this checkout (PYTHONPA
 Members are pure functions of (seed, m) and tallies add (DESIGN.md "Invariants"), so every result
 here is compared for exact equality with a run on local threads.
 """
+import json
 import os
 import signal
+import subprocess
 import sys
+import time
 
 import numpy as np
 import psutil
+import pyarrow as pa
+import pyarrow.csv as pacsv
 import pytest
 
 pytest.importorskip("distributed", reason="the cluster extra is not installed: pip install -e '.[cluster]'")
@@ -20,7 +25,10 @@ from baggr.backends.dask import Dask, parse_address  # noqa: E402
 from baggr.config import Config  # noqa: E402
 from baggr.engine import Training  # noqa: E402
 from baggr.errors import ClusterError  # noqa: E402
-from generators import friedman1, twonorm  # noqa: E402
+from baggr.cli import report  # noqa: E402
+from baggr.model import npzfile  # noqa: E402
+from baggr.runs import MODEL, journal  # noqa: E402
+from generators import friedman1, noisy_halves, twonorm  # noqa: E402
 
 
 @pytest.fixture(scope="module")
@@ -169,3 +177,136 @@ def test_without_the_extra_the_error_says_how_to_install(monkeypatch):
     monkeypatch.setitem(sys.modules, "distributed", None)    # import distributed -> ImportError
     with pytest.raises(ClusterError, match=r"pip install 'baggr\[cluster\]'"):
         Dask("local:1")
+
+
+# ---------------------------------------------------------------- the command
+
+BAGGR = [sys.executable, "-m", "baggr.cli"]
+MEMBERS = 120
+TIMES = {"grow_seconds", "fold_seconds", "keep_seconds", "seconds"}   # the model header's timings
+
+
+def baggr_cli(*args, env=None, timeout=180):
+    e = dict(os.environ, **(env or {}))
+    return subprocess.run([*BAGGR, *map(str, args)], capture_output=True, text=True, timeout=timeout, env=e)
+
+
+def train_args(data, rd, *extra):
+    return ("train", data, "--target", "label", "--members", MEMBERS, "--threads", 2, "--run-dir", rd, "--no-ui",
+            "--checkpoint-every", 8, *extra)
+
+
+@pytest.fixture(scope="module")
+def medium(tmp_path_factory):
+    """noisy_halves 20,000 x 6 (tests/generators.py), and a run of it on local threads to compare with."""
+    from baggr.cli.main import main
+    d = tmp_path_factory.mktemp("cluster")
+    path = d / "medium.csv"
+    pacsv.write_csv(pa.table(noisy_halves(20_000, seed=7)), path)
+    assert main([str(a) for a in train_args(path, d / "threads")]) == 0
+    return path, d / "threads"
+
+
+def same_run(rd, reference):
+    """Model file (arrays bit for bit, header but times), report figures and journal curve."""
+    ha, aa = npzfile.read(rd / MODEL)
+    hb, ab = npzfile.read(reference / MODEL)
+    assert sorted(aa) == sorted(ab)
+    for k in aa:
+        assert aa[k].dtype == ab[k].dtype and np.array_equal(aa[k], ab[k], equal_nan=True), k
+    for k in set(ha) | set(hb) - {"created"}:
+        if k == "stats":
+            assert {x: v for x, v in ha[k].items() if x not in TIMES} == \
+                {x: v for x, v in hb[k].items() if x not in TIMES}
+        elif k != "created":
+            assert ha[k] == hb[k], k
+    ra, rb = (report.figures(report.load(d)) for d in (rd, reference))     # what `report --json` prints
+    for k in ("elapsed", "path", "created"):
+        ra.pop(k), rb.pop(k)
+    assert ra == rb
+    a, b = journal.read_state(rd), journal.read_state(reference)
+    assert a.status == "finished" and list(a.curve_error) == list(b.curve_error)
+
+
+def test_command_on_a_local_cluster_same_as_threads(medium):
+    """`baggr train --cluster local:1`: the job spawns its worker (which imports baggr.cli's main again)."""
+    data, reference = medium
+    rd = data.parent / "local1"
+    r = baggr_cli(*train_args(data, rd, "--cluster", "local:1"))
+    assert r.returncode == 0, r.stderr
+    same_run(rd, reference)
+    start = next(ev for ev in journal.JournalReader(rd / "journal.jsonl").read_new() if ev["event"] == "start")
+    assert start["cluster"] == "local:1" and start["cluster_address"].startswith("tcp://127.0.0.1:")
+    assert start["cluster_threads"] == 1
+
+
+@pytest.fixture
+def own_scheduler(tmp_path):
+    """A scheduler and one worker in processes of their own (so the scheduler can be killed)."""
+    env = dict(os.environ, NUMBA_NUM_THREADS="1")
+    sf = tmp_path / "scheduler.json"
+    procs = [subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_scheduler", "--host", "127.0.0.1",
+                               "--port", "0", "--no-dashboard", "--scheduler-file", sf],
+                              stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env)]
+    procs.append(subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_worker", "--scheduler-file", sf,
+                                   "--nthreads", "1", "--no-dashboard"],
+                                  stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env))
+    t0 = time.monotonic()
+    while not sf.exists() and time.monotonic() - t0 < 60:
+        time.sleep(0.05)
+    yield json.loads(sf.read_text())["address"], procs[0]
+    for p in procs:
+        p.kill()
+        p.wait()
+
+
+def test_scheduler_killed_stops_cleanly_and_resumes_identically(medium, own_scheduler, cluster):
+    data, reference = medium
+    address, scheduler = own_scheduler
+    rd = data.parent / "lost"
+    proc = subprocess.Popen([*BAGGR, *map(str, train_args(data, rd, "--cluster", address))],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    t0 = time.monotonic()
+    while journal.read_state(rd).members < 12:
+        assert proc.poll() is None and time.monotonic() - t0 < 120, proc.communicate()
+        time.sleep(0.005)
+    scheduler.send_signal(signal.SIGKILL)
+    out, err = proc.communicate(timeout=60)
+    st = journal.read_state(rd)
+    assert proc.returncode == 2 and 12 <= st.members < MEMBERS
+    # one line, from the job: why, and what the checkpoint holds
+    assert err.count("\n") == 1 and err.startswith(f"baggr: error: lost the Dask scheduler at {address}"), err
+    assert f"checkpoint saved at {st.members} of {MEMBERS} members" in err
+    assert st.status == "failed" and "lost the Dask scheduler" in st.reason
+    assert json.loads((rd / "checkpoint.json").read_text())["member"] == st.members
+    # resumed on another cluster (the module's, by its address): the same run as on threads throughout
+    r = baggr_cli("resume", rd, "--no-ui", "--cluster", cluster.address)
+    assert r.returncode == 0, r.stderr
+    same_run(rd, reference)
+
+
+def test_bad_address_is_one_line(medium, tmp_path):
+    import socket
+    data, _ = medium
+    with socket.socket() as s:      # a port nobody listens on
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+        r = baggr_cli(*train_args(data, tmp_path / "bad", "--cluster", f"tcp://127.0.0.1:{port}"),
+                      env={"BAGGR_CLUSTER_TIMEOUT": "1"})
+    assert r.returncode == 2 and r.stdout == ""
+    assert r.stderr == f"baggr: error: cannot reach a Dask scheduler at tcp://127.0.0.1:{port} within 1 s " \
+                       f"(Timed out trying to connect to tcp://127.0.0.1:{port} after 1 s)\n"
+    assert not (tmp_path / "bad").exists()     # a run that never started leaves no directory
+    r = baggr_cli(*train_args(data, tmp_path / "bad", "--cluster", "http://host:8786"))
+    assert r.returncode == 2 and r.stderr.count("\n") == 1 and "not a scheduler address" in r.stderr
+
+
+def test_command_without_the_extra_says_how_to_install(medium, tmp_path):
+    data, _ = medium
+    code = ("import sys; sys.modules['distributed'] = None; from baggr.cli.main import main; "
+            f"sys.exit(main({[str(a) for a in train_args(data, tmp_path / 'none', '--cluster', 'local:2')]!r}))")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert r.returncode == 2
+    assert r.stderr == "baggr: error: --cluster needs Dask's distributed scheduler, which is not installed: " \
+                       "pip install 'baggr[cluster]'\n"
+    assert not (tmp_path / "none").exists()

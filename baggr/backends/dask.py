@@ -76,6 +76,30 @@ def parse_address(text: str) -> tuple[str, str | int]:
     return "address", f"{scheme}://{rest}"
 
 
+def check_option(text: str) -> str:
+    """The --cluster option as given, once its form is right and Dask's distributed is installed
+    (ClusterError otherwise); cheap: nothing is imported or connected."""
+    parse_address(text)
+    import importlib.util
+    try:
+        found = importlib.util.find_spec("distributed") is not None
+    except (ImportError, ValueError):
+        found = False
+    if not found:
+        raise ClusterError(f"--cluster needs Dask's distributed scheduler, which is not installed: {INSTALL}")
+    return text.strip()
+
+
+def quiet_logs() -> None:
+    """Silence Dask's own log lines in this process (a command says what matters in its own words:
+    a lost scheduler would otherwise also print reconnection attempts and tracebacks)."""
+    _distributed()          # its logging is configured on import: set the levels after that
+    for name in list(logging.root.manager.loggerDict):
+        if name.split(".")[0] in ("distributed", "tornado"):
+            logging.getLogger(name).setLevel(logging.CRITICAL + 1)
+    logging.getLogger("distributed").setLevel(logging.CRITICAL + 1)
+
+
 def _distributed():
     try:
         import distributed
@@ -205,7 +229,7 @@ class Dask(Backend):
         try:
             self._local = distributed.LocalCluster(
                 n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
-                dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.ERROR)
+                dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL)
             # the driver reaches its own workers: results come straight from them, not through the scheduler
             self.client = _client_class()(self._local, timeout=self.timeout, set_as_default=False,
                                           direct_to_workers=True)

@@ -98,6 +98,16 @@ def command_words(message: str) -> str:
     return message
 
 
+def cluster_option() -> Parser:
+    """--cluster, for every command that grows members (a parent parser)."""
+    p = Parser(add_help=False)
+    p.add_argument("--cluster", default=None, metavar="ADDRESS",
+                   help="grow the members on a Dask cluster: its scheduler's address (tcp://HOST:8786, "
+                        "tls://HOST:8786) or local:N for N worker processes on this machine; the results are "
+                        "the same as with local threads (needs: pip install 'baggr[cluster]')")
+    return p
+
+
 def _example(text: str) -> str:
     return "example:\n" + textwrap.indent(textwrap.dedent(text).strip(), "  ")
 
@@ -109,6 +119,8 @@ def build_parser() -> Parser:
     ui.add_argument("--no-ui", action="store_true", help="train in this process, printing plain progress lines")
     ui.add_argument("--foreground", action="store_true",
                     help="train in this process with a progress bar (Ctrl-C stops and saves)")
+
+    cluster = cluster_option()
 
     settings = Parser(add_help=False)
     g = settings.add_argument_group("ensemble settings")
@@ -163,7 +175,7 @@ def build_parser() -> Parser:
             """
             baggr train firings.csv --target outcome --members 500 --features-per-split 4
             baggr train log.csv --target weather --drop station_id --delimiter ';'""",
-            (settings, table_parser(), ui), "Train an ensemble on DATA (CSV, TSV or Parquet) and write a run directory: its "
+            (settings, table_parser(), cluster, ui), "Train an ensemble on DATA (CSV, TSV or Parquet) and write a run directory: its "
             "config, a journal line per member, checkpoints and the model. On a terminal the job runs "
             "detached (a dropped SSH link does not end it) and the dashboard attaches; leave the dashboard "
             "and the job goes on (baggr watch DIR to return).")
@@ -172,7 +184,7 @@ def build_parser() -> Parser:
     t.set_defaults(func=cmd_train)
 
     rs = add("resume", "continue an interrupted run from its last checkpoint",
-             "baggr resume runs/firings-20250101-120000", (ui,),
+             "baggr resume runs/firings-20250101-120000", (cluster, ui),
              "Continue a stopped, failed or crashed run from its last checkpoint; the result is bit-identical "
              "to a run never interrupted. The data file must be unchanged. A finished run is left as it is "
              "(exit 0).")
@@ -230,6 +242,7 @@ def build_parser() -> Parser:
     j = sub.add_parser("_job", parents=[common])      # the detached job itself; not for people
     j.add_argument("dir")
     j.add_argument("--verify", action="store_true")
+    j.add_argument("--cluster", default=None)
     j.set_defaults(func=cmd_job)
     return p
 
