@@ -15,22 +15,18 @@ worker thread (the last chunks spread over all workers) and by MAX_CHUNK_BYTES o
 from __future__ import annotations
 
 import collections
-import logging
 import math
-import os
 import statistics
 import time
 import uuid
 from dataclasses import dataclass, field
 
-from baggr.backends import dask_worker
+from baggr.backends import dask_connect, dask_worker
 from baggr.backends.base import Backend
+from baggr.backends.dask_connect import one_line, parse_address, timeout_default  # noqa: F401
 from baggr.backends.member import Grower
 from baggr.errors import ClusterError, ClusterLostError
 
-INSTALL = "pip install 'baggr[cluster]'"
-TIMEOUT = 10.0                    # seconds to reach the scheduler and see a first worker
-TIMEOUT_ENV = "BAGGR_CLUSTER_TIMEOUT"
 NO_WORKERS = 60.0                 # a run with no worker for this long (and at least TIMEOUT) stops
 OVERHEAD_SHARE = 0.05             # the cluster's cost per chunk, as a share of the chunk's member time
 TASK_COST = 0.005                 # s: least CPU cost of one task, driver and worker (measured: bench/README.md)
@@ -39,99 +35,6 @@ MAX_CHUNK_BYTES = 64 << 20        # results of one chunk (trees and deltas) wait
 IN_FLIGHT_PER_THREAD = 2          # chunks submitted and not yet handed on, per worker thread
 RESUBMITS = 3                     # a chunk whose future is cancelled (its data lost) is sent again
 POLL = 1.0                        # s between checks of the connection while a chunk is awaited
-SCHEMES = ("tcp", "tls", "ws", "wss", "ucx", "inproc")
-# Worker processes of local:N: one thread each, and no library below it starting threads of its own.
-WORKER_ENV = {"NUMBA_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1",
-              "MKL_NUM_THREADS": "1"}
-
-
-def timeout_default() -> float:
-    """TIMEOUT, or BAGGR_CLUSTER_TIMEOUT when set (a batch queue may take minutes to start workers)."""
-    text = os.environ.get(TIMEOUT_ENV)
-    if not text:
-        return TIMEOUT
-    try:
-        value = float(text)
-    except ValueError:
-        value = -1.0
-    if not value > 0:
-        raise ClusterError(f"{TIMEOUT_ENV} must be a number of seconds above 0, got {text!r}")
-    return value
-
-
-def parse_address(text: str) -> tuple[str, str | int]:
-    """("local", N) for local:N, else ("address", "scheme://host[:port]"); ClusterError if neither."""
-    s = text.strip()
-    if s.startswith("local:"):
-        n = s[len("local:"):]
-        if not n.isdigit() or int(n) < 1:
-            raise ClusterError(f"local:N needs a whole number of workers >= 1, got {text!r}")
-        return "local", int(n)
-    scheme, sep, rest = s.partition("://")
-    if not sep:
-        scheme, rest = "tcp", s
-    host, colon, port = rest.rpartition(":")
-    if scheme not in SCHEMES or not rest or "/" in rest or (colon and not (port.isdigit() and host)):
-        raise ClusterError(f"not a scheduler address: {text!r} (expected tcp://HOST:PORT, tls://HOST:PORT or local:N)")
-    return "address", f"{scheme}://{rest}"
-
-
-def check_option(text: str) -> str:
-    """The --cluster option as given, once its form is right and Dask's distributed is installed
-    (ClusterError otherwise); cheap: nothing is imported or connected."""
-    parse_address(text)
-    import importlib.util
-    try:
-        found = importlib.util.find_spec("distributed") is not None
-    except (ImportError, ValueError):
-        found = False
-    if not found:
-        raise ClusterError(f"--cluster needs Dask's distributed scheduler, which is not installed: {INSTALL}")
-    return text.strip()
-
-
-def quiet_logs() -> None:
-    """Silence Dask's own log lines in this process (a command says what matters in its own words:
-    a lost scheduler would otherwise also print reconnection attempts and tracebacks)."""
-    _distributed()          # its logging is configured on import: set the levels after that
-    for name in list(logging.root.manager.loggerDict):
-        if name.split(".")[0] in ("distributed", "tornado"):
-            logging.getLogger(name).setLevel(logging.CRITICAL + 1)
-    logging.getLogger("distributed").setLevel(logging.CRITICAL + 1)
-
-
-def _distributed():
-    try:
-        import distributed
-    except ImportError:
-        raise ClusterError(f"growing members on a cluster needs Dask's distributed scheduler: {INSTALL}") from None
-    return distributed
-
-
-_CLIENT = None
-
-
-def _client_class():
-    """distributed.Client, except that a client whose connection failed is dropped without trying
-    to close that connection again (which waits and then prints an ignored exception)."""
-    global _CLIENT
-    if _CLIENT is None:
-        distributed = _distributed()
-
-        class QuietClient(distributed.Client):
-            def __del__(self):
-                if self.status in ("running", "closing"):
-                    try:
-                        super().__del__()
-                    except Exception:   # noqa: BLE001 - nothing to tell at garbage collection
-                        pass
-        _CLIENT = QuietClient
-    return _CLIENT
-
-
-def _line(e: BaseException) -> str:
-    text = str(e).strip().splitlines()
-    return text[0] if text else type(e).__name__
 
 
 @dataclass
@@ -182,83 +85,19 @@ class Dask(Backend):
     def __init__(self, cluster, *, timeout: float | None = None, on_note=None):
         self.timeout = timeout_default() if timeout is None else float(timeout)
         self.on_note = on_note
-        self.client = None
-        self._local = None
-        self._own_client = False
         self._inflight: collections.deque[_Chunk] = collections.deque()
         self._data = None
         self._token = None
         self._grower: Grower | None = None
         self._bytes: int | None = None       # one member's results on the wire
         self.stats = ClusterStats()
-        self._connect(cluster)
+        self.client, self._local, self._own_client = dask_connect.connect(cluster, self.timeout)
         self.address = self.client.scheduler.address
         self.threads = self._threads()
         self._threads_at = time.monotonic()
         self._no_workers_since = None
 
     # -- connecting
-    def _connect(self, cluster) -> None:
-        distributed = _distributed()
-        if isinstance(cluster, distributed.Client):
-            self.client = cluster
-        elif isinstance(cluster, str):
-            kind, value = parse_address(cluster)
-            self._own_client = True
-            if kind == "local":
-                self._start_local(distributed, value)
-            else:
-                try:
-                    self.client = _client_class()(value, timeout=self.timeout, set_as_default=False)
-                except OSError as e:      # refused, unknown host, timed out (TimeoutError is one)
-                    raise ClusterError(f"cannot reach a Dask scheduler at {value} within {self.timeout:g} s "
-                                       f"({_line(e)})") from None
-                except Exception as e:   # noqa: BLE001 - something answered, not in Dask's protocol
-                    raise ClusterError(f"{value} answered, but not as a Dask scheduler "
-                                       f"({type(e).__name__}); is it the scheduler's address and port?") from None
-        else:
-            raise ClusterError(f"cluster must be a scheduler address, local:N or a distributed.Client, "
-                               f"got {type(cluster).__name__}")
-        try:
-            self._check_workers()
-        except BaseException:
-            self.shutdown()
-            raise
-
-    def _start_local(self, distributed, n: int) -> None:
-        try:
-            self._local = distributed.LocalCluster(
-                n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
-                dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL)
-            # the driver reaches its own workers: results come straight from them, not through the scheduler
-            self.client = _client_class()(self._local, timeout=self.timeout, set_as_default=False,
-                                          direct_to_workers=True)
-        except (OSError, RuntimeError, ValueError) as e:
-            self.shutdown()
-            raise ClusterError(f"cannot start a local cluster of {n} workers ({_line(e)})") from None
-
-    def _check_workers(self) -> None:
-        """Wait for a first worker, then check every worker grows members with the same code as here."""
-        try:
-            self.client.wait_for_workers(1, timeout=self.timeout)
-        except (OSError, TimeoutError) as e:
-            raise ClusterError(f"the Dask scheduler at {self.client.scheduler.address} has no workers "
-                               f"(waited {self.timeout:g} s; {TIMEOUT_ENV} sets the wait)") from None
-        here = dask_worker.versions()
-        try:
-            seen = self.client.run(dask_worker.versions, on_error="return")
-        except OSError as e:
-            raise ClusterError(f"the Dask scheduler at {self.client.scheduler.address} stopped answering "
-                               f"({_line(e)})") from None
-        for worker, v in sorted(seen.items()):
-            if isinstance(v, BaseException):
-                raise ClusterError(f"worker {worker} cannot run baggr ({type(v).__name__}: {_line(v)}); "
-                                   f"install baggr {here['baggr']} on every worker")
-            if v != here:
-                diff = ", ".join(f"{k} {v.get(k)} there, {here[k]} here" for k in here if v.get(k) != here[k])
-                raise ClusterError(f"worker {worker} runs other versions than this machine ({diff}): "
-                                   "members must be grown by the same code everywhere")
-
     def _threads(self) -> int:
         return int(sum(self.client.nthreads().values()))
 
@@ -338,7 +177,7 @@ class Dask(Backend):
                     return done
             except KilledWorker as e:
                 raise ClusterError(f"members {ch.a}..{ch.b - 1} were in hand on workers that died "
-                                   f"({_line(e)}); out of memory? see the workers' logs") from None
+                                   f"({one_line(e)}); out of memory? see the workers' logs") from None
             except (Exception, CancelledError) as e:   # noqa: BLE001 - a grower's own error goes up as it is
                 if self._lost(e):
                     raise self._lost_error(e) from None
@@ -346,7 +185,7 @@ class Dask(Backend):
                     raise
                 # the chunk's future was dropped (e.g. every copy of the scattered data died with its workers)
                 self.stats.resubmitted += 1
-                self._note(f"members {ch.a}..{ch.b - 1} are grown again ({_line(e)})")
+                self._note(f"members {ch.a}..{ch.b - 1} are grown again ({one_line(e)})")
                 if self._data.status != "finished":
                     self._ship()
                 new = self._submit(ch.a, ch.b, ch.attempt + 1)
@@ -410,7 +249,7 @@ class Dask(Backend):
 
     def _lost_error(self, e: BaseException | None) -> ClusterLostError:
         why = "the connection closed" if getattr(e, "reason", None) == "scheduler-connection-lost" or e is None \
-            else _line(e)
+            else one_line(e)
         return ClusterLostError(f"lost the Dask scheduler at {self.address} ({why})")
 
     # -- ending
@@ -435,18 +274,8 @@ class Dask(Backend):
     def shutdown(self) -> None:
         """close(), then close the client and the local cluster this backend started (not a caller's client)."""
         self.close()
-        if self._own_client and self.client is not None:
-            try:
-                self.client.close(timeout=self.timeout)
-            except (OSError, TimeoutError, RuntimeError):
-                pass
-            self.client = None
-        if self._local is not None:
-            try:
-                self._local.close(timeout=self.timeout)
-            except (OSError, TimeoutError, RuntimeError):
-                pass
-            self._local = None
+        dask_connect.close(self.client if self._own_client else None, self._local, self.timeout)
+        self._own_client, self._local = False, None
 
     def __enter__(self) -> "Dask":
         return self

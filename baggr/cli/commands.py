@@ -49,7 +49,7 @@ def _cluster(args) -> str | None:
     text = getattr(args, "cluster", None)
     if text is None:
         return None
-    from baggr.backends.dask import check_option
+    from baggr.backends.dask_connect import check_option
     return check_option(text)
 
 
@@ -91,7 +91,7 @@ def cmd_job(args) -> int:
     from baggr.cli import progress as prog
     from baggr.runs import Job, RunDir
     if args.cluster is not None and not args.debug:
-        from baggr.backends.dask import quiet_logs
+        from baggr.backends.dask_connect import quiet_logs
         quiet_logs()
     job = Job(RunDir(args.dir), prog.PlainProgress(sys.stdout), verify=args.verify, cluster=args.cluster)
     out = job.run()

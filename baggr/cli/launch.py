@@ -73,7 +73,7 @@ def launch(rd, mode: str, *, fresh: bool, announce: str | None = None, cluster: 
     from baggr.cli import progress as prog
     from baggr.runs import Job
     if cluster is not None and not debug:
-        from baggr.backends.dask import quiet_logs
+        from baggr.backends.dask_connect import quiet_logs
         quiet_logs()     # the job says what matters in its own lines
     bar = prog.make(mode)
     if announce is not None:
