@@ -146,6 +146,9 @@ def test_workers_threads_are_limited(cluster):
     assert cluster.client.nthreads() and set(cluster.client.nthreads().values()) == {1}
     # a lambda: os.environ.get itself would travel with this process's environment
     assert set(cluster.client.run(lambda: os.environ.get("NUMBA_NUM_THREADS")).values()) == {"1"}
+    # and Dask's sampling profiler, which would take a share of the cores, is off in them
+    import dask
+    assert set(cluster.client.run(lambda: dask.config.get("distributed.worker.profile.enabled")).values()) == {False}
 
 
 @pytest.mark.parametrize("text,kind", [("local:3", ("local", 3)), ("tcp://10.0.0.5:8786", ("address", "tcp://10.0.0.5:8786")),

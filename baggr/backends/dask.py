@@ -7,9 +7,9 @@ the results back in member order. Workers build the run's Grower once (dask_work
 each member's tree and OOB delta. A member is a pure function of m, so a chunk lost with its worker
 is grown again elsewhere, and the fold, in member order, is the same as with local threads.
 
-Chunk size: after every chunk, k = ceil(o / (OVERHEAD_SHARE * t)), t the mean member time and o the
-cost of one chunk to the cluster: the larger of TASK_COST, the median wait of a worker thread between
-two chunks, and the driver's time to submit one. Bounded by the members left per
+Chunk size: after every chunk, k = ceil(o / (OVERHEAD_SHARE * t)), t the mean CPU time of a member in
+its worker and o the cost of one chunk to the cluster: the larger of TASK_COST, the median wait of a
+worker thread between two chunks, and the driver's time to submit one. Bounded by the members left per
 worker thread (the last chunks spread over all workers) and by MAX_CHUNK_BYTES of results.
 """
 from __future__ import annotations
@@ -49,6 +49,7 @@ class ClusterStats:
     members: int = 0
     resubmitted: int = 0
     task_seconds: float = 0.0         # chunks' wall time in the workers
+    task_cpu: float = 0.0             # chunks' CPU time in the workers' threads
     member_seconds: float = 0.0       # members' own time (inside task_seconds)
     submit_seconds: float = 0.0       # the driver submitting chunks
     receive_seconds: float = 0.0      # the driver receiving chunks that were done (transfer, unpickling)
@@ -197,6 +198,7 @@ class Dask(Backend):
         st.members += ch.b - ch.a
         st.sizes.append(ch.b - ch.a)
         st.task_seconds += done.seconds
+        st.task_cpu += done.cpu
         st.member_seconds += sum(r.seconds for r in done.results)
         if done.gap is not None:
             st.gaps.append(done.gap)
@@ -211,9 +213,10 @@ class Dask(Backend):
         st = self.stats
         if not st.members:
             return 1
-        t = st.member_seconds / st.members
+        # CPU time, not wall time: on a busy host a member's wall time grows with the wait for a core,
+        # and so would the share the cluster's own work is allowed
+        t = st.task_cpu / st.members
         recent = st.gaps[-32:]
-        # receiving grows with the chunk (its bytes): only submitting is a fixed cost per chunk in the driver
         o = max(TASK_COST, statistics.median(recent) if recent else 0.0, st.submit_seconds / max(st.chunks, 1))
         k = math.ceil(o / (OVERHEAD_SHARE * max(t, 1e-6)))
         per_thread = math.ceil(left / max(self.threads, 1))

@@ -16,6 +16,14 @@ SCHEMES = ("tcp", "tls", "ws", "wss", "ucx", "inproc")
 # Worker processes of local:N: one thread each, and no library below it starting threads of its own.
 WORKER_ENV = {"NUMBA_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1",
               "MKL_NUM_THREADS": "1"}
+# local:N shares this machine's cores with the driver: Dask's own sampling (a profiler every 10 ms, the
+# GIL every 1 ms, event loop checks every 20 ms, memory every 100 ms) costs an idle local:2 about a tenth
+# of a core; less often, about a hundredth (bench/README.md). Workers get these settings from their nanny.
+LOCAL_CONFIG = {"distributed.worker.profile.enabled": False,
+                "distributed.admin.system-monitor.gil.enabled": False,
+                "distributed.admin.tick.interval": "500ms",
+                "distributed.admin.system-monitor.interval": "2s",
+                "distributed.worker.memory.monitor-interval": "1s"}
 
 
 def timeout_default() -> float:
@@ -161,9 +169,11 @@ def _client_to(address: str, timeout: float):
 def _start_local(distributed, n: int, timeout: float):
     local = None
     try:
-        local = distributed.LocalCluster(
-            n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
-            dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL)
+        import dask
+        with dask.config.set(LOCAL_CONFIG):
+            local = distributed.LocalCluster(
+                n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
+                dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL)
         # the driver reaches its own workers: results come straight from them, not through the scheduler
         return _client_class()(local, timeout=timeout, set_as_default=False, direct_to_workers=True), local
     except (OSError, RuntimeError, ValueError) as e:

@@ -35,6 +35,7 @@ class ChunkDone:
 
     results: list[MemberResult]
     seconds: float            # the chunk's wall time in the worker
+    cpu: float                # the chunk's CPU time in its worker thread (below the wall time on a busy host)
     gap: float | None         # this worker thread's wait since its previous chunk of the same run
     setup: float | None       # building the run's Grower, when this chunk did it
     first: float | None       # the process's first member (numba loading or compiling its kernels)
@@ -44,7 +45,7 @@ class ChunkDone:
 def grow_chunk(token: str, prep: Prepared, config: Config, a: int, b: int) -> ChunkDone:
     """Members a..b-1 of the run `token` (prep: the scattered codes and targets, config: its settings)."""
     global _warm
-    t_in = time.perf_counter()
+    t_in, c_in = time.perf_counter(), time.thread_time()
     tid = threading.get_ident()
     last = _last_end.get(tid)
     gap = t_in - last[1] if last is not None and last[0] == token else None
@@ -58,7 +59,8 @@ def grow_chunk(token: str, prep: Prepared, config: Config, a: int, b: int) -> Ch
     results.extend(grower.grow_chunk(range(a + len(results), b)))
     t_out = time.perf_counter()
     _last_end[tid] = (token, t_out)
-    return ChunkDone(results, t_out - t_in, gap, setup, first, f"{socket.gethostname()}:{os.getpid()}")
+    return ChunkDone(results, t_out - t_in, time.thread_time() - c_in, gap, setup, first,
+                     f"{socket.gethostname()}:{os.getpid()}")
 
 
 def _grower(token: str, prep: Prepared, config: Config) -> tuple[Grower, float | None]:
