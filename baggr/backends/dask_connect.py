@@ -169,11 +169,16 @@ def _client_to(address: str, timeout: float):
 def _start_local(distributed, n: int, timeout: float):
     local = None
     try:
+        import copy
+
         import dask
         with dask.config.set(LOCAL_CONFIG):
+            # config: a deep copy for the nannies, which keep a shallow one and would otherwise start a
+            # worker again (after a kill) with the settings restored when this block ends
             local = distributed.LocalCluster(
                 n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
-                dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL)
+                dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL,
+                config=copy.deepcopy(dask.config.config))
         # the driver reaches its own workers: results come straight from them, not through the scheduler
         return _client_class()(local, timeout=timeout, set_as_default=False, direct_to_workers=True), local
     except (OSError, RuntimeError, ValueError) as e:
