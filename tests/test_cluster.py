@@ -252,7 +252,7 @@ def own_scheduler(tmp_path):
                                "--port", "0", "--no-dashboard", "--scheduler-file", sf],
                               stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env)]
     procs.append(subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_worker", "--scheduler-file", sf,
-                                   "--nthreads", "1", "--no-dashboard"],
+                                   "--nthreads", "1", "--no-dashboard", "--no-nanny"],
                                   stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env))
     t0 = time.monotonic()
     while not sf.exists() and time.monotonic() - t0 < 60:
@@ -282,15 +282,19 @@ def test_scheduler_killed_stops_cleanly_and_resumes_identically(medium, own_sche
     assert f"checkpoint saved at {st.members} of {MEMBERS} members" in err
     assert st.status == "failed" and "lost the Dask scheduler" in st.reason
     assert json.loads((rd / "checkpoint.json").read_text())["member"] == st.members
-    # resumed on another cluster (the module's, by its address): the same run as on threads throughout
-    r = baggr_cli("resume", rd, "--no-ui", "--cluster", cluster.address)
-    assert r.returncode == 0, r.stderr
+    # resumed as a detached job (what `baggr resume DIR --cluster ADDRESS` starts on a terminal) on
+    # another cluster, the module's: the same run as on threads throughout
+    from baggr.runs import RunDir, spawn
+    job = spawn(RunDir(rd), cluster=cluster.address)
+    assert job.wait(timeout=180) == 0, (rd / "job.log").read_text()
+    starts = [ev for ev in journal.JournalReader(rd / "journal.jsonl").read_new() if ev["event"] == "start"]
+    assert [s.get("cluster") for s in starts] == [address, cluster.address] and starts[1]["resumed"]
     same_run(rd, reference)
 
 
 def test_bad_address_is_one_line(medium, tmp_path):
     import socket
-    data, _ = medium
+    data, reference = medium
     with socket.socket() as s:      # a port nobody listens on
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
@@ -302,6 +306,9 @@ def test_bad_address_is_one_line(medium, tmp_path):
     assert not (tmp_path / "bad").exists()     # a run that never started leaves no directory
     r = baggr_cli(*train_args(data, tmp_path / "bad", "--cluster", "http://host:8786"))
     assert r.returncode == 2 and r.stderr.count("\n") == 1 and "not a scheduler address" in r.stderr
+    r = baggr_cli("resume", reference, "--no-ui", "--cluster", "local:zero")
+    assert r.returncode == 2 and r.stderr == "baggr: error: local:N needs a whole number of workers >= 1, " \
+                                             "got 'local:zero'\n"
 
 
 def test_command_without_the_extra_says_how_to_install(medium, tmp_path):

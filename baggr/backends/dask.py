@@ -248,12 +248,16 @@ class Dask(Backend):
                                    f"{now - self._no_workers_since:.0f} s")
 
     def _lost(self, e: BaseException | None) -> bool:
-        return self.client.status != "running" or getattr(e, "reason", None) == "scheduler-connection-lost"
+        """Whether e says the scheduler is gone: the client noticed, the futures were cancelled for it, or a
+        connection closed under a call (before the client noticed: its status changes a moment later)."""
+        from distributed.comm.core import CommClosedError
+        return self.client.status != "running" or getattr(e, "reason", None) == "scheduler-connection-lost" \
+            or isinstance(e, CommClosedError)
 
     def _lost_error(self, e: BaseException | None) -> ClusterLostError:
-        why = "the connection closed" if getattr(e, "reason", None) == "scheduler-connection-lost" or e is None \
-            else one_line(e)
-        return ClusterLostError(f"lost the Dask scheduler at {self.address} ({why})")
+        what = "the connection closed" if e is None or isinstance(e, OSError) \
+            or getattr(e, "reason", None) == "scheduler-connection-lost" else one_line(e)
+        return ClusterLostError(f"lost the Dask scheduler at {self.address} ({what})")
 
     # -- ending
     def close(self) -> None:
