@@ -35,6 +35,14 @@ from generators import friedman1, noisy_halves, twonorm  # noqa: E402
 def cluster():
     with Dask("local:2", timeout=60) as backend:
         yield backend
+    # distributed keeps one thread of its own for the rest of the process ("Dask-Offload"); later tests
+    # that fork need a process without threads: a fresh executor starts its thread only when used
+    from concurrent.futures import ThreadPoolExecutor
+
+    import distributed.utils
+    old = distributed.utils._offload_executor
+    distributed.utils._offload_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="Dask-Offload")
+    old.shutdown(wait=True)
 
 
 def assert_same(a, b):

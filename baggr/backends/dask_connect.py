@@ -93,13 +93,26 @@ _CLIENT = None
 
 
 def _client_class():
-    """distributed.Client, except that a client whose connection failed is dropped without trying
-    to close that connection again (which waits and then prints an ignored exception)."""
+    """distributed.Client, except that a client whose connection failed stops its event loop thread at
+    once, and is then dropped without trying to close that connection again (which waits and prints an
+    ignored exception)."""
     global _CLIENT
     if _CLIENT is None:
         distributed = _distributed()
 
         class QuietClient(distributed.Client):
+            def __init__(self, *args, **kwargs):
+                try:
+                    super().__init__(*args, **kwargs)
+                except BaseException:
+                    runner = getattr(self, "_loop_runner", None)
+                    if runner is not None:
+                        try:
+                            runner.stop()
+                        except Exception:   # noqa: BLE001 - the connection's own error is the one to tell
+                            pass
+                    raise
+
             def __del__(self):
                 if self.status in ("running", "closing"):
                     try:
