@@ -1,6 +1,7 @@
 """R1 on a local Dask cluster against local threads, what the cluster costs, and a model for 100 workers.
 
     python bench/cluster.py [members] [rounds]
+    python bench/cluster.py --cold      # the workers' first member on an empty numba cache
 
 R1 (DESIGN.md): twonorm 100,000 x 20, full trees, features_per_split 4. Each round trains the same
 configuration on threads=2 and on local:2 (two worker processes of one thread), one right after the
@@ -85,7 +86,24 @@ def per_task(client, fn, n, *args):
     return (c1[0] - c0[0]) / n, (c1[1] - c0[1]) / n, (t1 - t0) / n
 
 
+def cold():
+    """Workers on an empty numba cache: the first compiles the kernels, the other waits its turn and loads."""
+    import tempfile
+    X, y = twonorm(100_000, seed=1)
+    with tempfile.TemporaryDirectory(prefix="baggr-numba-") as d:
+        os.environ["NUMBA_CACHE_DIR"] = d          # the workers inherit it; this process's numba is loaded
+        cluster = Dask("local:2", timeout=120)
+        t0 = time.perf_counter()
+        run(X, y, Config(members=8, features_per_split=4, seed=1), backend=cluster)
+        st = cluster.stats
+        print(f"cold numba cache ({d}): 8 members in {time.perf_counter() - t0:.1f} s; each worker process's "
+              f"first member: " + ", ".join(f"{v:.1f} s" for v in sorted(st.first.values())))
+        cluster.shutdown()
+
+
 def main():
+    if sys.argv[1:2] == ["--cold"]:
+        return cold()
     members = int(sys.argv[1]) if len(sys.argv) > 1 else 96
     rounds = int(sys.argv[2]) if len(sys.argv) > 2 else 5
     X, y = twonorm(100_000, seed=1)

@@ -115,25 +115,42 @@ def test_chunks_grow_when_members_are_quick(cluster):
 
 # ---------------------------------------------------------------- faults
 
-def test_a_worker_killed_mid_run_changes_nothing(cluster):
+def test_workers_killed_mid_run_change_nothing(cluster):
+    """One worker killed at member 8; at member 24 every worker, and with them every copy of the table:
+    the lost chunks are grown again (the table shipped again to the workers the nannies start)."""
     X, y = twonorm(8000, seed=6)
     cfg = Config(members=40, seed=4, threads=2, features_per_split=4)
-    before = set(cluster.client.run(os.getpid).values())
-    victim = min(before)
-    killed = []
+    first = set(cluster.client.run(os.getpid).values())
+    killed, notes = {}, []
+
+    def worker_processes():
+        """This process's spawned children, the workers (a worker just restarted may not have joined yet)."""
+        return [p.pid for p in psutil.Process().children() if "spawn_main" in " ".join(p.cmdline())]
 
     def on_member(ev):
         if ev.member == 8 and not killed:
-            os.kill(victim, signal.SIGKILL)
-            killed.append(ev.member)
+            killed[8] = [min(first)]
+        elif ev.member == 24 and 24 not in killed:
+            killed[24] = worker_processes()
+        else:
+            return
+        for pid in killed[ev.member]:
+            os.kill(pid, signal.SIGKILL)
 
-    b = Training(X, y, cfg).run(backend=cluster, on_member=on_member)
-    assert killed == [8]
+    assert set(worker_processes()) == first      # the workers, as the operating system lists them
+    cluster.on_note = notes.append
+    try:
+        b = Training(X, y, cfg).run(backend=cluster, on_member=on_member)
+    finally:
+        cluster.on_note = None
+    assert sorted(killed) == [8, 24] and killed[24] and not set(killed[24]) & set(killed[8])
     assert_same(Training(X, y, cfg).run(), b)
-    # the nanny starts a new worker process in the killed one's place (distributed's default)
+    # chunks unreceived at member 24 lived only on the dead workers, with the table: sent again
+    assert cluster.stats.resubmitted >= 1 and any("grown again" in n for n in notes)
+    # the nannies start new worker processes in the killed ones' place (distributed's default)
     cluster.client.wait_for_workers(2, timeout=60)
     after = set(cluster.client.run(os.getpid).values())
-    assert victim not in after and len(after) == 2
+    assert len(after) == 2 and not after & (first | set(killed[24]))
 
 
 # ---------------------------------------------------------------- connecting

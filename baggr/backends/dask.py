@@ -131,6 +131,8 @@ class Dask(Backend):
                 results, done.results = done.results, None
                 for i, r in enumerate(results):
                     results[i] = None      # the driver holds the member being folded, not the chunk
+                    if isinstance(r.delta, dask_worker.PackedDelta):
+                        r.delta = r.delta.unpack()
                     yield r
         except ClusterError:
             raise
@@ -157,7 +159,8 @@ class Dask(Backend):
 
     def _receive(self, ch: _Chunk):
         """The chunk's results; a chunk cancelled while the scheduler lives is sent again."""
-        from asyncio import CancelledError
+        from asyncio import CancelledError as LoopCancelled
+        from concurrent.futures import CancelledError    # a cancelled future's (distributed's is one)
 
         from distributed.scheduler import KilledWorker
         while True:
@@ -179,14 +182,15 @@ class Dask(Backend):
             except KilledWorker as e:
                 raise ClusterError(f"members {ch.a}..{ch.b - 1} were in hand on workers that died "
                                    f"({one_line(e)}); out of memory? see the workers' logs") from None
-            except (Exception, CancelledError) as e:   # noqa: BLE001 - a grower's own error goes up as it is
+            except (Exception, LoopCancelled) as e:   # noqa: BLE001 - a grower's own error goes up as it is
                 if self._lost(e):
                     raise self._lost_error(e) from None
-                if not isinstance(e, CancelledError) or ch.attempt >= RESUBMITS:
+                if not isinstance(e, (CancelledError, LoopCancelled)) or ch.attempt >= RESUBMITS:
                     raise
                 # the chunk's future was dropped (e.g. every copy of the scattered data died with its workers)
                 self.stats.resubmitted += 1
-                self._note(f"members {ch.a}..{ch.b - 1} are grown again ({one_line(e)})")
+                self._note(f"members {ch.a}..{ch.b - 1} are grown again (lost with the workers that held "
+                           f"them{' and the table' if self._data.status != 'finished' else ''})")
                 if self._data.status != "finished":
                     self._ship()
                 new = self._submit(ch.a, ch.b, ch.attempt + 1)
@@ -294,7 +298,8 @@ class Dask(Backend):
 def _result_bytes(r) -> int:
     """Bytes of one member's result on the wire: its tree's arrays and its OOB delta."""
     import numpy as np
-    n = r.delta.rows.nbytes + r.delta.votes.nbytes
+    d = r.delta
+    n = d.bits.nbytes + d.votes.nbytes if isinstance(d, dask_worker.PackedDelta) else d.rows.nbytes + d.votes.nbytes
     if r.tree is not None:
         n += sum(v.nbytes for v in vars(r.tree).values() if isinstance(v, np.ndarray))
     return n
