@@ -13,6 +13,7 @@ kernels), Dask's own cost per task on this host, the driver's fold rate (members
 when they arrive at once), the driver's memory over members, and the cost model for 100 workers
 computed from these figures.
 """
+import dataclasses
 import os
 import pickle
 import statistics
@@ -26,6 +27,7 @@ sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."
 from bench.util import mib, twonorm  # noqa: E402
 from baggr.backends.base import Backend  # noqa: E402
 from baggr.backends.dask import Dask  # noqa: E402
+from baggr.backends.dask_worker import PackedDelta  # noqa: E402
 from baggr.config import Config  # noqa: E402
 from baggr.engine import Training  # noqa: E402
 
@@ -160,21 +162,13 @@ def main():
     print(f"a worker process's first member (numba loads its cached kernels, one process at a time): "
           f"{', '.join(f'{v:.2f} s' for v in first)}, against {1e3 * t_m:.1f} ms later")
 
-    # -- 3. Dask's own cost per task on this host, and per byte of results
-    client = cluster.client
-    result_bytes = 860_000
-    per_task(client, empty, 50)
-    d0, w0, wall0 = per_task(client, empty, 400)
-    d1, w1, wall1 = per_task(client, sized, 200, result_bytes)
-    print(f"Dask per task (400 empty tasks): driver+scheduler CPU {1e3 * d0:.2f} ms, workers' CPU {1e3 * w0:.2f} ms, "
-          f"wall {1e3 * wall0:.2f} ms; a task returning {result_bytes / 1e6:.2f} MB (one R1 member's results): "
-          f"{1e3 * d1:.2f} / {1e3 * w1:.2f} / {1e3 * wall1:.2f} ms")
-
-    # -- 4. the driver's fold rate: members grown beforehand, folded (and kept) as fast as they come
+    # -- 3. the driver's fold rate: members grown beforehand, folded (and kept) as fast as they come
     tr = Training(X, y, cfg.replace(members=64))
     grown = tr.grower.grow_chunk(range(64))
     tr.grower.release()
-    blobs = [pickle.dumps(r, protocol=5) for r in grown]
+    packed = [dataclasses.replace(r, delta=PackedDelta.pack(r.delta, tr.prep.n_rows)) for r in grown]
+    blobs = [pickle.dumps(r, protocol=5) for r in packed]
+    result_bytes = int(statistics.median([len(b) for b in blobs]))
     t0 = time.perf_counter()
     for b in blobs:
         pickle.loads(b)
@@ -189,8 +183,18 @@ def main():
         fold_rates.append((time.process_time() - t0) / 64)
     print(f"driver fold rate, CPU (64 R1 members handed over at once): kept {1 / fold_rates[0]:.0f} members/s "
           f"({1e3 * fold_rates[0]:.2f} ms each), estimate-only {1 / fold_rates[1]:.0f} members/s "
-          f"({1e3 * fold_rates[1]:.2f} ms); unpickling one member's results ({len(blobs[0]) / 1e6:.2f} MB) "
+          f"({1e3 * fold_rates[1]:.2f} ms); unpickling one member's results ({result_bytes / 1e6:.2f} MB, "
+          f"{len(pickle.dumps(grown[0], protocol=5)) / 1e6:.2f} MB before packing its votes) "
           f"{1e3 * unpickle:.2f} ms; fold + keep inside the cluster runs {1e3 * statistics.median(fold_keep):.2f} ms")
+
+    # -- 4. Dask's own cost per task on this host, and per byte of results
+    client = cluster.client
+    per_task(client, empty, 50)
+    d0, w0, wall0 = per_task(client, empty, 400)
+    d1, w1, wall1 = per_task(client, sized, 200, result_bytes)
+    print(f"Dask per task (400 empty tasks): driver+scheduler CPU {1e3 * d0:.2f} ms, workers' CPU {1e3 * w0:.2f} ms, "
+          f"wall {1e3 * wall0:.2f} ms; a task returning {result_bytes / 1e6:.2f} MB (one R1 member's results): "
+          f"{1e3 * d1:.2f} / {1e3 * w1:.2f} / {1e3 * wall1:.2f} ms")
 
     # -- 5. driver memory over members: estimate-only (nothing kept grows) and kept
     for keep in (False, True):
