@@ -26,4 +26,5 @@ class ClusterError(BaggrError):
 
 
 class ClusterLostError(ClusterError):
-    """The cluster's scheduler went away mid-run; the members folded before it are intact."""
+    """The cluster cannot go on mid-run (its scheduler went away, no worker is left, a worker's
+    error); the members folded before it are intact, and a resume goes on from there."""

@@ -125,7 +125,14 @@ def test_workers_killed_mid_run_change_nothing(cluster):
 
     def worker_processes():
         """This process's spawned children, the workers (a worker just restarted may not have joined yet)."""
-        return [p.pid for p in psutil.Process().children() if "spawn_main" in " ".join(p.cmdline())]
+        pids = []
+        for p in psutil.Process().children():
+            try:
+                if "spawn_main" in " ".join(p.cmdline()):
+                    pids.append(p.pid)
+            except psutil.Error:       # gone, or a zombie another test's subprocess left
+                pass
+        return pids
 
     def on_member(ev):
         if ev.member == 8 and not killed:

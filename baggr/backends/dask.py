@@ -136,10 +136,10 @@ class Dask(Backend):
                     yield r
         except ClusterError:
             raise
-        except (OSError, TimeoutError) as e:
+        except OSError as e:     # TimeoutError is one: the run cannot go on here, but what it has is intact
             if self._lost(e):
                 raise self._lost_error(e) from None
-            raise
+            raise ClusterLostError(f"the cluster at {self.address} failed ({type(e).__name__}: {one_line(e)})") from None
 
     def _ship(self) -> None:
         """Scatter the codes and targets (no names, labels, levels or edges) to every worker."""
