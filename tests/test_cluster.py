@@ -352,3 +352,19 @@ def test_command_without_the_extra_says_how_to_install(medium, tmp_path):
     assert r.stderr == "baggr: error: --cluster needs Dask's distributed scheduler, which is not installed: " \
                        "pip install 'baggr[cluster]'\n"
     assert not (tmp_path / "none").exists()
+
+
+def _writeable(prep):
+    return {k: getattr(prep, k).flags.writeable for k in ("codes", "y_class", "y_value")}
+
+
+def test_workers_get_the_drivers_read_only_flags(cluster):
+    """numba compiles a kernel once per read-only flag of its arrays: the table reaches the workers with
+    the driver's flags (Dask's serialisation keeps them), so both run the same compiled code, and a
+    local:N worker finds in the cache what the driver's warm-up compiled (numba's typing; from memory)."""
+    X, y = labelled(500, seed=1)
+    prep = Training(X, y, Config()).prep.for_workers()
+    prep.y_class.flags.writeable = False          # as a target read from a CSV file arrives (Arrow's memory)
+    shipped = cluster.client.scatter(prep, broadcast=True, hash=False)
+    seen = cluster.client.submit(_writeable, shipped, pure=False).result()
+    assert seen == _writeable(prep) == {"codes": True, "y_class": False, "y_value": True}
