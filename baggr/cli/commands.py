@@ -53,8 +53,21 @@ def cmd_train(args) -> int:
     return launch(rd, run_mode(args), fresh=True, announce=str(rd.path))
 
 
+def _comparison(path) -> bool:
+    from baggr.runs.comparison import is_comparison
+    return is_comparison(path)
+
+
+def cmd_compare(args) -> int:
+    from baggr.cli import compare
+    return compare.cmd_compare(args)
+
+
 def cmd_resume(args) -> int:
     from baggr import runs
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_resume(args)
     rd = runs.RunDir(args.dir).require()
     cfg = rd.read_config()
     st, status = rd.state()
@@ -70,6 +83,9 @@ def cmd_resume(args) -> int:
 
 
 def cmd_job(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_job(args)
     from baggr.cli import progress as prog
     from baggr.runs import Job, RunDir
     job = Job(RunDir(args.dir), prog.PlainProgress(sys.stdout), verify=args.verify)
@@ -79,6 +95,9 @@ def cmd_job(args) -> int:
 
 
 def cmd_watch(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_watch(args)
     from baggr.runs import RunDir
     rd = RunDir(args.dir).require()
     code = attach(rd)
@@ -89,6 +108,9 @@ def cmd_watch(args) -> int:
 
 
 def cmd_stop(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_stop(args)
     from baggr.runs import journal
     from baggr.runs import RunDir, RunDirError
     rd = RunDir(args.dir).require()
@@ -106,6 +128,9 @@ def cmd_stop(args) -> int:
 
 
 def cmd_report(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_report(args)
     from baggr.cli import report
     r = report.load(args.dir)
     if args.json:
