@@ -190,16 +190,16 @@ def build_parser() -> Parser:
              "Continue a stopped, failed or crashed run from its last checkpoint; the result is bit-identical "
              "to a run never interrupted. The data file must be unchanged. A finished run is left as it is "
              "(exit 0).")
-    rs.add_argument("dir", metavar="DIR", help="the run directory")
+    rs.add_argument("dir", metavar="DIR", help="the run directory (or comparison directory)")
     rs.set_defaults(func=cmd_resume)
 
     w = add("watch", "attach the dashboard to a run (running or not)", "baggr watch runs/firings-20250101-120000")
-    w.add_argument("dir", metavar="DIR", help="the run directory")
+    w.add_argument("dir", metavar="DIR", help="the run directory (a comparison directory: a line a round)")
     w.set_defaults(func=cmd_watch)
 
     s = add("stop", "ask a running job to finish the member in hand, save and stop",
             "baggr stop runs/firings-20250101-120000 --wait")
-    s.add_argument("dir", metavar="DIR", help="the run directory")
+    s.add_argument("dir", metavar="DIR", help="the run directory (a comparison directory: all its candidates)")
     s.add_argument("--wait", action="store_true", help="wait until the job has stopped")
     s.set_defaults(func=cmd_stop)
 
@@ -208,7 +208,7 @@ def build_parser() -> Parser:
              description="Print a run's OOB error with its interval, per-class errors, the confusion counts, "
                          "coverage, where the curve settled, members, time, settings and the data fingerprint. "
                          "Works on a finished run (model.npz), an unfinished one (its checkpoint) or a model file.")
-    rp.add_argument("dir", metavar="DIR", help="a run directory or a model file")
+    rp.add_argument("dir", metavar="DIR", help="a run directory, a model file, or a comparison directory (ranked)")
     rp.add_argument("--json", action="store_true", help="print one JSON object instead of tables")
     rp.add_argument("--measure", default=None, metavar="NAME",
                     help="a comparison directory: the figure to rank by (default: the comparison's own)")
