@@ -7,6 +7,7 @@ import os
 import signal
 import subprocess
 import sys
+import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
@@ -57,11 +58,14 @@ def members_of(rd) -> int:
     return ms[-1] if ms else 0
 
 
+_STDOUT = threading.Lock()     # redirect_stdout swaps sys.stdout for the whole process: one at a time
+
+
 def cli_json(*args):
     import contextlib
     import io
     buf = io.StringIO()
-    with contextlib.redirect_stdout(buf):
+    with _STDOUT, contextlib.redirect_stdout(buf):
         code = cli.main([str(a) for a in args])
     assert code == 0
     return json.loads(buf.getvalue())
@@ -70,7 +74,7 @@ def cli_json(*args):
 def quiet(*args) -> int:
     import contextlib
     import io
-    with contextlib.redirect_stdout(io.StringIO()):
+    with _STDOUT, contextlib.redirect_stdout(io.StringIO()):
         return cli.main([str(a) for a in args])
 
 
@@ -382,3 +386,51 @@ def test_shared_draws_give_a_smaller_paired_standard_error():
                 differ[kind] += int(np.sum(pa_ != pb_))
     assert np.mean(se["same"]) < np.mean(se["other"])
     assert differ["same"] < differ["other"]
+
+
+def test_trees_set_aside_come_back_bit_identical():
+    """What a comparison does to the candidates not growing: their trees leave memory and are read back at the end."""
+    from baggr.engine import Training
+    X, y = twonorm(500, 1)
+    whole = Training(X, y, Config(members=20, seed=3, threads=2)).run()
+    tr = Training(X, y, Config(members=20, seed=3, threads=2))
+    tr.run(until=8)
+    earlier = list(tr.trees)
+    tr.set_aside(8)
+    assert tr.trees == [] and tr.trees_base == 8
+    assert tr.run() is None and len(tr.trees) == 12
+    a, b = whole.forest.arrays, tr.ensemble(earlier).forest.arrays
+    assert sorted(a) == sorted(b) and all(np.array_equal(a[k], b[k]) for k in a)
+
+
+def test_a_comparison_holds_in_memory_only_the_trees_not_yet_on_disk(medium, reference, tmp_path):
+    """After every round, the candidates hold at most two blocks of trees in memory (the rest are in
+    their chunk files), so a comparison needs about one candidate's trees of memory, not all of
+    them; the models written at the end are still the uninterrupted comparison's."""
+    from baggr.runs import RunSettings, comparison, fingerprint
+    from baggr.runs.compare_job import ComparisonJob
+    _, data = medium
+    cmp = comparison.create_comparison(tmp_path / "cmp", data=fingerprint(data), target="label",
+                                       base=Config(members=MEMBERS, threads=2),
+                                       candidates=[{"features_per_split": k} for k in FPS],
+                                       settings=RunSettings(checkpoint_members=4, checkpoint_budget=None), block=BLOCK)
+    held = []
+
+    class Probe:
+        def begin(self, f):
+            pass
+
+        def note(self, text):
+            pass
+
+        def end(self, f):
+            pass
+
+        def round(self, f):
+            held.append(max(len(j.training.trees) for j in job.jobs))
+
+    job = ComparisonJob(cmp, Probe(), verify=False)
+    assert job.run().status == "finished"
+    assert len(held) == MEMBERS // BLOCK and max(held) <= 2 * BLOCK
+    for name in NAMES:
+        assert_same_model(cmp.path / name / MODEL, reference / name / MODEL)

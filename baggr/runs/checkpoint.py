@@ -97,7 +97,10 @@ class Checkpointer:
         self.writes += 1
         self.last_started = m
         kept = self.chunks[-1][1] if self.chunks else 0
-        trees = list(tr.trees[kept:m]) if tr.config.keep_members and m > kept else []
+        base = tr.trees_base          # trees before it were set aside: they are in chunk files already
+        if tr.config.keep_members and kept < base:
+            raise ValueError(f"trees from member {kept} on were set aside before a checkpoint stored them")
+        trees = list(tr.trees[kept - base:m - base]) if tr.config.keep_members and m > kept else []
         arrays, header = tr.checkpoint()
         arrays = {k: np.array(v, copy=True) for k, v in arrays.items()}   # the tallies move on meanwhile
         if tr.prep.task == "classes":
@@ -198,6 +201,12 @@ class Checkpointer:
         self.last_started = self.member
         self._drop_unreferenced()
         return True
+
+    def stored_trees(self, upto: int) -> list:
+        """The kept trees of members 0..upto-1 read back from the chunk files of the latest checkpoint."""
+        if self.chunks and self.chunks[-1][1] >= upto:
+            return self._load_chunks(self.chunks, self.training.prep.codes.shape[0])[:upto]
+        raise ModelFileError(f"{self.rd.path}: the chunk files hold fewer than {upto} members")
 
     def _load_chunks(self, chunks, n_features: int) -> list:
         from baggr.model.forest import Forest

@@ -133,6 +133,8 @@ class ComparisonJob:
 
         for i, job in enumerate(self.jobs):
             self.outcomes[i] = job.open(prepared=prepared_for)
+            if self.outcomes[i] is None:
+                job.set_aside()      # a resumed candidate's trees are on disk: one candidate's in memory at a time
         X = y = None          # the table is binned: only the codes live on
         if prepared and self.cmp.measure:
             from baggr.oob.ranking import check_measure
@@ -179,6 +181,9 @@ class ComparisonJob:
                 job.advance(until, should_stop=self._should_stop)
                 if job.done:      # saved now: its model can be used while the others grow
                     self.outcomes[i] = job.conclude()
+                for j in active:  # the waiting candidates' trees go to disk and leave memory
+                    if self.outcomes[j] is None and not self._should_stop():
+                        self.jobs[j].set_aside()
                 if self._should_stop():
                     break
             fields = self._round_fields(until)

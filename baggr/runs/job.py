@@ -262,6 +262,17 @@ class Job:
 
         tr.run(on_member=on_member, should_stop=stop_now, until=until)
 
+    def set_aside(self) -> None:
+        """Free the memory of the kept trees already in the checkpoint's files (a comparison does this
+        for the candidates not growing); starts a checkpoint of the newer ones in the background."""
+        tr, ck = self.training, self.checkpointer
+        if tr is None or not tr.config.keep_members:
+            return
+        ck.poll()
+        tr.set_aside(ck.member)
+        if tr.next_member > ck.last_started and not ck.busy:
+            ck.write()
+
     def conclude(self) -> Outcome:
         """Save and write the end line: finished when done, else stopped (with a checkpoint)."""
         tr = self.training
@@ -287,7 +298,8 @@ class Job:
             self.progress.begin(fields)
 
     def _save_model(self, tr) -> None:
-        ens = tr.ensemble()
+        earlier = self.checkpointer.stored_trees(tr.trees_base) if tr.trees_base else ()
+        ens = tr.ensemble(earlier)
         try:
             ens.save(self.rd / MODEL)
         except BaggrError as e:
