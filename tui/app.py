@@ -71,8 +71,10 @@ class Dashboard(App):
         Binding("question_mark", "help", "keys"),
     ]
 
-    def __init__(self, run_dir, *, get_time=time.time, poll: float = TAIL_POLL, opening=None):
+    def __init__(self, run_dir, *, get_time=time.time, poll: float = TAIL_POLL, opening=None, back: bool = False):
         super().__init__()
+        if back:   # opened from a comparison's board: Escape goes back to it
+            self.bind("escape", "back", description="back to the comparison")
         self.run_dir = Path(run_dir)
         self.get_time = get_time
         self.tail = Tail(self.run_dir, self.post_message, poll=poll, opening=opening)
@@ -219,6 +221,9 @@ class Dashboard(App):
             self.panel(ConfusionPanel).show(view, room=self.size.width - 50)
 
     # -- keys
+
+    def action_back(self) -> None:
+        self.exit("back")
 
     def action_log_scale(self) -> None:
         self.log_x = not self.log_x

@@ -200,16 +200,26 @@ def cmd_watch(args) -> int:
 
 
 def watch(cmp) -> int:
-    """Follow a comparison with a line a round until it ends (Ctrl-C leaves it running).
-
-    The dashboard's comparison view is not built yet: a candidate's own dashboard is
-    `baggr watch DIR/<candidate>`."""
+    """The comparison's board on a terminal (every candidate's curve, the ranked table; Enter opens a
+    candidate's dashboard), else a line a round until it ends (Ctrl-C leaves it running)."""
     rd = cmp.rundir()
-    progress = CompareProgress(sys.stdout)
-    try:
-        end = follow(rd.path, progress, is_done=lambda: rd.state()[1] not in ("running", "waiting"))
-    except KeyboardInterrupt:
-        end = None
+    end = None
+    board = None
+    if sys.stdout.isatty():
+        import importlib.util
+        try:
+            if importlib.util.find_spec("tui.compare") is not None:
+                from tui import watch_comparison as board
+        except (ImportError, ValueError):
+            board = None
+    if board is not None:
+        board(str(rd.path))
+    else:
+        progress = CompareProgress(sys.stdout)
+        try:
+            end = follow(rd.path, progress, is_done=lambda: rd.state()[1] not in ("running", "waiting"))
+        except KeyboardInterrupt:
+            end = None
     st, status = rd.state()
     if status == "running":
         say(f"the comparison goes on in the background (pid {st.pid}); follow it with: baggr watch {rd.path}")
