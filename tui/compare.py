@@ -144,6 +144,7 @@ class Board(App):
     """
     BINDINGS = [
         Binding("q", "quit", "leave"),
+        Binding("ctrl+c", "quit", "leave", show=False),     # leaves the board; the comparison goes on
         Binding("up,k", "move(-1)", "up", show=False),
         Binding("down,j", "move(1)", "down", show=False),
         Binding("enter", "open", "open candidate"),
