@@ -149,26 +149,37 @@ class Training:
         for t in later:
             self.trees.append(self._keep(t))
 
-    def forest(self, earlier=()) -> Forest | None:
-        """The kept trees as a Forest: views of the arena, or (without one, or with trees set aside,
-        given back as `earlier`: the trees of members 0..trees_base-1) packed now, a copy."""
+    def take_back(self, earlier) -> None:
+        """Take the trees set aside back into a fresh arena, in member order; earlier: the trees of
+        members 0..trees_base-1 (an iterable, read chunk by chunk: memory for one set of trees)."""
+        if not self.trees_base:
+            return
+        later, n = self.trees, 0
+        self.trees, self._arena = [], self._new_arena()
+        for t in earlier:
+            self.trees.append(self._keep(t))
+            n += 1
+        if n != self.trees_base:
+            raise ValueError(f"{self.trees_base} trees were set aside, {n} given back")
+        for t in later:
+            self.trees.append(self._keep(t))
+        self.trees_base = 0
+
+    def forest(self) -> Forest | None:
+        """The kept trees as a Forest: views of the arena, or (without one) packed now, a copy."""
         if not self.config.keep_members:
             return None
         if self.trees_base:
-            earlier = list(earlier)
-            if len(earlier) != self.trees_base:
-                raise ValueError(f"{self.trees_base} trees were set aside, {len(earlier)} given back")
-            return Forest.pack(earlier + self.trees, self.n_out)
+            raise ValueError("trees were set aside: take them back first (take_back)")
         if self._arena is not None:
             return self._arena.forest()
         return Forest.pack(self.trees, self.n_out)
 
-    def ensemble(self, earlier=()) -> Ensemble:
-        """The Ensemble so far; earlier: the trees set aside (see set_aside), if any."""
+    def ensemble(self) -> Ensemble:
         p = self.prep
         stats = dict(self.stats, seconds=self.elapsed)
-        return Ensemble(p.schema, p.binning, self.config, self.forest(earlier),
-                        OOB.from_tally(self.tally, p.schema.classes), stats)
+        return Ensemble(p.schema, p.binning, self.config, self.forest(), OOB.from_tally(self.tally, p.schema.classes),
+                        stats)
 
     # -- checkpoints -----------------------------------------------------------------------------
     def checkpoint(self) -> tuple[dict, dict]:

@@ -108,7 +108,6 @@ def main():
     from baggr.config import Config
     from baggr.data.prepared import prepare
     from baggr.data.table import read_table
-    read_table(data, "y")
     with PeakRSS() as mem:
         t0 = time.perf_counter()
         Xt, yt = read_table(data, "y")

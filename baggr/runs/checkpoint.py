@@ -202,29 +202,42 @@ class Checkpointer:
         self._drop_unreferenced()
         return True
 
-    def stored_trees(self, upto: int) -> list:
-        """The kept trees of members 0..upto-1 read back from the chunk files of the latest checkpoint."""
-        if self.chunks and self.chunks[-1][1] >= upto:
-            return self._load_chunks(self.chunks, self.training.prep.codes.shape[0])[:upto]
-        raise ModelFileError(f"{self.rd.path}: the chunk files hold fewer than {upto} members")
+    def stored_trees(self, upto: int):
+        """The kept trees of members 0..upto-1, read back from the latest checkpoint's chunk files one
+        file at a time (a generator: a file's trees are let go once the caller has copied them)."""
+        n = 0
+        for c in self.chunks:
+            if n >= upto:
+                break
+            for t in self._read_chunk(c, n, self.training.prep.codes.shape[0]).unpack():
+                if n >= upto:
+                    break
+                yield t
+                n += 1
+        if n < upto:
+            raise ModelFileError(f"{self.rd.path}: the chunk files hold fewer than {upto} members")
 
     def _load_chunks(self, chunks, n_features: int) -> list:
-        from baggr.model.forest import Forest
         trees, at = [], 0
         for c in chunks:
-            if not (isinstance(c, list) and len(c) == 3 and c[0] == at and c[1] > c[0] and isinstance(c[2], str)
-                    and c[2] == _chunk_name(c[0], c[1])):
-                raise ModelFileError(f"{self.rd / CHECKPOINT}: its list of member files is damaged")
-            h, a = npzfile.read(self.rd / c[2], "members file")
-            if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
-                raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
-            forest = Forest(a)
-            forest.validate(n_features, self.training.n_out)
-            if forest.members != c[1] - c[0]:
-                raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
-            trees.extend(forest.unpack())
+            trees.extend(self._read_chunk(c, at, n_features).unpack())
             at = c[1]
         return trees
+
+    def _read_chunk(self, c, at: int, n_features: int):
+        """One chunk file's Forest, checked against the checkpoint's list (it must start at member `at`)."""
+        from baggr.model.forest import Forest
+        if not (isinstance(c, list) and len(c) == 3 and c[0] == at and c[1] > c[0] and isinstance(c[2], str)
+                and c[2] == _chunk_name(c[0], c[1])):
+            raise ModelFileError(f"{self.rd / CHECKPOINT}: its list of member files is damaged")
+        h, a = npzfile.read(self.rd / c[2], "members file")
+        if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
+            raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
+        forest = Forest(a)
+        forest.validate(n_features, self.training.n_out)
+        if forest.members != c[1] - c[0]:
+            raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
+        return forest
 
     def _drop_unreferenced(self) -> None:
         """Remove what a killed job left half done: chunk files its checkpoint never named, temp files."""

@@ -181,6 +181,7 @@ class ComparisonJob:
                 job.advance(until, should_stop=self._should_stop)
                 if job.done:      # saved now: its model can be used while the others grow
                     self.outcomes[i] = job.conclude()
+                    job.training.set_aside(job.training.next_member)   # its trees are in model.npz
                 for j in active:  # the waiting candidates' trees go to disk and leave memory
                     if self.outcomes[j] is None and not self._should_stop():
                         self.jobs[j].set_aside()

@@ -298,8 +298,9 @@ class Job:
             self.progress.begin(fields)
 
     def _save_model(self, tr) -> None:
-        earlier = self.checkpointer.stored_trees(tr.trees_base) if tr.trees_base else ()
-        ens = tr.ensemble(earlier)
+        if tr.trees_base:       # a comparison set them aside: back from the chunk files, file by file
+            tr.take_back(self.checkpointer.stored_trees(tr.trees_base))
+        ens = tr.ensemble()
         try:
             ens.save(self.rd / MODEL)
         except BaggrError as e:
