@@ -2,7 +2,6 @@
 seed, stopped and resumed as one, and a ranked report whose paired tests are checked against scipy
 and whose rankings are checked against 20,000 fresh rows of published generators."""
 import json
-import math
 import os
 import signal
 import subprocess

@@ -6,10 +6,8 @@ import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
-
 from baggr.errors import ConfigError, ModelFileError
-from baggr.runs import RunDirError, fmt_seconds
+from baggr.runs import RunDirError
 
 MANY = 5      # from this many candidates on, the winner's curse deserves a hold-out check
 
@@ -38,7 +36,7 @@ def members_needed(r) -> tuple[int | None, str]:
     return (settled_at(r.oob.curve, *iv) if iv is not None else None), "settled_at"
 
 
-def _targets(path: Path, n_runs: int):
+def _targets(path: Path):
     from baggr.model import npzfile
     from baggr.runs.comparison import TARGETS
     f = path / TARGETS
@@ -58,7 +56,7 @@ def load(path, measure: str | None = None) -> ComparisonReport:
     cmp = comparison.read(path)
     rd = cmp.rundir()
     st, status = rd.state()
-    y, task = _targets(cmp.path, len(cmp.candidates))
+    y, task = _targets(cmp.path)
     if y is None:
         raise RunDirError(f"{cmp.path} has no figures yet ({status}): the comparison has not read its data; "
                           f"follow it with: baggr watch {cmp.path}")

@@ -16,7 +16,7 @@ import numpy as np
 from baggr.config import Config
 from baggr.errors import BaggrError, ConfigError
 from baggr.runs.comparison import TARGETS, Comparison
-from baggr.runs.files import JOURNAL, MODEL, STOP, write_error
+from baggr.runs.files import JOURNAL, STOP, write_error
 from baggr.runs.job import Job, Outcome, _terminate_torn_line, fmt_seconds
 from baggr.runs.journal_writer import JournalWriter
 from baggr.runs.rundir import check_data
@@ -299,7 +299,3 @@ class ComparisonJob:
         if self.progress is not None:
             self.progress.end({"status": status, "reason": reason, "members": members})
 
-
-def finished_models(cmp: Comparison) -> list[bool]:
-    """Which candidates hold a model file."""
-    return [(rd / MODEL).exists() for rd in cmp.run_dirs()]
