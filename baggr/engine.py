@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import collections
 import time
+import warnings
 
 import numpy as np
 
@@ -11,6 +12,7 @@ from baggr.backends.base import Backend
 from baggr.backends.member import Grower
 from baggr.backends.threads import Threads
 from baggr.data.prepared import Prepared, prepare
+from baggr.data.table import read_table
 from baggr.model.arena import Arena
 from baggr.config import Config
 from baggr.errors import ConfigError, ModelFileError
@@ -41,11 +43,12 @@ _malloc_trim = None
 class Training:
     """A run in progress: grows members from `next_member` on, folding each into the tallies."""
 
-    def __init__(self, X, y, config: Config, *, prepared: Prepared | None = None, target: str | None = None):
+    def __init__(self, X, y, config: Config, *, prepared: Prepared | None = None, target: str | None = None,
+                 missing_target: str = "drop"):
         if not isinstance(config, Config):
             raise ConfigError("config must be a baggr.Config")
         self.config = config
-        self.prep = prepared or prepare(X, y, config, target=target)
+        self.prep = prepared or prepare(X, y, config, target=target, missing_target=missing_target)
         self.grower = Grower(self.prep, config)
         self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
                            max(1, self.prep.n_classes), config.vote, capacity=config.members)
@@ -56,7 +59,8 @@ class Training:
         self._arena = self._new_arena()
         self.elapsed = 0.0
         self.stats = {"visits": 0, "nodes": 0, "grow_seconds": 0.0, "fold_seconds": 0.0,
-                      "keep_seconds": 0.0, "members": 0}
+                      "keep_seconds": 0.0, "members": 0, "missing_target": self.prep.missing_target}
+        self.warm_up_seconds = 0.0   # compiling or loading the kernels before the first member (not in elapsed)
 
     @property
     def next_member(self) -> int:
@@ -69,6 +73,7 @@ class Training:
         backend: where members grow (default: local threads, config.threads of them).
         """
         target = self.config.members if until is None else until
+        self.warm_up()
         backend = backend or Threads(self.config.resolved_threads())
         start, t_run = self.next_member, time.perf_counter()
         elapsed0 = self.elapsed
@@ -113,6 +118,33 @@ class Training:
         else:
             ev.r2 = t.r2()
         return ev
+
+    def warm_up(self) -> float:
+        """Grow a member on a few rows of this table first: compiling the kernels (once per machine)
+        or loading them (once per process) then stays out of the training figures (elapsed and
+        members/s). Once per process and kind of run; returns its seconds (0 when done before)."""
+        p, cfg = self.prep, self.config
+        y = p.y_class if p.task == "classes" else p.y_value
+        key = (p.task, cfg.vote, cfg.resolved_criterion(p.task), cfg.draw, cfg.keep_members,
+               bool(np.any(p.binning.is_cat)), min(p.n_classes, 3), p.codes.flags.writeable, y.flags.writeable)
+        if key in _WARM:
+            return 0.0
+        _WARM.add(key)
+        t0 = time.perf_counter()
+        n = p.n_rows
+        if p.task == "classes":   # a few rows of every class, so every class's draw works
+            rows = np.unique(np.concatenate([np.arange(min(n, 32))] +
+                                            [np.flatnonzero(p.y_class == c)[:4] for c in range(p.n_classes)]))
+        else:
+            rows = np.arange(min(n, 48))
+        # the same dtypes, layouts and read-only flags as the table's own arrays: the same compiled code
+        small = Prepared(p.schema, p.binning, _alike(p.codes[:, rows], p.codes),
+                         _alike(p.y_class[rows], p.y_class) if p.task == "classes" else p.y_class,
+                         _alike(p.y_value[rows], p.y_value) if p.task == "regression" else p.y_value, p.task)
+        Training(None, None, cfg.replace(members=2, threads=1), prepared=small).run(backend=Threads(1))
+        seconds = time.perf_counter() - t0
+        self.warm_up_seconds += seconds
+        return seconds
 
     @property
     def n_out(self) -> int:
@@ -219,6 +251,63 @@ class Training:
                 self.stats[k] = type(self.stats[k])(v)
 
 
-def train(X, y, config: Config | None = None, on_member=None) -> Ensemble:
-    """Train a bagged tree ensemble and its OOB estimate in one pass; on_member(event) after every member."""
-    return Training(X, y, config or Config()).run(on_member=on_member)
+_WARM: set = set()   # kinds of run warmed up in this process (Training.warm_up)
+
+
+def _alike(part: np.ndarray, whole: np.ndarray) -> np.ndarray:
+    """A C-contiguous copy of part, read-only when whole is (numba compiles each flag apart)."""
+    out = np.ascontiguousarray(part)
+    if not whole.flags.writeable:
+        out.flags.writeable = False
+    return out
+
+
+# CPU seconds a first run spends compiling the kernels, on one core of the project's 2-core VM
+# (bench/first_run.py, bench/README.md): all of them, or one task's share when the other task's are on disk.
+COMPILE_ALL = 15.0
+COMPILE_TASK = 9.0
+
+
+def compile_seconds(task: str | None) -> float:
+    """About how long the kernels a training of this task runs take to compile here: 0 when numba's
+    cache holds them (a cheap look at its index), else the measured CPU time stretched by the load
+    (a busy machine lends the compiler only part of a core)."""
+    from baggr import jit
+    from baggr.learn.tree_kernels import grow_kernel
+    from baggr.oob import tally_kernels as tk
+    if not jit.cached(grow_kernel):
+        cpu = COMPILE_ALL
+    elif task == "regression":
+        cpu = 0.0 if jit.cached(tk.fold_regression) else COMPILE_TASK
+    else:
+        cpu = 0.0 if jit.cached(tk.fold_two_hard) or jit.cached(tk.fold_classes) else COMPILE_TASK
+    if cpu:
+        import os
+        try:
+            busy = os.getloadavg()[0] / (os.cpu_count() or 1)
+        except OSError:
+            busy = 1.0
+        cpu *= min(4.0, max(1.0, busy))
+    return cpu
+
+
+def train(X, y, config: Config | None = None, on_member=None, *, drop=None, only=None,
+          missing_target: str = "drop") -> Ensemble:
+    """Train a bagged tree ensemble and its OOB estimate in one pass; on_member(event) after every member.
+
+    drop / only: column names of X to leave out / to keep (the command's --drop and --only).
+    missing_target: "drop" (the default) leaves out rows whose target is missing, with a warning
+    giving their count (also in ensemble.stats["missing_target"]); "refuse" raises a DataError.
+    """
+    if drop or only:
+        X = read_table(X, drop=drop, only=only)
+    tr = Training(X, y, config or Config(), missing_target=missing_target)
+    if tr.prep.missing_target:
+        warnings.warn(missing_target_text(tr.prep.missing_target, tr.prep.n_rows), stacklevel=2)
+    return tr.run(on_member=on_member)
+
+
+def missing_target_text(missing: int, rows: int, target: str | None = None) -> str:
+    """The one line that says how many rows were left out for a missing target."""
+    what = f"target {target!r}" if target else "target"
+    return f"left out {missing} of {missing + rows} rows whose {what} is missing"

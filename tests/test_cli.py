@@ -127,12 +127,77 @@ def test_report_tables_say_the_figures_and_the_cautions(run):
     fig = json.loads(baggr("report", rd, "--json").stdout)
     text = r.stdout
     assert "\x1b" not in text
-    assert f"{fig['oob_error']:.4f}" in text and "95% interval" in text
-    assert all(c in text for c in ("Per class", "Confusion", "Read with care", "Settled at", fig["data"]["sha256"]))
+    # percentages in the text, fractions in the JSON (issue 15)
+    lo, hi = fig["interval"]
+    assert f"{100 * fig['oob_error']:.2f}%" in text and f"{100 * lo:.2f}-{100 * hi:.2f}%" in text
+    assert 0 <= fig["oob_error"] <= 1 and 0 <= fig["coverage"] <= 1
+    assert all(c in text for c in ("Per class", "Read with care", "Settled at", fig["data"]["sha256"]))
     flat = " ".join(text.split())                                     # the cautions wrap to the width
     assert "patient" in flat and "drift" in flat and "affect people" in flat and "overstates the error" in flat
-    conf = fig["confusion"]
-    assert re.search(rf"\bno\s+{conf[0][0]}\s+{conf[0][1]}\b", text)   # the confusion row of class "no"
+    assert not [ln for ln in text.splitlines() if ln != ln.rstrip()]   # no line ends in spaces
+
+
+def test_report_gives_each_class_its_figures_and_where_its_votes_went(run):
+    # Every fact of the per-class table and the confusion matrix, each class in words (issue 15):
+    # its error, interval, rows, share, then "N judged: R right · C as OTHER".
+    rd, _ = run
+    fig = json.loads(baggr("report", rd, "--json").stdout)
+    lines = baggr("report", rd).stdout.splitlines()
+    total = sum(fig["class_rows"])
+    for k, name in enumerate(fig["classes"]):
+        i = next(i for i, ln in enumerate(lines) if ln.split()[:2] == [name, "error"])
+        first, votes = " ".join(lines[i].split()), " ".join(lines[i + 1].split())
+        lo, hi = fig["class_interval"][k]
+        assert f"error {100 * fig['class_error'][k]:.2f}%" in first
+        assert f"95% {100 * lo:.2f}-{100 * hi:.2f}%" in first
+        assert f"{fig['class_rows'][k]:,} rows {100 * fig['class_rows'][k] / total:.1f}% of all" in first
+        row = fig["confusion"][k]
+        other = [(c, fig["classes"][j]) for j, c in enumerate(row) if j != k]
+        assert votes == f"{sum(row):,} judged: {row[k]:,} right · " + " · ".join(f"{c:,} as {n}" for c, n in other)
+    # the error by ensemble size, each beside its interval drawn on one scale
+    size = next(ln for ln in lines if ln.split()[:1] == ["40"])
+    assert f"{100 * fig['curve'][39]:.2f}%" in size and "●" in size and "├" in size and "┤" in size
+
+
+def test_report_of_a_running_job_shows_the_journals_latest_figures(files, tmp_path):
+    # The job dies at member 47 with its checkpoints every 20; its start line is then given this
+    # process's pid, so the run reads as running (job_status checks the pid and its start time).
+    import psutil
+    rd = tmp_path / "live"
+    r = baggr("train", files["small"], "--target", "label", "--members", 60, "--run-dir", rd, "--no-ui",
+              "--checkpoint-every", 20, env={"BAGGR_FAULT_KILL": "member:47"})
+    assert r.returncode != 0
+    me = psutil.Process()
+    lines = [json.loads(x) for x in (rd / "journal.jsonl").read_text().splitlines()]
+    for ev in lines:
+        if ev["event"] == "start":
+            ev.update(pid=me.pid, pid_started=me.create_time())
+    (rd / "journal.jsonl").write_text("".join(json.dumps(ev) + "\n" for ev in lines))
+    last = [ev for ev in lines if ev["event"] == "member"][-1]
+    assert last["member"] == 47
+    fig = json.loads(baggr("report", rd, "--json").stdout)
+    ck = fig["checkpoint"]["member"]
+    assert fig["status"] == "running" and fig["source"] == "checkpoint" and ck in (20, 40)
+    assert fig["members"] == ck and len(fig["curve"]) == ck           # the checkpoint's own figures, as they were
+    latest = fig["latest"]                                            # and the journal's latest line beside them
+    assert latest["members"] == 47 and latest["oob_error"] == last["error"] and latest["interval"] == last["interval"]
+    assert latest["confusion"] == last["confusion"]
+    text = baggr("report", rd).stdout
+    flat = " ".join(text.split())
+    assert "47 of 60 so far" in flat and "Out-of-bag estimate at 47 members" in flat
+    assert f"{100 * last['error']:.2f}%" in flat
+    for k, name in enumerate(fig["classes"]):
+        assert f"{name} error {100 * last['class_error'][k]:.2f}%" in flat
+    assert f"From the checkpoint at {ck} members (written" in flat and "by ensemble size (checkpoint)" in flat
+
+
+def test_watch_without_a_terminal_says_so_in_one_line_and_exits(run):
+    # Piped, the dashboard wrote full-screen escape codes into the pipe and never ended (issue 15).
+    rd, _ = run
+    r = baggr("watch", rd, timeout=60)
+    assert r.returncode == 2 and r.stdout == "" and "\x1b" not in r.stderr
+    assert r.stderr.count("\n") == 1 and r.stderr.startswith("baggr: error: ")
+    assert "needs a terminal" in r.stderr and f"baggr report {rd}" in r.stderr
 
 
 # ---------------------------------------------------------------- predict
@@ -289,7 +354,7 @@ def _bad_files(d: Path, run_dir: Path):
         ("not parquet", (*t, garbage, *L), "not a readable Parquet"),
         ("unknown target", (*t, small, "--target", "nope"), "target column 'nope' not found"),
         ("one class", (*t, one, *L), "only one class"),
-        ("NaN in target", (*t, nan, "--target", "y"), "missing values"),
+        ("NaN in target", (*t, nan, "--target", "y", "--missing-target", "refuse"), "missing values"),
         ("identifier", (*t, ident, *L), "looks like an identifier"),
         ("wrong delimiter", (*t, semi, *L), "delimiter"),
         ("ragged", (*t, ragged, *L), "ragged rows"),
@@ -297,7 +362,7 @@ def _bad_files(d: Path, run_dir: Path):
         ("members 0", (*t, small, *L, "--members", "0"), "members must be a whole number >= 1"),
         ("members text", (*t, small, *L, "--members", "lots"), "invalid int value: 'lots'"),
         ("features too many", (*t, small, *L, "--features-per-split", "99"),
-         "features_per_split is 99 but the table has only 4 features"),
+         "--features-per-split is 99 but the table has only 4 features"),
         ("run dir not writable", (*t, small, *L, "--run-dir", afile / "sub"), "cannot create the run directory"),
         ("run dir exists", (*t, small, *L, "--run-dir", run_dir), "already exists (use --force"),
         ("force on a non-run folder", (*t, small, *L, "--run-dir", d, "--force"), "is not a baggr run directory"),

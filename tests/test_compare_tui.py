@@ -59,6 +59,7 @@ def test_a_candidates_dashboard_opened_from_the_board_goes_back_with_escape(comp
         app = Dashboard(candidate_dir(comparison, 2), back=True)
         async with app.run_test(size=(100, 32)) as pilot:
             await settle(pilot, app, lambda: app.first_full_draw is not None)
+            assert "Esc back to the comparison" in screen_text(app)      # its caption, on the top line
             await pilot.press("escape")
             await pilot.pause()
         return app.return_value

@@ -3,6 +3,7 @@ import json
 import subprocess
 import sys
 import zipfile
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -10,6 +11,8 @@ import pytest
 import baggr
 from baggr.model import npzfile
 from generators import waveform
+
+DATA = Path(__file__).parent / "data"
 
 
 @pytest.fixture(scope="module")
@@ -51,7 +54,7 @@ def test_another_process_gives_the_same_model(trained, tmp_path):
     )
     subprocess.run([sys.executable, "-c", script], check=True, timeout=300)
     other = baggr.load(tmp_path / "other.npz")
-    for k, v in ens.forest.arrays.items():
+    for k, v in ens.compact.arrays.items():
         np.testing.assert_array_equal(v, other.forest.arrays[k], err_msg=k)
     np.testing.assert_array_equal(other.oob.curve, ens.oob.curve)
 
@@ -100,7 +103,7 @@ def test_flipped_bytes_never_crash(trained, tmp_path):
 
 @pytest.mark.parametrize("what", ["child_out_of_range", "cycle", "self_loop", "feature_out_of_range",
                                   "wrong_dtype", "missing_array", "bad_mask_index", "nan_value"])
-def test_hostile_trees_are_refused(trained, tmp_path, what):
+def test_hostile_version_1_trees_are_refused(tmp_path, what):
     def change(header, a):
         inner = np.flatnonzero(a["tree_left"] >= 0)
         i = int(inner[1])
@@ -117,9 +120,87 @@ def test_hostile_trees_are_refused(trained, tmp_path, what):
         elif what == "missing_array":
             del a["tree_value"]
         elif what == "bad_mask_index":
-            a["tree_is_cat"][i] = 1
+            cat = np.flatnonzero(a["tree_is_cat"] == 1)
+            a["tree_threshold"][cat[0]] = 10 ** 5
         elif what == "nan_value":
             a["tree_value"][0, 0] = np.nan
+    bad = tmp_path / "bad.npz"
+    _rewrite(DATA / "v1_hard.npz", bad, change)
+    with pytest.raises(baggr.ModelFileError):
+        baggr.load(bad)
+
+
+def _tree0(a):
+    """(slot, record, is_inner) of every node of member 0 of a version-2 file, from its root (the
+    layout of baggr/model/compact_kernels.py decoded by hand: a leaf points at itself, threshold 255)."""
+    nodes = a["tree_nodes"]
+    out, todo = [], [0]
+    while todo:
+        v = todo.pop()
+        r = int(nodes[v])
+        inner = not (r & 0xFFFFFFFF == v and (r >> 36) & 255 == 255)
+        out.append((v, r, inner))
+        if inner:
+            c = r & 0xFFFFFFFF
+            todo += [c, c + 1]
+    return sorted(out)
+
+
+def _set(a, v, r):
+    a["tree_nodes"] = a["tree_nodes"].copy()
+    a["tree_nodes"][v] = np.uint64(r)
+
+
+@pytest.mark.parametrize("what", ["child_out_of_range", "cycle", "self_loop", "feature_out_of_range", "shared_child",
+                                  "threshold_out_of_range", "categorical_flag", "leaf_class", "leaf_number",
+                                  "leaf_elsewhere", "wrong_dtype", "missing_array", "offsets", "leaf_offsets",
+                                  "orphan_slot", "kind"])
+def test_hostile_trees_are_refused(trained, tmp_path, what):
+    def change(header, a):
+        nodes = _tree0(a)
+        inner = [(v, r) for v, r, i in nodes if i]
+        leaves = [(v, r) for v, r, i in nodes if not i]
+        (v, r), (v2, r2) = inner[1], inner[2]
+        low, high = r & 0xFFFFFFFF, r & ~0xFFFFFFFF
+        if what == "child_out_of_range":
+            _set(a, v, high | 10 ** 6)
+        elif what == "cycle":
+            _set(a, v, high | 0)  # points back at the root
+        elif what == "self_loop":
+            _set(a, v, high | v)  # an inner node pointing at itself (a walk would never end)
+        elif what == "feature_out_of_range":
+            _set(a, v, (r & ((1 << 44) - 1)) | (99 << 44))
+        elif what == "shared_child":
+            _set(a, v2, (r2 & ~0xFFFFFFFF) | low)
+        elif what == "threshold_out_of_range":
+            _set(a, v, (r & ~(255 << 36)) | (254 << 36) | (1 << 32))  # a categorical split with a threshold
+        elif what == "categorical_flag":
+            _set(a, v, r | (1 << 32))
+        elif what == "leaf_class":
+            a["tree_leaves"] = a["tree_leaves"].copy()
+            a["tree_leaves"][0] = 3
+        elif what == "leaf_number":
+            lv, lr = leaves[0]
+            _set(a, lv, lr ^ (1 << 44))
+        elif what == "leaf_elsewhere":
+            lv, lr = leaves[0]
+            _set(a, lv, (lr & ~0xFFFFFFFF) | (lv + 1))  # a leaf record that does not point at itself
+        elif what == "wrong_dtype":
+            a["tree_nodes"] = a["tree_nodes"].astype(np.int64)
+        elif what == "missing_array":
+            del a["tree_leaf_offset"]
+        elif what == "offsets":
+            a["tree_offset"] = a["tree_offset"].copy()
+            a["tree_offset"][1] += 1
+        elif what == "leaf_offsets":
+            a["tree_leaf_offset"] = a["tree_leaf_offset"].copy()
+            a["tree_leaf_offset"][1] -= 1
+        elif what == "orphan_slot":
+            n0 = int(a["tree_offset"][1])
+            a["tree_nodes"] = np.insert(a["tree_nodes"], n0, np.uint64(0))
+            a["tree_offset"] = a["tree_offset"] + (np.arange(a["tree_offset"].shape[0]) >= 1)
+        elif what == "kind":
+            header["trees"]["kind"] = "values"
     bad = _damaged(tmp_path, trained[2], change)
     with pytest.raises(baggr.ModelFileError):
         baggr.load(bad)
@@ -159,3 +240,18 @@ def test_estimate_only_has_no_trees_to_score(trained, tmp_path):
         ens.predict(X)
     ens.save(tmp_path / "est.npz")
     assert baggr.load(tmp_path / "est.npz").oob.error == ens.oob.error
+
+
+def test_members_checked_in_spans_name_the_damaged_member(trained, tmp_path, monkeypatch):
+    from baggr.model import compact
+    monkeypatch.setattr(compact, "CHECK_SPAN", 3)   # 8 members: spans 0-2, 3-5, 6-7 over two threads
+
+    def change(header, a):
+        s0 = int(a["tree_offset"][5])
+        r = int(a["tree_nodes"][s0])   # member 5's root, an inner node
+        _set(a, s0, (r & ~0xFFFFFFFF) | 10 ** 6)
+    bad = _damaged(tmp_path, trained[2], change)
+    with pytest.raises(baggr.ModelFileError, match=r"member 5, slot 0"):
+        baggr.load(bad)
+    good = tmp_path / "good.npz"
+    np.testing.assert_array_equal(baggr.load(good).vote_shares(trained[0]), trained[2].vote_shares(trained[0]))

@@ -207,7 +207,10 @@ def _stop(how):
         assert 5 <= m < MEMBERS
         # The member in hand was finished, then checkpoint and model were written at exactly that size.
         assert load(rd / MODEL).members == m
-        assert npzfile.read(rd / CHECKPOINT)[0]["next_member"] == m
+        header = npzfile.read(rd / CHECKPOINT)[0]
+        assert header["next_member"] == m
+        # one copy of the trees: the checkpoint takes them from the model, the chunk files are gone
+        assert header["chunks"] == [[0, m, MODEL]] and not any((rd / "members").glob("*"))
         assert not (rd / "stop").exists()
         if how in ("SIGINT", "stop file"):            # the others leave the very same files behind
             check_resumes_identically(rd, reference)
@@ -329,7 +332,9 @@ def test_on_a_terminal_the_job_outlives_the_dashboard_and_the_terminal(medium, t
             time.sleep(0.1)
         assert done.read_text().strip() == "0"
         pane = subprocess.run(["tmux", "capture-pane", "-p", "-J", "-t", name], capture_output=True, text=True).stdout
-        assert f"reattach with: baggr watch {rd}" in " ".join(pane.split())
+        said = " ".join(pane.split())
+        assert f"the job goes on (pid {st.pid})" in said and f"Stop it: baggr stop {rd}" in said
+        assert f"watch again: baggr watch {rd}" in said
     except BaseException:
         subprocess.run(["tmux", "kill-session", "-t", name])
         if rd.is_dir():

@@ -112,7 +112,8 @@ def test_checkpoint_then_restore_equals_an_uninterrupted_run(tmp_path, keep, bac
     a, b = full_ens.oob.arrays(), ens.oob.arrays()
     assert all(np.array_equal(a[k], b[k], equal_nan=True) for k in a)
     if keep:
-        fa, fb = full_ens.forest.arrays, ens.forest.arrays
+        # the trees as the model file keeps and scoring walks them (chunk files keep no more)
+        fa, fb = full_ens.compact.arrays, ens.compact.arrays
         assert all(np.array_equal(fa[k], fb[k]) for k in fa)
     else:
         assert not (rd / "members").exists()
@@ -225,7 +226,9 @@ def test_plain_progress_prints_every_n_members_or_ten_seconds():
     slow = [m for m in shown if m > 300][:-1]         # the last line is the last member, whenever it comes
     assert all(b - a == 10 for a, b in zip(slow, slow[1:]))
     assert "\x1b" not in out.getvalue()
-    assert "OOB error 0.1500 (95% 0.1300-0.1700)" in lines[1] and "member   1/400" in lines[1]
+    # shares as percentages, as on the dashboard and in the report text (issue 15)
+    assert "OOB error 15.00% (95% 13.0-17.0%)" in lines[1] and "member   1/400" in lines[1]
+    assert "2.00 members/s" in lines[1] and "coverage 10.0%" in lines[1]
 
 
 def test_rich_progress_draws_the_bar():
@@ -237,8 +240,29 @@ def test_rich_progress_draws_the_bar():
     p.note("SIGINT: stopping [after] the member in hand")
     p.close()
     text = buf.getvalue()
-    assert "20/50" in text and "OOB error 0.1500" in text
+    assert "20/50" in text and "OOB error 15.00%" in text and "━" in text
     assert "stopping [after] the member" in text              # notes are printed as they are (no markup)
+
+
+@pytest.mark.parametrize("width", [120, 100, 80, 60, 40, 30, 20])
+def test_the_progress_line_drops_fields_by_rank_members_and_error_last(width):
+    # At 80 columns the old bar line lost its bar and member count ("training OOB error 0.1395 ... le…").
+    from baggr.cli.progress import BAR, fit_line, line_parts
+    f = {"member": 634, "elapsed": 125.3, "error": 0.138812, "interval": [0.1213, 0.1561], "coverage": 1.0,
+         "rate": 5.07}
+    parts = line_parts(f, "classes", 3000, "training")
+    text = fit_line(parts, width, 634 / 3000).plain
+    assert len(text) <= width and "…" not in text
+    shown = [p for p in parts if (p[2] is BAR and "━" in text) or (p[2] is not BAR and p[2] in text)]
+    ranks = sorted(p[0] for p in shown)
+    assert ranks == sorted(p[0] for p in parts)[:len(ranks)]   # whole fields, strictly the most important ones
+    assert "634/3,000" in text                               # members done: the last to go
+    if width >= 30:
+        assert "OOB error 13.88%" in text                    # and the error next
+    if width >= 40:
+        assert "━" in text                                   # then the bar
+    if width >= 80:
+        assert "21%" in text and "left" in text and "(95% 12.1-15.6%)" in text
 
 
 def test_run_dir_require_names_the_problem(tmp_path):
@@ -270,4 +294,54 @@ def test_watch_without_the_dashboard_follows_the_journal(tmp_path, monkeypatch, 
         j.write("end", status="finished", reason="reached 3 members", member=3, elapsed=1.5)
     assert cli.main(["watch", str(rd.path)]) == 0
     out = capsys.readouterr().out
-    assert "member 1/3" in out and "member 3/3 100%" in out and "OOB error 0.2500" in out
+    assert "member 1/3" in out and "member 3/3 100%" in out and "OOB error 25.00%" in out
+
+
+def test_a_stop_folds_the_trees_into_the_model_and_resume_reads_them_back(tmp_path):
+    full_ens = _training().run()
+    rd = create(tmp_path / "run")
+    extra = {"sha256": "x", "config": _training().config.to_dict()}
+
+    def stop_at(tr, ck, m, fold=True):
+        tr.run(until=m)
+        ck.write(wait=True)
+        tr.ensemble().save(rd / "model.npz")
+        if fold:
+            ck.fold_into_model("model.npz")
+
+    first = _training()
+    ck = Checkpointer(rd, first, RunSettings(), extra, background=False)
+    stop_at(first, ck, 7)
+    assert ck.chunks == [[0, 7, "model.npz"]] and not any((rd / "members").glob("*"))
+    second = _training()
+    ck2 = Checkpointer(rd, second, RunSettings(), extra, background=False)
+    assert ck2.restore() and second.next_member == 7
+    # stopped again, killed after the model was replaced but before the fold: the checkpoint
+    # names the model for members 0-6 and a chunk for 7-12, and the model holds 13
+    stop_at(second, ck2, 13, fold=False)
+    assert ck2.chunks == [[0, 7, "model.npz"], [7, 13, "members/000007-000013.npz"]]
+    third = _training()
+    ck3 = Checkpointer(rd, third, RunSettings(), extra, background=False)
+    assert ck3.restore() and third.next_member == 13
+    ens = third.run()
+    for k, v in full_ens.compact.arrays.items():
+        np.testing.assert_array_equal(ens.compact.arrays[k], v, err_msg=k)
+    for k, v in full_ens.oob.arrays().items():
+        np.testing.assert_array_equal(ens.oob.arrays()[k], v, err_msg=k)
+
+
+def test_a_checkpoint_naming_a_model_with_too_few_members_is_refused(tmp_path):
+    rd = create(tmp_path / "run")
+    extra = {"sha256": "x", "config": _training().config.to_dict()}
+    tr = _training()
+    ck = Checkpointer(rd, tr, RunSettings(), extra, background=False)
+    tr.run(until=6)
+    ck.write(wait=True)
+    tr.ensemble().save(rd / "model.npz")
+    ck.fold_into_model("model.npz")
+    short = _training(members=24)
+    short.run(until=4)
+    short.ensemble().save(rd / "model.npz")       # replaced by a model of 4 members
+    again = _training()
+    with pytest.raises(ModelFileError, match="fewer than the checkpoint's 6"):
+        Checkpointer(rd, again, RunSettings(), extra, background=False).restore()

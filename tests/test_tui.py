@@ -105,8 +105,11 @@ def test_classes_run_shows_members_error_and_each_class(tmp_path):
             words = " ".join(widget_text(app, "#caution").split())
             assert "judged by only ~0.37 x members trees" in words
             assert "(Bylander 2002; Janitza & Hornung 2018)" in words
-            # this process's own figures in the process panel
-            assert f"{os.getpid()}" in text and "threads" in text and "MB" in text
+            # this process's own figures, one line of the progress panel under the job's status
+            side = widget_text(app, "#progress").splitlines()
+            job = next(i for i, x in enumerate(side) if x.lstrip().startswith("job"))
+            assert f"running · pid {os.getpid()}" in side[job]
+            assert "cpu" in side[job + 1] and "MB" in side[job + 1] and "threads" in side[job + 1]
     run(go())
 
 
@@ -136,7 +139,7 @@ def test_crashed_job_is_said_in_words(tmp_path):
             await settle(pilot, app, caught_up(app))
             text = screen_text(app)
             assert "crashed: process gone, no end line" in text
-            assert "not running" in text and f"{pid}" in text
+            assert f"pid {pid} gone" in " ".join(widget_text(app, "#progress").split())
             assert app.status == "crashed"
             await pilot.press("s")                   # nothing to stop: no modal, no stop file
             await pilot.pause()
@@ -357,9 +360,9 @@ def test_main_screen_capture(tmp_path, size):
             (tmp_path / f"screen-{size[0]}x{size[1]}.txt").write_text(text)
             lines = text.splitlines()
             assert len(lines) == size[1] and max(len(x) for x in lines) <= size[0]
-            for label in ("progress", "members", "pace", "elapsed", "to go", "covered", "job process",
+            for label in ("progress", "members", "pace", "elapsed", "to go", "covered", "pid",
                           "OOB error", "by class", "confusion", "95% interval", "Bylander 2002",
-                          "q leave", "s stop job", "l log axis", "c next class", "? keys"):
+                          "q leave", "s stop job", "l members axis: linear", "c next class", "? keys"):
                 assert label in text, label
             assert "150 of 600" in text and f"{100 * last['error']:.2f}%" in text
             for name in CLASSES:
@@ -435,18 +438,163 @@ def test_clock_is_injectable_elapsed_and_time_to_go(tmp_path):
     run(go())
 
 
-def test_long_panel_lines_are_cut_not_wrapped(tmp_path):
-    # "finished: reached 300 members" is wider than the progress panel: one line, ending in an ellipsis
-    write_journal(tmp_path / "xi", 300, members_target=300, end="finished")
+# ---------------------------------------------------------------- figures that read right (issue 15)
+
+def test_a_long_reason_wraps_between_words_and_a_finished_run_says_its_model_is_saved(tmp_path):
+    # "finished: reached 3000 members" is wider than the progress panel: cut, it read "reached 300…".
+    # The last checkpoint line (2,800) is older than the end: a finished job saves the model of all
+    # its members (baggr/runs/job.py), which is what the panel must say it saved.
+    pid, started = dead_pid()
+    write_journal(tmp_path / "xi", 3000, members_target=3000, end="finished", pid=pid, pid_started=started,
+                  checkpoint_every=400)
 
     async def go():
         app = Dashboard(tmp_path / "xi")
-        async with app.run_test(size=(100, 30)) as pilot:
+        async with app.run_test(size=(80, 24)) as pilot:
             await settle(pilot, app, lambda: app.first_full_draw is not None and app.status == "finished")
             lines = widget_text(app, "ProgressPanel").splitlines()
             job = next(i for i, x in enumerate(lines) if x.lstrip().startswith("job"))
-            assert "finished: reached" in lines[job] and lines[job].rstrip().endswith("…")
-            assert lines[job + 1].lstrip().startswith("pace")
+            words = " ".join(" ".join(x.split()) for x in lines[job:job + 2])
+            assert "finished: reached 3000 members" in words.replace("job ", "", 1)
+            assert not any("…" in x for x in lines)
+            saved = next(x for x in lines if x.lstrip().startswith("saved"))
+            assert "model at 3,000 members" in saved and "2,800" not in saved
+    run(go())
+
+
+def test_wrap_breaks_between_words_only():
+    from tui.widgets.progress import wrap
+    text = "finished: reached 3000 members after 12,345 seconds"
+    for width in (10, 14, 22, 30):
+        lines = wrap(text, width, most=10)
+        assert all(len(x) <= width for x in lines)
+        assert " ".join(lines).split() == text.split()        # every word whole, none cut
+    cut = wrap(text, 12, most=2)
+    assert len(cut) == 2 and cut[-1].endswith("…") and set(" ".join(cut)[:-1].split()) <= set(text.split())
+
+
+def test_the_stop_question_follows_the_job_while_it_asks(tmp_path):
+    run_dir = tmp_path / "pi"
+    write_journal(run_dir, 554, members_target=3000)
+
+    async def go():
+        app = Dashboard(run_dir)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await settle(pilot, app, caught_up(app))
+            await pilot.press("s")
+            await pilot.pause()
+            assert isinstance(app.screen, StopScreen)
+            assert "the job is at 554 of 3,000" in " ".join(screen_text(app).split())
+            with JournalWriter(run_dir / JOURNAL) as w:     # the job goes on while the question is open
+                for m in range(555, 635):
+                    w.write("member", **member_fields(m))
+            await settle(pilot, app, lambda: "the job is at 634 of 3,000" in " ".join(screen_text(app).split()))
+            assert app.view.members == 634
+            # the project's own frame over the progress column, not the framework's buttons
+            from textual.widgets import Button
+            assert not app.screen.query(Button)
+            assert app.screen.query_one("#stop-box").border_title == "stop the job?"
+            await pilot.press("escape")
+            await pilot.pause()
+            assert not isinstance(app.screen, StopScreen) and not (run_dir / "stop").exists()
+    run(go())
+
+
+def test_one_pace_format_and_percentages_on_the_screen(tmp_path):
+    # 1,440 members a second read "1.44e+03 members/s" beside "1603.15 members/s" in the plain lines.
+    write_journal(tmp_path / "rho", 60, members_target=100, rate=1440.0)
+    from baggr.units import pace
+
+    async def go():
+        app = Dashboard(tmp_path / "rho")
+        async with app.run_test(size=(100, 30)) as pilot:
+            await settle(pilot, app, caught_up(app))
+            side = widget_text(app, "#progress")
+            assert "1,440 members/s" in side and "e+" not in side
+            assert pace(1440.0) == "1,440 members/s" and pace(1603.15) == "1,603 members/s"
+            assert "100.0% of rows" in side                      # coverage as a percentage
+    run(go())
+
+
+# ---------------------------------------------------------------- keys, Ctrl-C, no colour (issue 15)
+
+def test_ctrl_c_leaves_the_dashboard_without_the_frameworks_notice(tmp_path):
+    write_journal(tmp_path / "sigma", 30, members_target=100)
+
+    async def go():
+        app = Dashboard(tmp_path / "sigma")
+        async with app.run_test(size=(80, 24)) as pilot:
+            await settle(pilot, app, caught_up(app))
+            await pilot.press("s")                        # even from the stop question
+            await pilot.pause()
+            await pilot.press("ctrl+c")
+            await pilot.pause()
+            assert not any("ctrl+q" in str(n.message) for n in app._notifications)
+        assert app.return_code == 0 and not (tmp_path / "sigma" / "stop").exists()
+    run(go())
+
+
+def test_keys_sit_on_what_they_act_on_and_the_class_key_only_where_there_are_classes(tmp_path):
+    from textual.widgets import Footer
+    write_journal(tmp_path / "tau", 40, members_target=100)
+    write_journal(tmp_path / "upsilon", 40, members_target=100, task="regression")
+
+    async def classes():
+        app = Dashboard(tmp_path / "tau")
+        async with app.run_test(size=(80, 24)) as pilot:
+            await settle(pilot, app, caught_up(app))
+            assert not app.screen.query(Footer)          # no bar of keys at the bottom
+            lines = screen_text(app).splitlines()
+            assert "q leave" in lines[0] and "? keys" in lines[0]
+            for widget, caption in (("#curve", "l members axis: linear"), ("#classes-box", "c next class"),
+                                    ("#side", "s stop job")):
+                r = app.screen.query_one(widget).region
+                assert caption in lines[r.y + r.height - 1][r.x:r.x + r.width], caption   # on its frame's edge
+
+    async def regression():
+        app = Dashboard(tmp_path / "upsilon")
+        async with app.run_test(size=(80, 24)) as pilot:
+            await settle(pilot, app, caught_up(app))
+            assert "next class" not in screen_text(app)
+            await pilot.press("c")
+            await pilot.pause()
+            assert app.highlight is None and not app._notifications
+            await pilot.press("question_mark")
+            await pilot.pause()
+            keys = widget_text(app, "#help-keys")
+            assert "leave" in keys and "class" not in keys
+    run(classes())
+    run(regression())
+
+
+def test_the_highlighted_class_stands_out_without_colour(tmp_path, monkeypatch):
+    # NO_COLOR: the classes were told apart by their marks alone, so a highlight that only dims the
+    # others' colour showed nothing. Now only the highlighted class keeps its mark in the plot.
+    monkeypatch.setenv("NO_COLOR", "1")
+    write_journal(tmp_path / "phi", 80, members_target=100)
+
+    async def go():
+        app = Dashboard(tmp_path / "phi")
+        async with app.run_test(size=(100, 32)) as pilot:
+            await settle(pilot, app, caught_up(app))
+            from tui.widgets.curve import render_curves
+
+            def marks():
+                """Characters drawn in the plot's cells (each line's first run is its y label; the last line the x labels)."""
+                return set("".join(t for ln in render_curves(app.view, True, 60, 16)[:-1] for t, _ in ln[1:]))
+            assert {"1", "2", "3", "@"} <= marks()
+            await pilot.press("c")
+            await pilot.press("c")                          # the second class: "drift", mark 2
+            await pilot.pause()
+            assert app.highlight == 1
+            drawn = marks()
+            assert "2" in drawn and "@" in drawn and not drawn & {"1", "3"}
+            assert any(0x2800 < ord(ch) <= 0x28FF for ch in drawn)   # the others as plain braille dots
+            key = widget_text(app, "#curve-key")
+            assert "2 drift" in key and "1 calm" not in key and "3 burst" not in key
+            table = widget_text(app, "#classes")
+            row = next(x for x in table.splitlines() if "drift" in x)
+            assert "2 drift" in row
     run(go())
 
 

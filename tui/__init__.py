@@ -26,10 +26,28 @@ def lower_priority() -> None:
             pass
 
 
-def watch(run_dir, *, get_time=time.time) -> int:
-    """Show the dashboard of a run directory until `q`; returns the exit code (0).
+def needs_terminal(run_dir) -> None:
+    """Refuse, in one line, to draw on output or read keys from input that is not a terminal: the
+    dashboard would write full-screen escape codes into a pipe and wait for keys that never come."""
+    import sys
 
-    Blocks. Raises baggr.journal.RunDirError when run_dir is not a directory.
+    from baggr.runs.journal import RunDirError
+
+    for name, stream in (("output", sys.stdout), ("input", sys.stdin)):
+        try:
+            tty = stream is not None and stream.isatty()
+        except (AttributeError, ValueError, OSError):     # closed or replaced by something without a terminal
+            tty = False
+        if not tty:
+            raise RunDirError(f"the dashboard needs a terminal and this {name} is not one; "
+                              f"for the figures as text: baggr report {run_dir}")
+
+
+def watch(run_dir, *, get_time=time.time) -> int:
+    """Show the dashboard of a run directory until `q` or Ctrl-C; returns the exit code (0).
+
+    Blocks. Raises baggr.journal.RunDirError when run_dir is not a directory, or when output or
+    input is not a terminal.
     """
     from pathlib import Path
 
@@ -37,6 +55,7 @@ def watch(run_dir, *, get_time=time.time) -> int:
 
     if not Path(run_dir).is_dir():
         raise RunDirError(f"no run directory at {run_dir}")
+    needs_terminal(run_dir)
     # Start reading a long journal before Textual is even imported: the two then share the machine's cores.
     from .opening import Opening
     opening = Opening(run_dir)

@@ -14,7 +14,7 @@ def main(argv=None) -> int:
     try:
         return watch(args[0])
     except BaggrError as exc:
-        print(f"baggr: {exc}", file=sys.stderr)
+        print(f"baggr: error: {exc}", file=sys.stderr)
         return 2
 
 

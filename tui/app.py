@@ -5,19 +5,18 @@ import time
 from pathlib import Path
 
 from textual.app import App, ComposeResult
-from textual.binding import Binding
 from textual.css.query import NoMatches
 
 from baggr.runs.journal import RunDirError, job_status, request_stop, stop_requested
 
+from . import keys
 from .opening import Opening
 from .messages import JournalAdvanced, JournalRestarted, JournalTrouble
 from .screens import HelpScreen, StopScreen
 from .tail import Tail
 from .view import View, make_view
-from .widgets import (Caution, ClassPanel, ConfusionPanel, CurvePanel, FitPanel, ProcessPanel, ProgressPanel,
-                      RunBar, SidePanel)
-from .widgets.base import Backdrop, Frame, Keys, Row
+from .widgets import Caution, ClassPanel, ConfusionPanel, CurvePanel, FitPanel, ProgressPanel, RunBar, SidePanel
+from .widgets.base import Backdrop, Frame, Row
 from .widgets.settings import SettingsPanel
 from .widgets.process import ProcessProbe
 
@@ -61,20 +60,18 @@ class Dashboard(App):
         width: auto;
         max-width: 60%;
     }
+    .-wide #side {
+        width: 40;
+    }
     """
 
-    BINDINGS = [
-        Binding("q", "quit", "leave"),
-        Binding("s", "stop_job", "stop job"),
-        Binding("l", "log_scale", "log axis"),
-        Binding("c", "cycle_class", "next class"),
-        Binding("question_mark", "help", "keys"),
-    ]
+    BINDINGS = keys.bindings()      # tui/keys.py: each key once, with where its caption sits
+    # From 110 columns the side column widens (its CSS): the process line keeps all its figures.
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
 
     def __init__(self, run_dir, *, get_time=time.time, poll: float = TAIL_POLL, opening=None, back: bool = False):
         super().__init__()
-        if back:   # opened from a comparison's board: Escape goes back to it
-            self.bind("escape", "back", description="back to the comparison")
+        self.back = back            # opened from a comparison's board: Escape goes back to it
         self.run_dir = Path(run_dir)
         self.get_time = get_time
         self.tail = Tail(self.run_dir, self.post_message, poll=poll, opening=opening)
@@ -86,7 +83,9 @@ class Dashboard(App):
         self.first_full_draw: float | None = None   # time.perf_counter() of the first draw after the opening read
         self.view: View | None = None
         self.trouble: str | None = None
+        self.classes_hidden = 0     # class rows the table has no room for (said beside the `c` key)
         self._panels: dict = {}
+        self._captions: dict = {}   # place -> the captions last put there
 
     def compose(self) -> ComposeResult:
         yield RunBar(id="runbar")
@@ -101,7 +100,6 @@ class Dashboard(App):
                 yield ConfusionPanel(id="confusion")
             with Frame(id="fit-box"):
                 yield FitPanel(id="fit")
-        yield Keys()
 
     def get_default_screen(self) -> Backdrop:
         return Backdrop(id="_default")
@@ -190,19 +188,32 @@ class Dashboard(App):
             widget = self.panel(panel).parent          # its frame
             if widget.display != shown:     # setting it, even unchanged, lays out the whole screen again
                 widget.display = shown
-        self.panel(RunBar).show(view)
-        self.panel(ProgressPanel).show(view)
+        self.panel(RunBar).show(view, keys.captions(self, "top"))
+        self.panel(ProgressPanel).show(view, self.probe.look(view.pid, view.pid_started, view.host))
         if heavy:
             self._tables_at = now
             curve.show(view)
             self._draw_tables(view, regression)
             if not all_panels:      # what a drawing on the clock costs, Textual's painting of it included
                 self.call_after_refresh(self._heavy_done, cpu)
-        self.panel(ProcessPanel).show(self.probe.look(view.pid, view.pid_started, view.host))
         self.panel(SettingsPanel).show(view)
+        self._show_captions()
+        if isinstance(self.screen, StopScreen):
+            self.screen.show(view.members, view.members_target)     # the question follows the job
         self.redraws += 1
         if self.first_full_draw is None and self.tail.caught_up.is_set():
             self.first_full_draw = time.perf_counter()
+
+    def _show_captions(self) -> None:
+        """Each frame's edge says the keys that act on it now (tui/keys.py); set only when changed
+        (setting a frame's subtitle repaints it)."""
+        self.classes_hidden = self.panel(ClassPanel).hidden
+        for place, widget in (("curve", self.panel(CurvePanel)), ("classes", self.panel(ClassPanel).parent),
+                              ("progress", self.panel(SidePanel))):
+            text = keys.caption_markup(keys.captions(self, place))
+            if self._captions.get(place) != text:
+                self._captions[place] = text
+                widget.border_subtitle = text
 
     def _heavy_done(self, cpu: float) -> None:
         cost = time.thread_time() - cpu
@@ -220,9 +231,17 @@ class Dashboard(App):
             # The class table keeps about 50 columns; the matrix shows row shares if the rest allows.
             self.panel(ConfusionPanel).show(view, room=self.size.width - 50)
 
-    # -- keys
+    # -- keys (tui/keys.py lists them)
+
+    def check_action(self, action: str, parameters) -> bool | None:
+        return False if keys.disabled(self, action) else True
+
+    def action_leave(self) -> None:
+        """q or Ctrl-C: leave the dashboard; the job goes on (the command then says how to stop it)."""
+        self.exit()
 
     def action_back(self) -> None:
+        """Escape, on a candidate opened from a comparison's board: back to the board."""
         self.exit("back")
 
     def action_log_scale(self) -> None:
@@ -241,7 +260,7 @@ class Dashboard(App):
 
     def action_help(self) -> None:
         if not isinstance(self.screen, HelpScreen):
-            self.push_screen(HelpScreen())
+            self.push_screen(HelpScreen(keys.listed(self), regression=bool(self.view and not self.view.is_classes)))
 
     def action_stop_job(self) -> None:
         if self.status != "running":
@@ -250,8 +269,8 @@ class Dashboard(App):
         if stop_requested(self.run_dir):
             self.notify("A stop request is already waiting for the job.")
             return
-        members = self.view.members if self.view else 0
-        self.push_screen(StopScreen(members), self._stop_answered)
+        v = self.view
+        self.push_screen(StopScreen(v.members if v else 0, v.members_target if v else None), self._stop_answered)
 
     def _stop_answered(self, yes: bool | None) -> None:
         if not yes:

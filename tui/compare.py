@@ -16,9 +16,10 @@ from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.widgets import Static
 
+from baggr import units
 from baggr.runs.journal import JOURNAL, JournalReader, RunState, job_status, request_stop, stop_requested
 
-from .widgets.base import Backdrop, Keys, Painted
+from .widgets.base import Backdrop, Painted
 from .widgets.braille import Series, plot_lines
 from .widgets.curve import nice_ticks
 from .widgets.palette import class_colour, class_mark, rgb
@@ -119,7 +120,7 @@ def ranked_table(rows: list, selected, task, mono: bool) -> Table:
     for col, just in (("#", "right"), ("candidate", "left"), ("members", "right"), (f"OOB {what}", "right"),
                       ("95% interval", "right"), ("status", "left")):
         t.add_column(col, justify=just, no_wrap=col != "candidate")
-    fmt = (lambda v: f"{v:.4g}") if task == "regression" else (lambda v: f"{100 * v:.2f}%")
+    fmt = units.value if task == "regression" else units.percent
     for k, r in enumerate(rows, 1):
         n = r["number"]
         style = "reverse" if n == selected else ""
@@ -128,7 +129,8 @@ def ranked_table(rows: list, selected, task, mono: bool) -> Table:
         name.append(r["label"])
         iv = r["interval"]
         t.add_row(str(k), name, f"{r['members']}/{r['target'] or '-'}", "-" if r["error"] is None else fmt(r["error"]),
-                  "-" if not iv else f"{fmt(iv[0])} - {fmt(iv[1])}", r["status"], style=style)
+                  (units.value_span(iv) if task == "regression" else units.percent_span(iv, 2)) if iv else "-",
+                  r["status"], style=style)
     return t
 
 
@@ -165,7 +167,6 @@ class Board(App):
         yield Curves(id="curves")
         yield Static(id="table")
         yield Static(id="foot")
-        yield Keys()
 
     def on_mount(self) -> None:
         self.tick()
@@ -183,9 +184,15 @@ class Board(App):
             + (f" ({st.reason})" if st.reason and status != "running" else ""), no_wrap=True, overflow="ellipsis"))
         self.query_one(Curves).show(self.data, self.selected)
         self.query_one("#table", Static).update(ranked_table(self.rows, self.selected, task, self.no_color))
-        self.query_one("#foot", Static).update(
-            "Ranked by the latest OOB figure; the paired tests with their p-values: baggr report "
-            f"{self.data.path}. Enter: the selected candidate's own dashboard (Escape there comes back).")
+        keys = Text()
+        for key, words in (("q", "leave (the comparison goes on)"), ("↑↓", "select"),
+                           ("Enter", "open the candidate's dashboard (Esc there comes back)"),
+                           ("s", "stop the comparison")):
+            keys.append(key, style="bold")
+            keys.append(f" {words}   ")
+        keys.append("\nRanked by the latest OOB figure; the paired tests with their p-values: "
+                    f"baggr report {self.data.path}")
+        self.query_one("#foot", Static).update(keys)
 
     def action_move(self, step: int) -> None:
         order = [r["number"] for r in self.rows] or [c["number"] for c in self.data.items]

@@ -68,8 +68,10 @@ def member_fields(m: int, *, task: str = "classes", class_rows=CLASS_ROWS, rng: 
 
 def write_journal(run_dir, members: int, *, members_target: int | None = None, task: str = "classes",
                   end: str | None = None, pid: int | None = None, pid_started: float | None = None,
-                  t0: float | None = None, classes=CLASSES, class_rows=CLASS_ROWS) -> Path:
-    """A journal with a start line, `members` member lines and (when `end` is given) an end line."""
+                  t0: float | None = None, classes=CLASSES, class_rows=CLASS_ROWS, checkpoint_every: int = 50,
+                  rate: float | None = None) -> Path:
+    """A journal with a start line, `members` member lines (a checkpoint line every `checkpoint_every`)
+    and (when `end` is given) an end line. rate: members a second said by the member lines (default 5)."""
     run_dir = Path(run_dir)
     run_dir.mkdir(parents=True, exist_ok=True)
     path = run_dir / JOURNAL
@@ -86,8 +88,11 @@ def write_journal(run_dir, members: int, *, members_target: int | None = None, t
                                         class_rows=class_rows, pid=pid, pid_started=pid_started))
         rows = sum(class_rows) if task == "classes" else 1000
         for m in range(1, members + 1):
-            w.write("member", **member_fields(m, task=task, class_rows=class_rows, rng=rng, rows=rows))
-            if m % 50 == 0:
+            fields = member_fields(m, task=task, class_rows=class_rows, rng=rng, rows=rows)
+            if rate is not None:
+                fields["rate"] = rate
+            w.write("member", **fields)
+            if m % checkpoint_every == 0:
                 w.write("checkpoint", member=m)
         if end:
             reason = {"finished": f"reached {members} members", "stopped": "stop requested"}.get(end, "error: boom")

@@ -2,11 +2,12 @@
 from __future__ import annotations
 
 from rich.table import Table
+from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, Vertical
+from textual.containers import Vertical
 from textual.screen import ModalScreen
-from textual.widgets import Button, Static
+from textual.widgets import Static
 
 SEEN = [
     ("curve", "OOB error after each member; thin lines: its 95% interval"),
@@ -14,13 +15,10 @@ SEEN = [
     ("confusion", "true class down, OOB vote across; row shares"),
     ("covered", "rows left out of at least one draw: judged at all"),
 ]
-
-KEYS = [
-    ("q", "leave the dashboard (the job goes on)"),
-    ("s", "ask the job to stop cleanly (asks first)"),
-    ("l", "member axis: linear or log scale"),
-    ("c", "highlight the next class in the curve and tables"),
-    ("?", "this list"),
+SEEN_REGRESSION = [
+    ("curve", "OOB MSE after each member; thin lines: its 95% interval"),
+    ("fit", "OOB MSE, its interval, R² and RMSE of the OOB predictions"),
+    ("covered", "rows left out of at least one draw: judged at all"),
 ]
 
 
@@ -37,13 +35,11 @@ class HelpScreen(ModalScreen):
         height: auto;
         max-height: 95%;
         overflow-y: auto;
-        border: round $secondary;
+        border: round $foreground 50%;
+        border-title-color: $text;
+        border-title-style: bold;
         padding: 0 2;
         background: $surface;
-    }
-    HelpScreen #help-title {
-        text-style: bold;
-        margin-bottom: 1;
     }
     HelpScreen #help-seen {
         margin-top: 1;
@@ -58,74 +54,96 @@ class HelpScreen(ModalScreen):
         Binding("escape,question_mark,enter,h", "dismiss", "close", show=False),
     ]
 
+    def __init__(self, keys, regression: bool = False):
+        super().__init__()
+        self.keys = list(keys)        # (label, what it does) of the keys that act now (tui/keys.py)
+        self.seen = SEEN_REGRESSION if regression else SEEN
+
     def compose(self) -> ComposeResult:
         t = Table.grid(padding=(0, 3))
         t.add_column(style="bold", no_wrap=True)
         t.add_column()
-        for k, what in KEYS:
+        for k, what in self.keys:
             t.add_row(k, what)
         seen = Table.grid(padding=(0, 2))
         seen.add_column(style="dim", no_wrap=True)
         seen.add_column()
-        for k, what in SEEN:
+        for k, what in self.seen:
             seen.add_row(k, what)
-        with Vertical():
-            yield Static("Keys", id="help-title")
+        with Vertical(id="help-box"):
             yield Static(t, id="help-keys")
             yield Static(seen, id="help-seen")
             yield Static("escape, enter or ? closes this list", id="help-foot")
+
+    def on_mount(self) -> None:
+        self.query_one("#help-box").border_title = "keys"
 
     def action_dismiss(self) -> None:
         self.dismiss(None)
 
 
 class StopScreen(ModalScreen[bool]):
-    """Asks before writing a stop request; answers True for yes."""
+    """Asks before writing a stop request, in a frame laid over the progress frame whose `s` it answers;
+    answers True for yes. The member count follows the job while it asks (`show`)."""
 
     DEFAULT_CSS = """
     StopScreen {
-        align: center middle;
+        align: right top;
+        background: $background 50%;
     }
-    StopScreen > Vertical {
-        width: 60;
-        max-width: 95%;
-        height: auto;
-        border: round $warning;
-        padding: 1 2;
-        background: $surface;
-    }
-    StopScreen Horizontal {
+    StopScreen > #stop-box {
+        width: 34;
         height: auto;
         margin-top: 1;
+        border: round $warning;
+        border-title-color: $warning;
+        border-title-style: bold;
+        border-subtitle-color: $text-muted;
+        padding: 0 1;
+        background: $surface;
     }
-    StopScreen Button {
-        margin-right: 2;
+    StopScreen.-wide > #stop-box {
+        width: 40;
+    }
+    StopScreen #stop-detail {
+        color: $text-muted;
+        margin: 1 0;
     }
     """
 
     BINDINGS = [
         Binding("y", "answer(True)", "yes", show=False),
-        Binding("n,escape", "answer(False)", "no", show=False),
+        Binding("n,escape,enter", "answer(False)", "no", show=False),   # enter alone never stops a job
     ]
 
-    def __init__(self, members: int):
+    def __init__(self, members: int, target: int | None = None):
         super().__init__()
-        self.members = members
+        self.members, self.target = members, target
 
     def compose(self) -> ComposeResult:
-        with Vertical():
-            yield Static(f"Stop the job at {self.members:,} members?", id="stop-question")
-            yield Static("It finishes the member in hand, saves a checkpoint and the model, and ends "
-                         "as 'stopped'. `baggr resume` can go on later.", id="stop-detail")
-            with Horizontal():
-                yield Button("y  stop it", id="stop-yes", variant="warning")
-                yield Button("n  keep going", id="stop-no", variant="primary")
+        with Vertical(id="stop-box"):
+            yield Static(self._count(), id="stop-count")
+            yield Static("It finishes the member in hand, saves a checkpoint and the model, and ends as "
+                         "'stopped'; baggr resume goes on from there.", id="stop-detail")
+            yield Static(Text.assemble(("y", "bold"), "  stop it now\n", ("n", "bold"), "  keep going"),
+                         id="stop-keys")
 
     def on_mount(self) -> None:
-        self.query_one("#stop-no", Button).focus()   # enter alone never stops a job
+        box = self.query_one("#stop-box")
+        box.border_title = "stop the job?"
+        box.border_subtitle = "y or n"
 
-    def on_button_pressed(self, event: Button.Pressed) -> None:
-        self.dismiss(event.button.id == "stop-yes")
+    def _count(self) -> Text:
+        t = Text("the job is at ")
+        t.append(f"{self.members:,}", style="bold")
+        t.append(f" of {self.target:,} members" if self.target else " members")
+        return t
+
+    def show(self, members: int, target: int | None) -> None:
+        """The job's latest count (called at each redraw while the question is open)."""
+        if (members, target) != (self.members, self.target):
+            self.members, self.target = members, target
+            self.query_one("#stop-count", Static).update(self._count())
 
     def action_answer(self, yes: bool) -> None:
         self.dismiss(yes)

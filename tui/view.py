@@ -41,6 +41,7 @@ class View:
     highlight: int | None = None
     curves: dict = field(default_factory=dict)   # series -> (xs, ys), downsampled for drawing
     config: dict | None = None      # the start line's settings
+    resolved: dict | None = None    # what the data chose for the unset ones (task, features per split, ...)
     version: int = 0                # events folded so far: the curve changed when this did
 
     @property
@@ -77,4 +78,5 @@ def make_view(state: RunState, *, run_name: str, status: str, now: float, width:
         warnings=list(state.warnings)[-3:], unreadable=malformed + state.unreadable,
         stop_requested=stop_requested, log_x=log_x, highlight=highlight, curves=curves,
         version=state.events, config=dict(state.config) if isinstance(state.config, dict) else None,
+        resolved=dict(state.resolved) if isinstance(state.resolved, dict) else None,
     )

@@ -8,8 +8,14 @@ import textwrap
 import time
 from pathlib import Path
 
-from baggr.cli.launch import attach, discard, launch, run_mode, say
-from baggr.errors import BaggrError, ConfigError
+from baggr.cli.launch import attach, discard, goes_on, launch, run_mode, say
+from baggr.errors import BaggrError, ConfigError, DataError
+
+
+def text_width() -> int:
+    """Columns to wrap prose to: the terminal's (80 when not a terminal), at most 100, one spare."""
+    import shutil
+    return max(40, min(shutil.get_terminal_size((80, 24)).columns, 100) - 1)
 
 
 def _config(args):
@@ -40,11 +46,13 @@ def _settings(args):
 
 def cmd_train(args) -> int:
     from baggr import runs
+    from baggr.cli.main import table_options
     config, settings = _config(args), _settings(args)
     info = runs.fingerprint(args.data)
     rd = runs.create(args.run_dir or runs.default_run_dir(args.data), force=args.force)
     try:
-        runs.init_config(rd, data=info, target=args.target, config=config, settings=settings)
+        runs.init_config(rd, data=info, target=args.target, config=config, settings=settings,
+                         table=table_options(args))
     except BaggrError:
         discard(rd)
         raise
@@ -103,7 +111,7 @@ def cmd_watch(args) -> int:
     code = attach(rd)
     st, status = rd.state()
     if status == "running":
-        say(f"the job goes on (pid {st.pid}); reattach with: baggr watch {rd.path}")
+        say(goes_on(rd, st))
     return code
 
 
@@ -113,10 +121,11 @@ def cmd_stop(args) -> int:
         return compare.cmd_stop(args)
     from baggr.runs import journal
     from baggr.runs import RunDir, RunDirError
+    from baggr.runs import status_words
     rd = RunDir(args.dir).require()
     st, status = rd.state()
     if status != "running":
-        raise RunDirError(f"no job is running in {rd.path} (it is {status})")
+        raise RunDirError(f"no job is running in {rd.path}: {status_words(status, st.members)}")
     journal.request_stop(rd.path)
     say(f"asked the job (pid {st.pid}) to stop after the member in hand")
     if args.wait:
@@ -145,22 +154,11 @@ OUT_KINDS = {".csv": "csv", ".tsv": "tsv", ".parquet": "parquet", ".pq": "parque
 
 
 def cmd_predict(args) -> int:
-    import numpy as np
-    import pyarrow as pa
-
-    from baggr import data
+    from baggr.cli.main import _joined
+    from baggr.data.batches import Batches
     from baggr.model import ensemble as model
-    from baggr.errors import ModelFileError
-    from baggr.runs import MODEL, RunDir, RunDirError
-    src = Path(args.model)
-    path = src / MODEL if src.is_dir() else src
-    if src.is_dir() and not path.exists():
-        rd = RunDir(src).require()
-        st, status = rd.state()
-        raise RunDirError(f"{src} has no model yet (the run is {status} at {st.members} members): "
-                          "wait for it to finish, or stop it (baggr stop DIR) to save one")
-    if not path.exists():
-        raise ModelFileError(f"model file not found: {path}")
+    from baggr.runs import model_path
+    path = model_path(args.model)
     out = Path(args.out)
     kind = OUT_KINDS.get(out.suffix.lower())
     if kind is None:
@@ -170,39 +168,115 @@ def cmd_predict(args) -> int:
     if not out.parent.resolve().is_dir():
         raise BaggrError(f"cannot write {out}: folder {out.parent} does not exist")
     ens = model.load(path)
-    X = data.read_table(args.data)
-    cols = {}
-    if ens.task == "classes":
-        shares = ens.vote_shares(X)
-        cols["prediction"] = pa.array([ens.classes[k] for k in np.argmax(shares, axis=1)])
-        for k, c in enumerate(ens.classes):
-            cols[f"share_{c}"] = pa.array(shares[:, k])
-    else:
-        cols["prediction"] = pa.array(np.asarray(ens.predict(X), dtype=np.float64))
-    _write_table(pa.table(cols), out, kind)
-    say(f"wrote {len(cols['prediction'])} predictions to {out}")
+    if ens.forest is None or ens.forest.members == 0:
+        raise BaggrError(f"{path} was trained with --estimate-only: it has no trees to score new rows")
+    keep = _joined(args.keep)
+    made = ["prediction"] + ([f"share_{c}" for c in ens.classes] if ens.task == "classes" else [])
+    clash = [k for k in keep if k in made]
+    if clash:
+        raise BaggrError(f"--keep {clash[0]}: the output has its own column {clash[0]!r}")
+    batches = Batches(args.data, ens.schema.names, ens.schema.kinds, rows=BATCH_ROWS, dates=ens.schema.dates,
+                      keep=keep, delimiter=args.delimiter)
+    unseen: dict = {}
+    n = _predict_stream(ens, batches, out, kind, keep, unseen)
+    if unseen:
+        sys.stderr.write(unseen_line(unseen) + "\n")
+    say(f"wrote {n} predictions to {out}")
     return 0
 
 
-def _write_table(table, out: Path, kind: str) -> None:
-    """Write via a temp file and rename: a failed write never leaves half a file under the asked name."""
+BATCH_ROWS = 1 << 17   # rows scored at a time: a table larger than memory streams through
+
+
+def unseen_line(unseen: dict) -> str:
+    """One warning line: how many values were categories the model never saw, and per column."""
+    total = sum(k for k, _ in unseen.values())
+    per = ", ".join(f"{name} {k}" for name, (k, _) in sorted(unseen.items(), key=lambda kv: -kv[1][0])[:5])
+    more = ", ..." if len(unseen) > 5 else ""
+    pooled = [name for name, (_, p) in unseen.items() if p]
+    how = "scored as missing" if not pooled else \
+        "scored as missing (as '(other)' in " + ", ".join(pooled) + ", which pooled rare categories)"
+    what = "1 value was a category" if total == 1 else f"{total} values were categories"
+    return f"warning: {what} the model never saw ({per}{more}); {how}"
+
+
+def _predict_stream(ens, batches, out: Path, kind: str, keep=(), unseen=None) -> int:
+    """Score batch after batch into a temp file beside out, renamed at the end (a failed run never
+    leaves half a file under the asked name); a progress bar on a terminal. Returns the rows written.
+    keep: columns of the table copied first; unseen: a dict that adds up unseen_levels per batch."""
     import tempfile
+
+    import numpy as np
+    import pyarrow as pa
+
+    from baggr.data import unseen_levels
+    classes = pa.array(list(ens.classes)) if ens.task == "classes" else None
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=out.suffix, dir=out.parent.resolve())
     os.close(fd)
+    writer, rows = None, 0
+    bar = _Bar(batches) if sys.stderr.isatty() else None
     try:
-        if kind == "parquet":
-            import pyarrow.parquet as pq
-            pq.write_table(table, tmp)
-        else:
-            import pyarrow.csv as pacsv
-            opts = pacsv.WriteOptions(delimiter="\t" if kind == "tsv" else ",")
-            pacsv.write_csv(table, tmp, write_options=opts)
+        for X in batches:
+            cols = {k: X.column(k) for k in keep}
+            if unseen is not None:
+                for name, (k, pooled) in unseen_levels(X, ens.schema).items():
+                    unseen[name] = (unseen.get(name, (0, pooled))[0] + k, pooled)
+            if classes is not None:
+                shares = ens.vote_shares(X)
+                cols["prediction"] = classes.take(pa.array(np.argmax(shares, axis=1)))
+                for k, c in enumerate(ens.classes):
+                    cols[f"share_{c}"] = pa.array(shares[:, k])
+            else:
+                cols["prediction"] = pa.array(np.asarray(ens.predict(X), dtype=np.float64))
+            table = pa.table(cols)
+            if writer is None:
+                writer = _writer(tmp, table.schema, kind)
+            writer.write_table(table)
+            rows += table.num_rows
+            if bar is not None:
+                bar.update(rows)
+        if writer is None:
+            raise DataError(f"{batches.path} has no rows")
+        writer.close()
+        writer = None
         os.replace(tmp, out)
     except OSError as e:
         raise BaggrError(f"cannot write {out}: {e.strerror or e}") from None
     finally:
+        if bar is not None:
+            bar.close()
+        if writer is not None:
+            writer.close()
         if os.path.exists(tmp):
             os.unlink(tmp)
+    return rows
+
+
+def _writer(tmp: str, schema, kind: str):
+    if kind == "parquet":
+        import pyarrow.parquet as pq
+        return pq.ParquetWriter(tmp, schema)
+    import pyarrow.csv as pacsv
+    return pacsv.CSVWriter(tmp, schema, write_options=pacsv.WriteOptions(delimiter="\t" if kind == "tsv" else ","))
+
+
+class _Bar:
+    """A progress bar on stderr: bytes of a plain CSV read, else rows of a known total, else rows."""
+
+    def __init__(self, batches):
+        from rich.console import Console
+        from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+        self.batches = batches
+        self.progress = Progress(TextColumn("scoring"), BarColumn(), TextColumn("{task.fields[rows]:,} rows"),
+                                 TimeRemainingColumn(), console=Console(stderr=True), transient=True)
+        self.task = self.progress.add_task("scoring", total=None, rows=0)
+        self.progress.start()
+
+    def update(self, rows: int) -> None:
+        self.progress.update(self.task, completed=self.batches.done, total=self.batches.total, rows=rows)
+
+    def close(self) -> None:
+        self.progress.stop()
 
 
 def cmd_demo(args) -> int:
@@ -219,7 +293,7 @@ def cmd_demo(args) -> int:
     rd = runs.create(args.run_dir or runs.default_run_dir("demo"), force=args.force)
     mode = run_mode(args)
     try:
-        say("\n".join(textwrap.wrap(scenario.DESCRIPTION, 88)))
+        say("\n".join(textwrap.wrap(scenario.DESCRIPTION, text_width())))
         say()
         say(str(rd.path))
         path = scenario.write(rd / "demo-data.csv", rows=args.rows, seed=args.data_seed)
@@ -235,6 +309,6 @@ def cmd_demo(args) -> int:
         say()
         report.render(report.load(rd.path), Console())
         say()
-        say(f"next: baggr report {rd.path} --json   |   "
-             f"baggr predict {rd.path} {rd / 'demo-data.csv'} --out scored.csv")
+        say(f"next: baggr report {rd.path} --json")
+        say(f"      baggr predict {rd.path} {rd / 'demo-data.csv'} --out scored.csv")
     return code

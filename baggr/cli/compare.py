@@ -99,10 +99,12 @@ def cmd_compare(args) -> int:
         known = ranking.CLASS_MEASURES + ranking.REGRESSION_MEASURES
         if args.measure not in known:
             raise ConfigError(f"--measure must be one of {', '.join(known)}, got {args.measure!r}")
+    from baggr.cli.main import table_options
     settings = _settings(args)
     info = runs.fingerprint(args.data)
     cmp = comparison.create_comparison(args.run_dir or comparison.default_dir(args.data), data=info,
                                        target=args.target, base=base, candidates=cands, settings=settings,
+                                       table=table_options(args),
                                        block=args.block if args.block is not None else comparison.DEFAULT_BLOCK,
                                        measure=args.measure, force=args.force)
     return launch(cmp, run_mode(args), fresh=True, announce=str(cmp.path))
@@ -246,9 +248,8 @@ def cmd_report(args) -> int:
 # ---------------------------------------------------------------- progress lines
 
 def _num(v, task) -> str:
-    if v is None:
-        return "-"
-    return f"{v:.4g}" if task == "regression" else f"{v:.4f}"
+    from baggr import units
+    return units.value(v) if task == "regression" else units.percent(v)
 
 
 class CompareProgress:

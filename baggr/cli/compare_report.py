@@ -173,14 +173,32 @@ def to_json(r: ComparisonReport) -> dict:
 
 # ---------------------------------------------------------------- drawing
 
-def _num(v, task, digits=4) -> str:
+SHARES = ("error", "balanced-error")      # read as percentages (baggr.units); JSON keeps fractions
+
+
+def _num(v, measure: str) -> str:
+    from baggr import units
+    return units.percent(v) if measure in SHARES else units.value(v)
+
+
+def _iv(iv, measure: str) -> str:
+    from baggr import units
+    if iv is None or iv[0] is None:
+        return "-"
+    return units.percent_span(iv, 2) if measure in SHARES else units.value_span(iv)
+
+
+def _signed(v, measure: str) -> str:
     if v is None:
         return "-"
-    return f"{v:.{digits}g}" if task == "regression" else f"{v:.{digits}f}"
+    return ("+" if v > 0 else "") + _num(v, measure)
 
 
-def _iv(iv, task) -> str:
-    return "-" if iv is None or iv[0] is None else f"[{_num(iv[0], task)}, {_num(iv[1], task)}]"
+def _diff_iv(iv, measure: str) -> str:
+    """A difference's interval, signs shown: [-1.85%, +2.52%]."""
+    if iv is None or iv[0] is None:
+        return "-"
+    return f"[{_signed(iv[0], measure)}, {_signed(iv[1], measure)}]"
 
 
 def _p(p) -> str:
@@ -196,6 +214,8 @@ def render(r: ComparisonReport, console) -> None:
     from rich.table import Table
     from rich.text import Text
 
+    from baggr import units
+
     console.print(Text(f"Comparison {r.path}   {r.status}" + (f" ({r.reason})" if r.reason else ""), style="bold"))
     used = sorted({k for c in r.candidates for k in c["settings"]})
     from baggr.runs.comparison import TERSE
@@ -208,8 +228,9 @@ def render(r: ComparisonReport, console) -> None:
         t.add_column(col, justify=just, no_wrap=col != "candidate")
     for k, c in enumerate(r.candidates, 1):
         spm = c["seconds_per_member"]
-        t.add_row(str(k), Text(f"c{c['number']} {c['terse']}"), str(c["members"]), _num(c["value"], r.task),
-                  _iv(c["interval"], r.task), str(c["members_needed"] or "-"), "-" if spm is None else f"{spm:.2g}")
+        t.add_row(str(k), Text(f"c{c['number']} {c['terse']}"), str(c["members"]), _num(c["value"], r.measure),
+                  _iv(c["interval"], r.measure), str(c["members_needed"] or "-"),
+                  "-" if spm is None else units.value(spm))
     console.print(t)
     d = Table(box=box.SIMPLE_HEAD, padding=(0, 1), title="Paired with the best (candidate minus best, same rows)",
               title_justify="left", title_style="bold")
@@ -220,7 +241,8 @@ def render(r: ComparisonReport, console) -> None:
         if k == 1 and c["value"] is not None:
             d.add_row(str(k), f"c{c['number']}", "-", "-", "-", "-", "best")
             continue
-        d.add_row(str(k), f"c{c['number']}", _num(c["difference"], r.task), _iv(c["difference_interval"], r.task),
+        d.add_row(str(k), f"c{c['number']}", _signed(c["difference"], r.measure),
+                  _diff_iv(c["difference_interval"], r.measure),
                   _p(c["p_value"]), _p(c["p_unadjusted"]), "close" if c["close"] else "")
     console.print(d)
     width = max(40, min(console.width, 100) - 4)

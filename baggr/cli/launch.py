@@ -16,7 +16,15 @@ def run_mode(args) -> str:
         return "plain"
     if getattr(args, "foreground", False):
         return "rich" if tty else "plain"
-    return "detached" if tty else "plain"
+    # the dashboard also reads keys: without a terminal on stdin the job runs here with plain lines
+    return "detached" if tty and _isatty(sys.stdin) else "plain"
+
+
+def _isatty(stream) -> bool:
+    try:
+        return stream is not None and stream.isatty()
+    except (AttributeError, ValueError, OSError):
+        return False
 
 
 def say(text: str = "") -> None:
@@ -38,11 +46,19 @@ class Announced:
     def __init__(self, inner, line: str):
         self.inner, self.line = inner, line
 
-    def begin(self, start: dict) -> None:
+    def _announce(self) -> None:
         if self.line is not None:
             say(self.line)
             self.line = None
+
+    def begin(self, start: dict) -> None:
+        self._announce()
         self.inner.begin(start)
+
+    def note(self, text: str) -> None:
+        """A note before the start (the data was read: the run will start) comes after the line."""
+        self._announce()
+        self.inner.note(text)
 
     def __getattr__(self, name):
         return getattr(self.inner, name)
@@ -80,9 +96,22 @@ def detached(rd, *, fresh: bool, announce: str | None = None) -> int:
     proc = runs.spawn(rd)
     from rich.console import Console
     console = Console()
+    said = []
+
+    def on_event(ev):
+        """The job's lines before its start: the compile note and warnings, printed as they come."""
+        if ev.get("event") in ("compiling", "warning") and ev.get("message"):
+            if announce is not None and not said:
+                console.print(announce, markup=False, highlight=False)
+            said.append(ev)
+            prefix = "warning: " if ev["event"] == "warning" else ""
+            console.print(prefix + str(ev["message"]), markup=False, highlight=False)
+            if ev["event"] == "compiling":
+                status.update(f"{ev['message']} (job pid {proc.pid}) ...")
+
     try:
-        with console.status(f"reading the data (job pid {proc.pid}) ..."):
-            code = runs.wait_started(rd, proc, st.starts)
+        with console.status(f"reading the data (job pid {proc.pid}) ...") as status:
+            code = runs.wait_started(rd, proc, st.starts, on_event=on_event)
     except KeyboardInterrupt:
         say(f"left the job starting in the background (pid {proc.pid}); reattach with: baggr watch {rd.path}")
         return 0
@@ -92,7 +121,7 @@ def detached(rd, *, fresh: bool, announce: str | None = None) -> int:
         if fresh and code == 2:
             discard(rd)
         return code if code else 2
-    if announce is not None:
+    if announce is not None and not said:
         say(announce)
     attach(rd)
     return after_watching(rd)
@@ -103,7 +132,7 @@ def after_watching(rd) -> int:
     from baggr.runs import JOB_LOG
     st, status = rd.state()
     if status == "running":
-        say(f"the job goes on in the background (pid {st.pid}); reattach with: baggr watch {rd.path}")
+        say(goes_on(rd, st))
         return 0
     if status == "failed":
         sys.stderr.write(f"baggr: error: the job failed at {st.members} members: {st.reason}\n")
@@ -114,6 +143,12 @@ def after_watching(rd) -> int:
         return 2
     say(f"{status} at {st.members} members ({st.reason}); the figures: baggr report {rd.path}")
     return 0
+
+
+def goes_on(rd, st) -> str:
+    """The line said on leaving the dashboard (q or Ctrl-C) while the job runs: it goes on, and how to stop it."""
+    return (f"left the dashboard; the job goes on (pid {st.pid}). Stop it: baggr stop {rd.path}   "
+            f"watch again: baggr watch {rd.path}")
 
 
 def attach(rd) -> int:

@@ -5,6 +5,7 @@ The commands themselves are in baggr.cli.commands; starting and following a job 
 from __future__ import annotations
 
 import argparse
+import re
 import sys
 import textwrap
 import traceback
@@ -38,6 +39,64 @@ def _features_per_split(text: str):
         return float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected sqrt, log2, a whole number or a fraction, got {text!r}") from None
+
+
+def _delimiter(text: str) -> str:
+    named = {"tab": "\t", "\\t": "\t", "comma": ",", "semicolon": ";", "space": " ", "bar": "|", "pipe": "|"}
+    d = named.get(text.lower(), text)
+    if len(d) != 1 or d in "\"\r\n":
+        raise argparse.ArgumentTypeError(f"expected one character (or tab), got {text!r}")
+    return d
+
+
+def _columns(text: str) -> list[str]:
+    names = [n for n in text.split(",") if n != ""]
+    if not names:
+        raise argparse.ArgumentTypeError(f"expected column names separated by commas, got {text!r}")
+    return names
+
+
+def _joined(values) -> list[str]:
+    """The names of a repeatable COL,... option, in order, each once."""
+    return list(dict.fromkeys(n for group in values or () for n in group))
+
+
+def table_parser() -> "Parser":
+    """Options that choose how a training table is read: --drop, --only, --delimiter, --missing-target
+    (a parent parser, for every command that trains)."""
+    tp = Parser(add_help=False)
+    g = tp.add_argument_group("table")
+    g.add_argument("--drop", type=_columns, action="append", metavar="COL,...",
+                   help="leave these columns out (identifiers, free text, leaks of the target)")
+    g.add_argument("--only", type=_columns, action="append", metavar="COL,...",
+                   help="use only these columns as features (the target is always read)")
+    g.add_argument("--delimiter", type=_delimiter, default=None, metavar="CHAR",
+                   help="field delimiter of a text table: a character or tab (default: from the suffix)")
+    g.add_argument("--missing-target", choices=("drop", "refuse"), default="drop",
+                   help="rows whose target is missing: leave them out with a warning (drop, the default) "
+                        "or stop with an error (refuse)")
+    return tp
+
+
+def table_options(args) -> dict:
+    """The table options of parsed args, as a run's config.json keeps them (baggr.runs.TABLE_OPTIONS)."""
+    return {"drop": _joined(args.drop), "only": _joined(args.only), "delimiter": args.delimiter,
+            "missing_target": args.missing_target}
+
+
+# Settings as the command names them (a message from the library uses the Python names).
+OPTION_WORDS = {"members": "--members", "features_per_split": "--features-per-split", "min_leaf": "--min-leaf",
+                "depth_limit": "--depth-limit", "bins": "--bins", "draw": "--draw", "draw_fraction": "--draw-fraction",
+                "vote": "--vote", "task": "--task", "seed": "--seed", "threads": "--threads",
+                "missing_target": "--missing-target"}
+
+
+def command_words(message: str) -> str:
+    """A message that begins with a setting's Python name, with the command's option instead."""
+    m = re.match(r"(\w+) (must|is) ", message)
+    if m and m.group(1) in OPTION_WORDS:
+        return OPTION_WORDS[m.group(1)] + message[len(m.group(1)):]
+    return message
 
 
 def _listed(item, what: str):
@@ -120,6 +179,8 @@ def build_parser() -> Parser:
                    baggr demo
                    baggr train data.csv --target outcome --members 300
                    baggr report runs/data-20250101-120000""") + "\n\nrun 'baggr COMMAND --help' for a command's options")
+    from baggr.version import __version__
+    p.add_argument("--version", action="version", version=f"baggr {__version__}")
     sub = p.add_subparsers(dest="command", metavar="{" + ",".join(COMMANDS) + "}", parser_class=Parser)
     sub.required = True
     raw = argparse.RawDescriptionHelpFormatter
@@ -129,8 +190,10 @@ def build_parser() -> Parser:
                               formatter_class=raw, parents=[*parents, common])
 
     t = add("train", "train an ensemble on a table and write a run directory",
-            "baggr train firings.csv --target outcome --members 500 --features-per-split 4",
-            (settings, run_opts, ui), "Train an ensemble on DATA (CSV, TSV or Parquet) and write a run directory: its "
+            """
+            baggr train firings.csv --target outcome --members 500 --features-per-split 4
+            baggr train log.csv --target weather --drop station_id --delimiter ';'""",
+            (settings, run_opts, table_parser(), ui), "Train an ensemble on DATA (CSV, TSV or Parquet) and write a run directory: its "
             "config, a journal line per member, checkpoints and the model. On a terminal the job runs "
             "detached (a dropped SSH link does not end it) and the dashboard attaches; leave the dashboard "
             "and the job goes on (baggr watch DIR to return).")
@@ -167,7 +230,7 @@ def build_parser() -> Parser:
                    help="drop each tree after its OOB votes: estimates without models for scoring")
     c = add("compare", "train several candidate settings on the same data and rank them fairly",
             "baggr compare firings.csv --target outcome --features-per-split 2,4,8 --min-leaf 1,5 --members 300",
-            (listed, run_opts, ui),
+            (listed, run_opts, table_parser(), ui),
             "Train one candidate per combination of the listed settings (or per line of --candidates FILE) on "
             "DATA, read and binned once, with the same seed: member m of every candidate draws the same rows, "
             "so the candidates are compared on the same OOB rows with paired tests. Candidates grow in "
@@ -216,13 +279,18 @@ def build_parser() -> Parser:
 
     pr = add("predict", "score new rows with a run's model",
              "baggr predict runs/firings-20250101-120000 new-firings.csv --out scored.parquet",
-             description="Write predictions for DATA: a column 'prediction', then 'share_<class>' per class "
-                         "(the share of members voting for it); regression: 'prediction' only. CSV or Parquet "
-                         "by the extension of --out.")
+             description="Write predictions for DATA: the --keep columns, a column 'prediction', then "
+                         "'share_<class>' per class (the share of members voting for it); regression: 'prediction' "
+                         "only. CSV or Parquet by the extension of --out. A category the model never saw is "
+                         "scored as missing (one warning line counts them).")
     pr.add_argument("model", metavar="DIR_OR_MODEL", help="a run directory or a model file")
     pr.add_argument("data", metavar="DATA", help="the table to score")
     pr.add_argument("--out", "-o", required=True, metavar="FILE", help="output .csv, .tsv or .parquet")
     pr.add_argument("--force", action="store_true", help="replace an existing output file")
+    pr.add_argument("--keep", type=_columns, action="append", metavar="COL,...",
+                    help="copy these columns of DATA (identifiers, say) into the output, before the predictions")
+    pr.add_argument("--delimiter", type=_delimiter, default=None, metavar="CHAR",
+                    help="field delimiter of a text table: a character or tab (default: from the suffix)")
     pr.set_defaults(func=cmd_predict)
 
     d = add("demo", "train on a built-in invented scenario and print the report",
@@ -258,7 +326,7 @@ def main(argv=None) -> int:
     except BaggrError as e:
         if debug:
             traceback.print_exc()
-        sys.stderr.write(f"baggr: error: {e}\n")
+        sys.stderr.write(f"baggr: error: {command_words(str(e))}\n")
         return 2
     except KeyboardInterrupt:
         sys.stderr.write("baggr: interrupted\n")

@@ -5,31 +5,42 @@ followed through its journal look the same.
 """
 from __future__ import annotations
 
-import math
 import sys
 import time
 
 from baggr.runs import fmt_seconds
+from baggr.units import count, pace, percent, percent_span, value, value_span
 
 
-def _num(v, digits=4) -> str:
-    return "-" if v is None or (isinstance(v, float) and math.isnan(v)) else f"{v:.{digits}f}"
+def error_words(fields: dict, task: str | None) -> tuple[str, str]:
+    """('OOB error 13.88%', '(95% 12.1-15.6%)'): the headline figure and its interval from a member line
+    (an MSE and its interval for regression); the interval '' when unknown."""
+    regression = task == "regression"
+    what = "OOB MSE" if regression else "OOB error"
+    err, iv = fields.get("error"), fields.get("interval")
+    if err is None:
+        return f"{what} -", ""
+    head = f"{what} {value(err) if regression else percent(err)}"
+    if not iv or iv[0] is None or iv[1] is None:
+        return head, ""
+    return head, f"(95% {value_span(iv) if regression else percent_span(iv)})"
 
 
 def estimate_text(fields: dict, task: str | None) -> str:
-    """'OOB error 0.1530 (95% 0.1310-0.1770)' (or MSE and R2 for regression) from a member line."""
-    what = "OOB MSE" if task == "regression" else "OOB error"
-    err, iv = fields.get("error"), fields.get("interval")
-    digits = 4 if task != "regression" else 4
-    if err is None:
-        return f"{what} - (no row left out yet)"
-    fmt = (lambda v: f"{v:.4g}") if task == "regression" else (lambda v: _num(v, digits))
-    text = f"{what} {fmt(err)}"
-    if iv and iv[0] is not None and iv[1] is not None:
-        text += f" (95% {fmt(iv[0])}-{fmt(iv[1])})"
+    """'OOB error 13.88% (95% 12.1-15.6%)' (or the MSE and R2 for regression) from a member line."""
+    head, iv = error_words(fields, task)
+    if fields.get("error") is None:
+        return head + " (no row left out yet)"
+    text = f"{head} {iv}" if iv else head
     if task == "regression" and fields.get("r2") is not None:
         text += f"  R2 {fields['r2']:.3f}"
     return text
+
+
+def time_left(f: dict, target) -> float | None:
+    """Seconds to the target at the latest pace; None when unknown or done."""
+    rate, m = f.get("rate") or 0.0, f.get("member", 0)
+    return (target - m) / rate if rate > 0 and target and m < target else None
 
 
 class PlainProgress:
@@ -67,13 +78,11 @@ class PlainProgress:
         m, target = f.get("member"), self.target or 0
         width = len(str(target)) if target else 1
         pct = f"{100.0 * m / target:3.0f}%" if target else ""
-        rate = f.get("rate") or 0.0
-        left = (target - m) / rate if rate > 0 and target else None
+        left = time_left(f, target)
         cov = f.get("coverage")
         parts = [f"member {m:>{width}}/{target} {pct}", estimate_text(f, self.task),
-                 f"coverage {100 * cov:.1f}%" if cov is not None else "coverage -",
-                 f"{rate:.2f} members/s" if rate else "", f"elapsed {fmt_seconds(f.get('elapsed'))}",
-                 f"left ~{fmt_seconds(left)}" if left is not None else ""]
+                 f"coverage {percent(cov, 1)}", pace(f.get("rate")) if f.get("rate") else "",
+                 f"elapsed {fmt_seconds(f.get('elapsed'))}", f"left ~{fmt_seconds(left)}" if left is not None else ""]
         return "  ".join(p for p in parts if p)
 
     def member(self, f: dict) -> None:
@@ -98,18 +107,98 @@ class PlainProgress:
         pass
 
 
+# The one-line progress of a job on a terminal. Each field has a rank: on a narrow terminal the
+# highest ranks drop first, so members done and the error are the last to go; the bar takes
+# what is left, between BAR_MOST and BAR_LEAST cells (none when even BAR_LEAST does not fit).
+BAR = object()
+BAR_LEAST, BAR_MOST = 8, 40
+BAR_DONE, BAR_LEFT = "rgb(112,162,212)", "rgb(58,64,72)"   # the dashboard's bar colours (tui/widgets/palette.py)
+
+
+def line_parts(f: dict | None, task, target, verb: str) -> list[tuple[int, str, object, str]]:
+    """The fields of the progress line in the order shown: (rank, separator before, text or BAR, style)."""
+    f = f or {}
+    m = f.get("member", 0)
+    head, iv = error_words(f, task) if f.get("member") is not None else (
+        ("OOB MSE -" if task == "regression" else "OOB error -"), "")
+    left = time_left(f, target)
+    cov = f.get("coverage")
+    parts = [
+        (9, "", verb, "bold"),
+        (2, " ", BAR, ""),
+        (0, " ", f"{count(m)}/{count(target)}" if target else count(m), "bold"),
+        (5, " ", f"{100 * m / target:.0f}%" if target else "", ""),
+        (1, "  ", head, "bold"),
+        (4, " ", iv, ""),
+        (6, "  ", f"R2 {f['r2']:.3f}" if task == "regression" and f.get("r2") is not None else "", ""),
+        (10, "  ", f"coverage {percent(cov, 1)}" if cov is not None else "", ""),
+        (8, "  ", pace(f.get("rate")) if f.get("rate") else "", ""),
+        (7, "  ", f"elapsed {fmt_seconds(f.get('elapsed'))}" if f.get("elapsed") is not None else "", ""),
+        (3, "  ", f"~{fmt_seconds(left)} left" if left is not None else "", ""),
+    ]
+    return [p for p in parts if p[2] is BAR or p[2]]
+
+
+def fit_line(parts, width: int, done: float):
+    """The parts that fit in `width` cells (by rank), as a rich Text; `done` (0..1) fills the bar."""
+    from rich.cells import cell_len
+    from rich.text import Text
+
+    def cells(keep) -> int:
+        """Width of the kept parts in the order shown (the first shown has no separator before it)."""
+        shown = sorted(keep)
+        return sum((BAR_LEAST if parts[i][2] is BAR else cell_len(parts[i][2])) + (len(parts[i][1]) if n else 0)
+                   for n, i in enumerate(shown))
+    kept, used = set(), 0
+    for i in sorted(range(len(parts)), key=lambda i: parts[i][0]):
+        need = cells(kept | {i})
+        if need > width:
+            break                   # strictly by rank: a field never shows while a more important one is gone
+        kept.add(i)
+        used = need
+    out = Text(no_wrap=True, overflow="crop", end="")
+    first = True
+    for i, (_, sep, text, style) in enumerate(parts):
+        if i not in kept:
+            continue
+        if not first:
+            out.append(sep)
+        first = False
+        if text is BAR:
+            n = min(BAR_MOST, BAR_LEAST + width - used)
+            full = min(n, int(n * max(0.0, min(1.0, done))))
+            out.append("━" * full, style=BAR_DONE)
+            if full < n:
+                out.append("╺" + "━" * (n - full - 1), style=BAR_LEFT)
+        else:
+            out.append(text, style=style or None)
+    return out
+
+
+class ProgressLine:
+    """A rich renderable: the latest member line laid out to the width it is given, at each refresh."""
+
+    def __init__(self):
+        self.fields: dict | None = None     # replaced whole by the job's thread, read by the refresh
+        self.task = None
+        self.target = None
+        self.verb = "training"
+
+    def __rich_console__(self, console, options):
+        f, target = self.fields, self.target
+        done = (f or {}).get("member", 0) / target if target else 0.0
+        yield fit_line(line_parts(f, self.task, target, self.verb), options.max_width, done)
+
+
 class RichProgress:
-    """A live progress bar with the running OOB estimate, for a terminal."""
+    """A live progress line with the running OOB estimate, for a terminal; it fits any width (fit_line)."""
 
     def __init__(self, console=None):
         from rich.console import Console
-        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+        from rich.live import Live
         self.console = console or Console()
-        self.bar = Progress(TextColumn("[bold]{task.description}"), BarColumn(), MofNCompleteColumn(),
-                            TextColumn("{task.fields[estimate]}"), TextColumn("{task.fields[times]}"),
-                            console=self.console, transient=False, refresh_per_second=4)
-        self.task_id = None
-        self.task = None
+        self.view = ProgressLine()
+        self.live = Live(self.view, console=self.console, refresh_per_second=4, transient=False)
         self.started = False
         self.dead = False
 
@@ -123,30 +212,18 @@ class RichProgress:
 
     def begin(self, start: dict) -> None:
         def go():
-            self.task = start.get("task")
-            verb = "resuming" if start.get("resumed") else "training"
+            v = self.view
+            v.task, v.target = start.get("task"), start.get("members_target")
+            v.verb = "resuming" if start.get("resumed") else "training"
+            v.fields = {"member": start.get("first_member", 0) or 0}
             if not self.started:
-                self.bar.start()
+                self.live.start()
                 self.started = True
-            if self.task_id is None:
-                self.task_id = self.bar.add_task(verb, total=start.get("members_target"),
-                                                 completed=start.get("first_member", 0), estimate="", times="")
-            else:
-                self.bar.update(self.task_id, description=verb, completed=start.get("first_member", 0))
+            self.live.refresh()
         self._guard(go)
 
     def member(self, f: dict) -> None:
-        def go():
-            if self.task_id is None:
-                return
-            rate = f.get("rate") or 0.0
-            total = self.bar.tasks[0].total or 0
-            left = (total - f["member"]) / rate if rate > 0 else None
-            times = f"{fmt_seconds(f.get('elapsed'))}" + (f", ~{fmt_seconds(left)} left" if left is not None else "")
-            cov = f.get("coverage")
-            est = estimate_text(f, self.task) + (f"  coverage {100 * cov:.1f}%" if cov is not None else "")
-            self.bar.update(self.task_id, completed=f["member"], estimate=est, times=times)
-        self._guard(go)
+        self.view.fields = f
 
     def note(self, text: str) -> None:
         self._guard(lambda: self.console.print(text, markup=False, highlight=False))
@@ -156,7 +233,7 @@ class RichProgress:
 
     def close(self) -> None:
         if self.started:
-            self._guard(self.bar.stop)
+            self._guard(self.live.stop)
             self.started = False
 
 

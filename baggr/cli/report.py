@@ -1,4 +1,5 @@
-"""The figures of a run (finished or not) for `baggr report`: rich tables for people, one JSON object for tools."""
+"""The figures of a run (finished or not) for `baggr report`: text for people (report_text.py), one JSON object
+for tools. Shares are fractions in the JSON and percentages in the text (baggr.units)."""
 from __future__ import annotations
 
 import math
@@ -8,9 +9,11 @@ from pathlib import Path
 import numpy as np
 
 from baggr import data as _data
+from baggr import units
+from baggr.cli.settings_text import setting_rows, settings_json
 from baggr.config import Config
 from baggr.errors import ModelFileError
-from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, fmt_seconds, read_checkpoint
+from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, read_checkpoint, status_words
 
 EXPECTED_LEFT_OUT = math.exp(-1.0)   # share of members that leave a row out under a bootstrap draw (1 - 1/n)^n
 
@@ -30,6 +33,12 @@ class RunReport:
     members_target: int | None = None
     journal_members: int | None = None
     run: dict = field(default_factory=dict)   # config.json of a run directory ({} for a bare model file)
+    # While the journal is further on than the checkpoint (a running job): the journal's latest figures
+    # (latest_figures), shown as the headline, and which checkpoint the rest comes from.
+    latest: dict | None = None
+    checkpoint: dict | None = None            # {"member": next member of the checkpoint, "t": when it was written}
+    missing_target: int | None = None         # rows left out for a missing target (None: not recorded)
+    threads: int | None = None                # the job's threads (from its journal)
 
     @property
     def task(self) -> str:
@@ -43,7 +52,7 @@ def load(path) -> RunReport:
     if p.is_file():
         ens = load_model(p)
         return RunReport(p, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"),
-                         members_target=ens.config.members)
+                         members_target=ens.config.members, missing_target=_count(ens.stats.get("missing_target")))
     rd = RunDir(p).require()
     run = rd.read_config()
     for _ in range(3):     # a job finishing meanwhile removes its checkpoint after writing the model: look again
@@ -54,14 +63,37 @@ def load(path) -> RunReport:
             break
     ck_m = int(ck[0].get("next_member", 0)) if ck else None
     common = dict(status=status, reason=st.reason, members_target=st.members_target or run["config"].get("members"),
-                  journal_members=st.members, run=run)
+                  journal_members=st.members, run=run, threads=st.threads if isinstance(st.threads, int) else None,
+                  missing_target=_count((run.get("data") or {}).get("missing_target")))
     if ens is not None and (ck_m is None or ens.members >= ck_m):
         return RunReport(rd.path, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"), **common)
     if ck is None:
-        raise RunDirError(f"{rd.path} has no figures yet ({status}; the journal shows {st.members} members and no "
+        raise RunDirError(f"{rd.path} has no figures yet ({status_words(status)}; the journal shows {st.members} members and no "
                           f"checkpoint has been written): watch it with: baggr watch {rd.path}")
     header, arrays = ck
+    common["checkpoint"] = {"member": ck_m, "t": _f(header.get("t"))}
+    if st.members > ck_m:
+        common["latest"] = latest_figures(st)
     return _from_checkpoint(rd / CHECKPOINT, header, arrays, common)
+
+
+def latest_figures(st) -> dict:
+    """The journal's latest member line as report figures (fractions, as in the JSON)."""
+    d = {"members": st.members, "oob_error": _f(st.error), "interval": None if st.interval is None else
+         [_f(v) for v in st.interval], "coverage": _f(st.coverage), "elapsed": _f(st.elapsed), "t": _f(st.last_t)}
+    if st.task == "regression":
+        d["r2"] = _f(st.r2)
+    else:
+        figs = st.class_figures()
+        d["class_error"] = [_f(f["error"]) for f in figs]
+        d["class_interval"] = [None if f["interval"] is None else [_f(v) for v in f["interval"]] for f in figs]
+        d["class_covered"] = [f["covered"] for f in figs]
+        d["confusion"] = st.confusion
+    return d
+
+
+def _count(v) -> int | None:
+    return int(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and v >= 0 else None
 
 
 def _from_checkpoint(path, header, arrays, common) -> RunReport:
@@ -136,7 +168,11 @@ def cautions(r: RunReport) -> list[str]:
     ]
     if r.oob.uncovered:
         out.append(f"{r.oob.uncovered} rows were never left out; they are not counted in the error.")
-    if r.source == "checkpoint":
+    if r.latest is not None:
+        out.append(f"This run is not finished: the headline and per-class figures are the journal's latest "
+                   f"({r.latest['members']} members); the rest comes from the checkpoint at "
+                   f"{r.checkpoint['member']} members.")
+    elif r.source == "checkpoint":
         out.append("This run is not finished: the figures come from its latest checkpoint.")
     return out
 
@@ -153,9 +189,11 @@ def figures(r: RunReport) -> dict:
          "uncovered": oob.uncovered, "judged_per_row": _f(np.mean(oob.left_out)) if oob.left_out.shape[0] else None,
          "curve": [_f(v) for v in curve], "curve_interval": [[_f(a), _f(b)] for a, b in oob.curve_interval],
          "settled_at": settled_at(curve, *iv) if iv is not None else None,
-         "config": r.config.to_dict(), "target": r.run.get("target") or r.schema.target,
+         "config": settings_json(r.config, r.schema.n_features, r.task, r.threads),
+         "missing_target": r.missing_target, "table": r.run.get("table"), "dates": r.schema.dates,
+         "target": r.run.get("target") or r.schema.target,
          "data": r.run.get("data"), "version": r.run.get("version"), "created": r.run.get("created"),
-         "cautions": cautions(r)}
+         "cautions": cautions(r), "checkpoint": r.checkpoint, "latest": r.latest}
     if r.task == "classes":
         d["classes"] = list(r.schema.classes)
         d["class_rows"] = [int(v) for v in oob.class_rows]
@@ -171,123 +209,31 @@ def figures(r: RunReport) -> dict:
 
 # ---------------------------------------------------------------- drawing
 
-def _rate(v, digits=4) -> str:
-    return "-" if v is None else f"{v:.{digits}f}"
-
-
 def _value(task, v) -> str:
-    if v is None:
-        return "-"
-    return f"{v:.4g}" if task == "regression" else f"{v:.4f}"
+    """An error as the report text writes it: a percentage of rows for classes, a figure for regression."""
+    return units.value(v) if task == "regression" else units.percent(v, 2)
 
 
 def _interval(task, iv) -> str:
     if iv is None or iv[0] is None:
         return "-"
-    return f"{_value(task, iv[0])} - {_value(task, iv[1])}"
+    return units.value_span(iv) if task == "regression" else units.percent_span(iv, 2)
 
 
-def _settings_text(key, value, r: RunReport) -> str:
-    """A setting as the report shows it: what None chose, in words."""
-    if value is not None:
-        return str(value)
-    task = r.task
-    auto = {"features_per_split": "sqrt" if task == "classes" else "1/3 of the features",
-            "depth_limit": "none", "criterion": "gini" if task == "classes" else "variance",
-            "task": f"{task} (from the target)", "threads": "all cores"}
-    return auto.get(key, "auto")
+def columns_text(d: dict) -> str:
+    """Which columns the run left out or kept, and its date columns, in one line ('' when none)."""
+    parts = []
+    table = d.get("table") or {}
+    if table.get("only"):
+        parts.append("only " + ", ".join(table["only"]))
+    if table.get("drop"):
+        parts.append("left out " + ", ".join(table["drop"]))
+    for x in d.get("dates") or []:
+        parts.append(f"{x['column']} as dates ({', '.join(p.replace('_', ' ') for p in x['parts'])})")
+    return "; ".join(parts)
 
 
 def render(r: RunReport, console) -> None:
-    """Print the report with rich (plain text, no markup from the data: names and paths are shown as they are)."""
-    import textwrap
-
-    from rich import box
-    from rich.table import Table
-    from rich.text import Text
-
-    d = figures(r)
-    task = r.task
-    what = "OOB error" if task == "classes" else "OOB MSE"
-
-    def heading(text):
-        console.print()
-        console.print(Text(text, style="bold"))
-
-    def grid():
-        g = Table.grid(padding=(0, 2))
-        g.add_column(style="bold", no_wrap=True)
-        g.add_column()
-        return g
-
-    head = grid()
-    status = d["status"] + (f" ({d['reason']})" if d["reason"] else "")
-    head.add_row("Run", Text(f"{d['path']}   {status}"))
-    data = d["data"] or {}
-    if data:
-        shape = f", {data.get('rows')} rows x {data.get('features')} features" if data.get("rows") else ""
-        head.add_row("Data", Text(f"{data.get('path')} ({data.get('bytes')} bytes{shape})"))
-        head.add_row("SHA-256", Text(str(data.get("sha256"))))
-    kind = f"{len(d['classes'])} classes" if task == "classes" else "regression"
-    head.add_row("Target", Text(f"{d['target'] or '-'} ({kind})"))
-    target = f" of {d['members_target']}" if d["members_target"] else ""
-    note = f"; figures from the checkpoint (the journal shows {r.journal_members})" if r.source == "checkpoint" else ""
-    head.add_row("Members", Text(f"{d['members']}{target}, trained in {fmt_seconds(d['elapsed'])}{note}"))
-    if d["version"]:
-        head.add_row("Made by", Text(f"baggr {d['version']}, {d['created']}"))
-    console.print(head)
-
-    heading("Out-of-bag estimate")
-    est = grid()
-    est.add_row(what, f"{_value(task, d['oob_error'])}   95% interval {_interval(task, d['interval'])}")
-    if task == "regression":
-        est.add_row("R2", _rate(d.get("r2"), 3))
-    est.add_row("Rows judged", f"{d['covered']} of {d['rows']} ({100 * d['coverage']:.2f}%); "
-                               f"{d['uncovered']} never left out (not counted)")
-    if d["judged_per_row"] is not None:
-        est.add_row("Members per row", f"{d['judged_per_row']:.1f} on average (of {d['members']})")
-    s = d["settled_at"]
-    est.add_row("Settled at", f"{s} members: from there on the curve stayed within the final interval"
-                if s else "not yet: the curve's last points still leave the final interval")
-    console.print(est)
-
-    if task == "classes":
-        heading("Per class")
-        ct = Table(box=box.SIMPLE_HEAD, padding=(0, 1))
-        for col, just in (("class", "left"), ("rows", "right"), ("share", "right"), ("judged", "right"),
-                          ("OOB error", "right"), ("95% interval", "right")):
-            ct.add_column(col, justify=just)
-        total = sum(d["class_rows"]) or 1
-        for k, name in enumerate(d["classes"]):
-            ct.add_row(Text(str(name)), str(d["class_rows"][k]), f"{100 * d['class_rows'][k] / total:.1f}%",
-                       str(d["class_covered"][k]), _value(task, d["class_error"][k]),
-                       _interval(task, d["class_interval"][k]))
-        console.print(ct)
-        heading("Confusion: rows are the true class, columns the OOB prediction")
-        cm = Table(box=box.SIMPLE_HEAD, padding=(0, 1))
-        cm.add_column("")
-        for name in d["classes"]:
-            cm.add_column(Text(str(name)), justify="right")
-        for k, name in enumerate(d["classes"]):
-            cm.add_row(Text(str(name)), *[str(v) for v in d["confusion"][k]])
-        console.print(cm)
-
-    heading(f"{what} by ensemble size")
-    cv = Table(box=box.SIMPLE_HEAD, padding=(0, 1))
-    cv.add_column("members", justify="right")
-    cv.add_column(what, justify="right")
-    cv.add_column("95% interval", justify="right")
-    for m in curve_sizes(d["members"]):
-        cv.add_row(str(m), _value(task, d["curve"][m - 1]), _interval(task, d["curve_interval"][m - 1]))
-    console.print(cv)
-
-    heading("Settings")
-    cfg = grid()
-    for k, v in d["config"].items():
-        cfg.add_row(k, Text(_settings_text(k, v, r)))
-    console.print(cfg)
-
-    heading("Read with care")
-    width = max(40, min(console.width, 100) - 4)
-    for c in d["cautions"]:
-        console.print(Text(textwrap.fill(c, width, initial_indent="  - ", subsequent_indent="    ")))
+    """Print the report (baggr/cli/report_text.py: the look; plain text, no markup from the data)."""
+    from baggr.cli.report_text import render_text
+    render_text(r, figures(r), console, settings=setting_rows(r.config, r.schema.n_features, r.task, r.threads))

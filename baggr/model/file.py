@@ -1,4 +1,8 @@
-"""The model file: one .npz (no pickles) with a JSON header; validated in full on load."""
+"""The model file: one .npz (no pickles) with a JSON header; validated in full on load.
+
+Version 2 stores the compact forest (compact.py: 8 bytes a node); version 1 stored the learner's
+node arrays (forest.py: about 50 bytes a node) and is still read.
+"""
 from __future__ import annotations
 
 import os
@@ -11,11 +15,12 @@ from baggr import data
 from baggr.model import npzfile
 from baggr.config import Config
 from baggr.errors import BaggrError, ModelFileError
+from baggr.model.compact import Compact, kind_for
 from baggr.model.forest import Forest
 from baggr.oob.view import OOB
 
 FORMAT = "baggr-model"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 
 # OOB arrays by task: name -> (dtype kinds allowed, ndim)
 OOB_FIELDS = {
@@ -29,20 +34,23 @@ OOB_FIELDS = {
 }
 
 
-def save(ensemble, path) -> None:  # ensemble: a baggr.model.ensemble.Ensemble
-    """Write the ensemble to path (atomically: a crash never leaves a torn model file)."""
-    arrays = {}
-    if ensemble.forest is not None:
-        arrays.update({"tree_" + k: v for k, v in ensemble.forest.arrays.items()})
+def save(ensemble, path, *, compress: bool = False) -> None:  # ensemble: a baggr.model.ensemble.Ensemble
+    """Write the ensemble to path (atomically: a crash never leaves a torn model file).
+    compress: deflate the arrays (see bench/README.md for what it saves and costs on load)."""
+    arrays, trees = {}, None
+    compact = ensemble.compact
+    if compact is not None:
+        arrays.update({"tree_" + k: v for k, v in compact.arrays.items()})
+        trees = {"kind": compact.kind, "n_out": compact.n_out}
     arrays.update({"bin_" + k: v for k, v in ensemble.binning.to_arrays().items()})
     arrays.update({"oob_" + k: v for k, v in ensemble.oob.arrays().items()})
     header = {"format": FORMAT, "format_version": FORMAT_VERSION, "baggr_version": __version__,
               "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
               "schema": ensemble.schema.to_json(), "config": ensemble.config.to_dict(),
-              "has_trees": ensemble.forest is not None, "oob": ensemble.oob.summary(),
+              "has_trees": compact is not None, "trees": trees, "oob": ensemble.oob.summary(),
               "stats": {k: (float(v) if isinstance(v, (float, np.floating)) else int(v)) for k, v in ensemble.stats.items()}}
     try:
-        npzfile.write_atomic(path, arrays, header)
+        npzfile.write_atomic(path, arrays, header, compress=compress)
     except OSError as e:
         raise BaggrError(f"cannot write the model file {os.fspath(path)}: {e.strerror or e}") from None
 
@@ -73,15 +81,38 @@ def read(path) -> tuple:
     n_out = max(1, len(schema.classes)) if schema.task == "classes" else 1
     forest = None
     if header.get("has_trees"):
-        forest = Forest({k[5:]: v for k, v in arrays.items() if k.startswith("tree_")})
-        forest.validate(p, n_out)
-        if np.any((forest.arrays["is_cat"] == 1) != binning.is_cat[np.maximum(forest.arrays["feature"], 0)].astype(bool)
-                  & (forest.arrays["feature"] >= 0)):
-            raise ModelFileError(f"{os.fspath(path)}: a split's kind does not match its feature's kind")
+        tree_arrays = {k[5:]: v for k, v in arrays.items() if k.startswith("tree_")}
+        forest = (_forest_v1 if version == 1 else _compact)(tree_arrays, header, schema, config, binning, n_out, path)
     oob_arrays = {k[4:]: v for k, v in arrays.items() if k.startswith("oob_")}
     _check_oob(oob_arrays, schema, path)
     stats = header.get("stats") if isinstance(header.get("stats"), dict) else {}
     return schema, binning, config, forest, OOB(schema.task, schema.classes, oob_arrays), stats
+
+
+def _forest_v1(tree_arrays, header, schema, config, binning, n_out, path) -> Forest:
+    forest = Forest(tree_arrays)
+    try:
+        forest.validate(len(schema.names), n_out)
+    except ModelFileError as e:
+        raise ModelFileError(f"{os.fspath(path)}: {e}") from None
+    a = forest.arrays
+    if np.any((a["is_cat"] == 1) != binning.is_cat[np.maximum(a["feature"], 0)].astype(bool) & (a["feature"] >= 0)):
+        raise ModelFileError(f"{os.fspath(path)}: a split's kind does not match its feature's kind")
+    return forest
+
+
+def _compact(tree_arrays, header, schema, config, binning, n_out, path) -> Compact:
+    trees = header.get("trees")
+    kind = kind_for(schema.task, config.vote)
+    if not isinstance(trees, dict) or trees.get("kind") != kind or trees.get("n_out") != n_out:
+        raise ModelFileError(f"{os.fspath(path)}: the header's description of the trees is damaged "
+                             f"(a {schema.task} model with {config.vote} votes keeps {kind}, {n_out} outputs)")
+    compact = Compact(tree_arrays, kind, n_out)
+    try:
+        compact.validate(binning.is_cat, n_out)
+    except ModelFileError as e:
+        raise ModelFileError(f"{os.fspath(path)}: {e}") from None
+    return compact
 
 
 def _check_oob(a: dict, schema, path) -> None:

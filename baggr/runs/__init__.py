@@ -22,7 +22,8 @@ _HOMES = {
     "files": ("CHECKPOINT", "CHECKPOINT_INFO", "CONFIG", "JOB_LOG", "JOURNAL", "LOCK", "MEMBERS", "MODEL",
               "RUN_FILES", "STOP", "DiskFullError", "write_json_atomic"),
     "lock": ("Lock",),
-    "rundir": ("RunDir", "RunSettings", "check_data", "create", "default_run_dir", "fingerprint", "init_config"),
+    "rundir": ("RunDir", "RunSettings", "TABLE_OPTIONS", "check_data", "create", "default_run_dir", "fingerprint",
+               "init_config", "model_path", "status_words", "table_options"),
     "checkpoint": ("CHECKPOINT_FORMAT", "CHECKPOINT_VERSION", "CHUNK_FORMAT", "FAULT_CHECKPOINT", "FAULT_KILL",
                    "Checkpointer", "check_checkpoint_header", "read_checkpoint", "remove_checkpoint"),
     "job": ("Job", "Outcome", "fmt_seconds", "stable_now"),
@@ -34,9 +35,11 @@ _HOME = {name: module for module, names in _HOMES.items() for name in names}
 
 __all__ = ["CHECKPOINT", "CHECKPOINT_FORMAT", "CHECKPOINT_INFO", "CHECKPOINT_VERSION", "CHUNK_FORMAT", "CONFIG",
            "FAULT_CHECKPOINT", "FAULT_KILL", "JOB_LOG", "JOURNAL", "LOCK", "MEMBERS", "MODEL", "RUN_FILES", "STOP",
-           "COMPARISON", "Checkpointer", "Comparison", "DiskFullError", "Job", "Lock", "Outcome", "RunDir", "RunDirError", "RunSettings",
-           "check_checkpoint_header", "check_data", "create", "default_run_dir", "fingerprint", "fmt_seconds",
-           "init_config", "is_comparison", "job_error_line", "read_checkpoint", "remove_checkpoint", "spawn", "stable_now",
+           "TABLE_OPTIONS", "COMPARISON",
+           "Checkpointer", "Comparison", "DiskFullError", "Job", "Lock", "Outcome", "RunDir", "RunDirError",
+           "RunSettings", "check_checkpoint_header", "check_data", "create", "default_run_dir", "fingerprint",
+           "fmt_seconds", "init_config", "is_comparison", "job_error_line", "model_path", "read_checkpoint",
+           "remove_checkpoint", "spawn", "stable_now", "status_words", "table_options",
            "wait_started", "write_json_atomic"]
 
 

@@ -16,12 +16,13 @@ import numpy as np
 from baggr.version import __version__
 from baggr.errors import ModelFileError
 from baggr.model import npzfile
-from baggr.runs.files import CHECKPOINT, CHECKPOINT_INFO, CONFIG, MEMBERS, write_error, write_json_atomic
+from baggr.runs.files import CHECKPOINT, CHECKPOINT_INFO, CONFIG, MEMBERS, MODEL, write_error, write_json_atomic
 from baggr.runs.rundir import RunDir, RunSettings
 
 CHECKPOINT_FORMAT = "baggr-checkpoint"
 CHECKPOINT_VERSION = 1
 CHUNK_FORMAT = "baggr-members"
+CHUNK_VERSION = 2   # 1: the learner's node arrays; 2: the compact layout of model format 2
 
 FAULT_CHECKPOINT = "BAGGR_FAULT_CHECKPOINT"  # "enospc" or "enospc:N": the N-th checkpoint write fails
 FAULT_KILL = "BAGGR_FAULT_KILL"              # "member:N", "chunk:N" or "model": SIGKILL itself there
@@ -167,13 +168,37 @@ class Checkpointer:
         if self.journal is not None:
             self.journal.write("checkpoint", member=m)
 
+    def fold_into_model(self, model_name: str) -> None:
+        """After a stop has saved the model: the checkpoint takes its trees from the model file
+        (which holds at least the checkpoint's members, in the same records) and the chunk files
+        go, so a stopped run keeps one copy of its trees. Crash-safe: the checkpoint naming the
+        model is renamed into place before a chunk file is removed."""
+        self.wait()
+        if not self.training.config.keep_members or not self.chunks or not (self.rd / CHECKPOINT).exists():
+            return
+        header, arrays = npzfile.read(self.rd / CHECKPOINT, "checkpoint file")
+        chunks = [[0, self.member, model_name]]
+        header["chunks"] = chunks
+        npzfile.write_atomic(self.rd / CHECKPOINT, arrays, header)
+        write_json_atomic(self.rd / CHECKPOINT_INFO, {"member": self.member, "elapsed": header["elapsed"],
+                                                      "t": header["t"], "chunks": chunks})
+        self.chunks = chunks
+        self._drop_unreferenced()
+
+    def _kind(self) -> str:
+        from baggr.model.compact import kind_for
+        return kind_for(self.training.prep.task, self.training.config.vote)
+
     def _write_chunk(self, a: int, b: int, name: str, trees: list) -> None:
+        """Members a..b-1 in the model file's compact layout (chunk format 2; format 1 held the
+        learner's arrays, five times larger)."""
+        from baggr.model.compact import Compact
         from baggr.model.forest import Forest
         path = self.rd / name
         path.parent.mkdir(exist_ok=True)
-        forest = Forest.pack(trees, self.training.n_out)
-        npzfile.write_atomic(path, forest.arrays, {"format": CHUNK_FORMAT, "format_version": CHECKPOINT_VERSION,
-                                                   "first": a, "last": b})
+        compact = Compact.from_forest(Forest.pack(trees, self.training.n_out), self._kind())
+        npzfile.write_atomic(path, compact.arrays, {"format": CHUNK_FORMAT, "format_version": CHUNK_VERSION,
+                                                    "first": a, "last": b, "kind": compact.kind})
 
     def restore(self) -> bool:
         """Continue the training from the checkpoint on disk, if any; True when one was loaded."""
@@ -209,7 +234,7 @@ class Checkpointer:
         for c in self.chunks:
             if n >= upto:
                 break
-            for t in self._read_chunk(c, n, self.training.prep.codes.shape[0]).unpack():
+            for t in self._chunk_trees(c, n, self.training.prep.codes.shape[0]):
                 if n >= upto:
                     break
                 yield t
@@ -220,24 +245,51 @@ class Checkpointer:
     def _load_chunks(self, chunks, n_features: int) -> list:
         trees, at = [], 0
         for c in chunks:
-            trees.extend(self._read_chunk(c, at, n_features).unpack())
+            trees.extend(self._chunk_trees(c, at, n_features))
             at = c[1]
         return trees
 
-    def _read_chunk(self, c, at: int, n_features: int):
-        """One chunk file's Forest, checked against the checkpoint's list (it must start at member `at`)."""
+    def _chunk_trees(self, c, at: int, n_features: int) -> list:
+        """The trees of one entry of the checkpoint's list (a chunk file, or the first members of
+        the model a stop saved), checked against the list (the entry must start at member `at`)."""
         from baggr.model.forest import Forest
         if not (isinstance(c, list) and len(c) == 3 and c[0] == at and c[1] > c[0] and isinstance(c[2], str)
-                and c[2] == _chunk_name(c[0], c[1])):
+                and (c[2] == _chunk_name(c[0], c[1]) or (c[2] == MODEL and c[0] == 0))):
             raise ModelFileError(f"{self.rd / CHECKPOINT}: its list of member files is damaged")
+        if c[2] == MODEL:   # the first c[1] members of the model a stop saved (fold_into_model)
+            return self._model_members(c[1])
         h, a = npzfile.read(self.rd / c[2], "members file")
         if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
             raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
-        forest = Forest(a)
-        forest.validate(n_features, self.training.n_out)
+        if h.get("format_version") == 1:
+            forest = Forest(a)
+            forest.validate(n_features, self.training.n_out)
+        else:
+            forest = self._compact_chunk(c[2], h, a)
         if forest.members != c[1] - c[0]:
             raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
-        return forest
+        return forest.unpack()
+
+    def _model_members(self, k: int) -> list:
+        h, a = npzfile.read(self.rd / MODEL, "model file")
+        if h.get("format") != "baggr-model" or h.get("format_version") != 2 or (h.get("trees") or {}).get("kind") != self._kind():
+            raise ModelFileError(f"{self.rd / MODEL} is not the model the checkpoint takes its first {k} members from")
+        compact = self._compact_chunk(MODEL, dict(h, format_version=CHUNK_VERSION, kind=self._kind()),
+                                      {n[5:]: v for n, v in a.items() if n.startswith("tree_")}, whole=False)
+        if compact.members < k:
+            raise ModelFileError(f"{self.rd / MODEL} holds {compact.members} members, fewer than the checkpoint's {k}")
+        return compact.head(k).to_forest().unpack()
+
+    def _compact_chunk(self, name: str, h: dict, a: dict, whole: bool = True):
+        from baggr.model.compact import Compact
+        if h.get("format_version") != CHUNK_VERSION or h.get("kind") != self._kind():
+            raise ModelFileError(f"{self.rd / name} is not a members file this baggr reads for this run")
+        compact = Compact(a, self._kind(), self.training.n_out)
+        try:
+            compact.validate(self.training.prep.binning.is_cat, self.training.n_out)
+        except ModelFileError as e:
+            raise ModelFileError(f"{self.rd / name}: {e}") from None
+        return compact.to_forest() if whole else compact
 
     def _drop_unreferenced(self) -> None:
         """Remove what a killed job left half done: chunk files its checkpoint never named, temp files."""

@@ -126,9 +126,10 @@ class ComparisonJob:
             if key not in prepared:
                 if X is None:
                     from baggr.data.table import read_table
-                    X, y = read_table(cmp.data["path"], cmp.target)
+                    X, y = read_table(cmp.data["path"], cmp.target, drop=cmp.table["drop"], only=cmp.table["only"],
+                                      delimiter=cmp.table["delimiter"])
                 from baggr.data.prepared import prepare
-                prepared[key] = prepare(X, y, config, target=cmp.target)
+                prepared[key] = prepare(X, y, config, target=cmp.target, missing_target=cmp.table["missing_target"])
             return prepared[key]
 
         for i, job in enumerate(self.jobs):
@@ -146,23 +147,12 @@ class ComparisonJob:
             self._write_targets(next(iter(prepared.values())))
         if self.stop_reason:
             return self._conclude()
-        self._warm()
         self._start()
         for i, job in enumerate(self.jobs):
             if self.outcomes[i] is None:
                 job.begin()
         self._rounds()
         return self._conclude()
-
-    def _warm(self) -> None:
-        """Grow one member of the first candidate and drop it: the compiled kernels load now, so the
-        first candidate's seconds per member are not charged with it (members are pure functions of
-        m: nothing is changed)."""
-        active = self._active()
-        if active:
-            tr = self.jobs[active[0]].training
-            tr.grower.grow_member(tr.next_member)
-            tr.grower.release()
 
     def _active(self) -> list[int]:
         return [i for i, job in enumerate(self.jobs)

@@ -21,7 +21,7 @@ from baggr.version import __version__
 from baggr.config import Config
 from baggr.errors import ConfigError, RunDirError
 from baggr.runs.files import CONFIG, JOURNAL, write_error, write_json_atomic
-from baggr.runs.rundir import RunDir, RunSettings, create, default_run_dir, init_config
+from baggr.runs.rundir import RunDir, RunSettings, create, default_run_dir, init_config, table_options
 
 COMPARISON = "comparison.json"
 TARGETS = "targets.npz"
@@ -68,6 +68,7 @@ class Comparison:
     measure: str | None = None
     base: dict = field(default_factory=dict)
     created: str = ""
+    table: dict = field(default_factory=dict)      # how the data file is read (rundir.TABLE_OPTIONS)
 
     def __truediv__(self, name) -> Path:
         return self.path / name
@@ -82,7 +83,7 @@ class Comparison:
     def to_json(self) -> dict:
         return {"format": FORMAT, "format_version": FORMAT_VERSION, "version": __version__, "created": self.created,
                 "data": self.data, "target": self.target, "block": self.block, "measure": self.measure,
-                "base": self.base,
+                "base": self.base, "table": self.table,
                 "candidates": [{"number": c.number, "settings": c.settings, "run_dir": c.run_dir}
                                for c in self.candidates]}
 
@@ -115,7 +116,8 @@ def read(path) -> Comparison:
     try:
         cands = [Candidate(int(c["number"]), dict(c["settings"]), str(c["run_dir"])) for c in d["candidates"]]
         cmp = Comparison(p, dict(d["data"]), str(d["target"]), cands, int(d.get("block") or DEFAULT_BLOCK),
-                         d.get("measure"), dict(d.get("base") or {}), str(d.get("created") or ""))
+                         d.get("measure"), dict(d.get("base") or {}), str(d.get("created") or ""),
+                         table_options(d))
     except (KeyError, TypeError, ValueError) as e:
         raise RunDirError(f"{f} is damaged ({type(e).__name__}: {e})") from None
     for c in cands:
@@ -188,7 +190,7 @@ def names(cands: list[dict]) -> list[str]:
 
 def create_comparison(path, *, data: dict, target: str, base: Config, candidates: list[dict],
                       settings: RunSettings, block: int = DEFAULT_BLOCK, measure: str | None = None,
-                      force: bool = False) -> Comparison:
+                      table: dict | None = None, force: bool = False) -> Comparison:
     """Make the comparison directory and one run directory per candidate (all settings checked first)."""
     configs = check_candidates(base, candidates)
     if not isinstance(block, int) or block < 1:
@@ -198,11 +200,12 @@ def create_comparison(path, *, data: dict, target: str, base: Config, candidates
     try:
         for folder, cfg in zip(folders, configs):
             sub = create(rd.path / folder)
-            init_config(sub, data=data, target=target, config=cfg, settings=settings)
+            init_config(sub, data=data, target=target, config=cfg, settings=settings, table=table)
         base_d = {k: v for k, v in base.to_dict().items() if not any(k in c for c in candidates)}
         cmp = Comparison(rd.path, dict(data), target,
                          [Candidate(i, dict(s), f) for i, (s, f) in enumerate(zip(candidates, folders), 1)],
-                         block, measure, base_d, time.strftime("%Y-%m-%dT%H:%M:%S%z"))
+                         block, measure, base_d, time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+                         table_options({"table": table or {}}))
         cmp.write()
     except BaseException:
         import shutil

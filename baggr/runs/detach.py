@@ -31,14 +31,21 @@ def spawn(rd: RunDir, *, verify: bool = False) -> subprocess.Popen:
                                 stderr=subprocess.STDOUT, env=env, close_fds=True)
 
 
-def wait_started(rd: RunDir, proc: subprocess.Popen, starts_before: int, poll=0.1, on_wait=None) -> int | None:
-    """Wait until the job writes a new start line (None) or exits first (its return code)."""
+def wait_started(rd: RunDir, proc: subprocess.Popen, starts_before: int, poll=0.1, on_wait=None,
+                 on_event=None) -> int | None:
+    """Wait until the job writes a new start line (None) or exits first (its return code).
+
+    on_event(event): called with each line of the job's before its start line (a warning, the
+    note that kernels compile).
+    """
     reader = JournalReader(rd / JOURNAL)
     starts = 0
     while True:
         for ev in reader.read_new():
             if ev.get("event") == "start":
                 starts += 1
+            elif on_event is not None and starts == starts_before:
+                on_event(ev)
         if starts > starts_before:
             return None
         code = proc.poll()

@@ -21,7 +21,8 @@ from baggr.errors import BaggrError, ModelFileError
 from baggr.runs.checkpoint import FAULT_KILL, Checkpointer, fault_kill, remove_checkpoint
 from baggr.runs.files import CHECKPOINT, JOURNAL, MODEL, STOP, DiskFullError, write_error
 from baggr.runs.journal_writer import JournalWriter
-from baggr.runs.rundir import RunDir, RunSettings, check_data
+from baggr.runs.rundir import RunDir, RunSettings, check_data, table_options
+
 
 
 def stable_now(curve: np.ndarray, interval: np.ndarray, m: int, settings: RunSettings) -> str | None:
@@ -138,7 +139,7 @@ class Job:
     def release(self) -> None:
         if self.journal is not None:
             self.journal.close()
-        if getattr(self, "_lock", None) is not None:
+        if self._lock is not None:
             self._lock.release()
             self._lock = None
 
@@ -171,9 +172,9 @@ class Job:
         return self.conclude()
 
     def open(self, prepared=None) -> Outcome | None:
-        """Read the settings and the data (or take `prepared`: the data already binned for these
-        settings, or a function of the Config giving it), make the Training and restore the
-        checkpoint; an Outcome when the run is finished."""
+        """Read the settings and the data (or take `prepared`: a function of the Config giving the
+        data already read and binned for these settings), make the Training and restore the
+        checkpoint; an Outcome when the run is finished already."""
         rd = self.rd
         cfg = self.cfg = rd.read_config()
         config = Config.from_dict(cfg["config"])
@@ -191,17 +192,32 @@ class Job:
             (rd / STOP).unlink()     # a stop request from an earlier job is not meant for this one
         except FileNotFoundError:
             pass
-        from baggr.engine import Training
+        table = table_options(cfg)
+        from baggr.engine import Training, compile_seconds, missing_target_text
         if prepared is None:
-            from baggr.data.table import read_table   # not .data: a bad file is told before numba is even imported
-            X, y = read_table(info["path"], cfg["target"])
-            tr = self.training = Training(X, y, config, target=cfg["target"])
+            from baggr.data.table import read_table      # not .data: a bad file is told before numba is even imported
+            X, y = read_table(info["path"], cfg["target"], drop=table["drop"], only=table["only"],
+                              delimiter=table["delimiter"])
+            tr = self.training = Training(X, y, config, target=cfg["target"], missing_target=table["missing_target"])
         else:
-            prep = prepared(config) if callable(prepared) else prepared
-            tr = self.training = Training(None, None, config, prepared=prep)
-        if cfg["data"].get("rows") is None:
-            cfg["data"].update(rows=int(tr.prep.n_rows), features=int(tr.prep.codes.shape[0]))
+            tr = self.training = Training(None, None, config, prepared=prepared(config))
+        seconds = compile_seconds(tr.prep.task)   # the data is good: the run will start
+        if seconds:
+            self._compiling(seconds)
+        first = cfg["data"].get("rows") is None
+        missing = tr.prep.missing_target
+        if missing:
+            text = missing_target_text(missing, tr.prep.n_rows, cfg["target"])
+            self._note(f"warning: {text}")
+            if first:   # once in the journal, not again at every resume
+                self.journal.write("warning", message=text)
+        if first:
+            s = tr.prep.schema
+            cfg["data"].update(rows=int(tr.prep.n_rows), features=int(tr.prep.codes.shape[0]),
+                               missing_target=int(missing), dates=s.dates)
+            cfg["resolved"] = config.resolved(s.n_features, s.task)
             rd.write_config(cfg)
+        tr.warm_up()   # compiling (a first run) or loading the kernels: out of the training figures
         extra = {"sha256": info.get("sha256"), "config": config.to_dict(), "schema": tr.prep.schema.to_json(),
                  "target": cfg["target"]}
         self.checkpointer = Checkpointer(rd, tr, self.settings, extra, self.journal)
@@ -280,6 +296,12 @@ class Job:
             return self._finished(tr)
         return self._stopped(tr, write_checkpoint=True)
 
+    def _compiling(self, seconds: float) -> None:
+        """Say, before the kernels compile on a first run, that it happens once and about how long it takes."""
+        text = f"preparing compiled code, once: about {compile_words(seconds)}"
+        self.journal.write("compiling", message=text, seconds=round(seconds, 1))
+        self._note(text)
+
     def _start(self, tr, cfg: dict, resumed: bool) -> None:
         import psutil
         p = tr.prep
@@ -289,7 +311,8 @@ class Job:
                   "class_rows": [int(v) for v in tr.tally.class_rows] if p.task == "classes" else [],
                   "rows": int(p.n_rows), "features": int(p.codes.shape[0]), "members_target": tr.config.members,
                   "first_member": tr.next_member, "config": tr.config.to_dict(), "version": __version__,
-                  "target": cfg.get("target"), "data": cfg["data"].get("path")}
+                  "target": cfg.get("target"), "data": cfg["data"].get("path"),
+                  "resolved": tr.config.resolved(p.schema.n_features, p.task), "missing_target": p.missing_target}
         if resumed:
             fields["resumed"] = True
         self.journal.write("start", **fields)
@@ -298,7 +321,7 @@ class Job:
             self.progress.begin(fields)
 
     def _save_model(self, tr) -> None:
-        if tr.trees_base:       # a comparison set them aside: back from the chunk files, file by file
+        if tr.trees_base:       # a comparison set them aside: back from the checkpoint's files, file by file
             tr.take_back(self.checkpointer.stored_trees(tr.trees_base))
         ens = tr.ensemble()
         try:
@@ -331,6 +354,7 @@ class Job:
             if write_checkpoint and m > self.checkpointer.member:
                 self.checkpointer.write(wait=True)
             self._save_model(tr)
+            self.checkpointer.fold_into_model(MODEL)   # one copy of the trees: the model's
         self._end("stopped", reason)
         if reason == "stop requested":
             try:
@@ -377,14 +401,14 @@ def _terminate_torn_line(path: Path) -> None:
         pass
 
 
+def compile_words(seconds: float) -> str:
+    """'15 s', '1 min 30 s': an estimate, rounded to 5 s."""
+    s = max(5, int(round(seconds / 5.0)) * 5)
+    return f"{s} s" if s < 60 else f"{s // 60} min" + (f" {s % 60} s" if s % 60 else "")
+
+
 def fmt_seconds(s: float) -> str:
-    """1:02:03 / 2:03 / 4.2 s."""
-    if s is None or not math.isfinite(s):
-        return "-"
-    if s < 60:
-        return f"{s:.1f} s"
-    s = int(round(s))
-    h, rem = divmod(s, 3600)
-    m, sec = divmod(rem, 60)
-    return f"{h}:{m:02d}:{sec:02d}" if h else f"{m}:{sec:02d}"
+    """4.2s / 42s / 3m 05s / 2h 10m: the one duration format of every surface (baggr.units)."""
+    from baggr.units import duration
+    return duration(s)
 

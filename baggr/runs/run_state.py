@@ -58,6 +58,7 @@ class RunState:
         self.host = None
         self.threads = None
         self.config = None
+        self.resolved = None       # the settings the data chose (the start line's "resolved")
         self.version = None
         self.status = "waiting"
         self.reason = None
@@ -119,6 +120,7 @@ class RunState:
         self.host = ev.get("host")
         self.threads = ev.get("threads")
         self.config = ev.get("config", self.config)
+        self.resolved = ev.get("resolved", self.resolved)
         self.version = ev.get("version", self.version)
         self.resumed = bool(ev.get("resumed", self.starts > 1))
         self.first_member = first

@@ -3,10 +3,9 @@ from .classes import ClassPanel
 from .confusion import ConfusionPanel
 from .curve import Caution, CurvePanel
 from .fit import FitPanel
-from .process import ProcessPanel
 from .progress import ProgressPanel
 from .runbar import RunBar
 from .side import SidePanel
 
-__all__ = ["Caution", "ClassPanel", "ConfusionPanel", "CurvePanel", "FitPanel", "ProcessPanel", "ProgressPanel",
-           "RunBar", "SidePanel"]
+__all__ = ["Caution", "ClassPanel", "ConfusionPanel", "CurvePanel", "FitPanel", "ProgressPanel", "RunBar",
+           "SidePanel"]

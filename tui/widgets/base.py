@@ -15,7 +15,7 @@ from textual.strip import Strip
 from textual.widget import Widget
 from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
-from textual.widgets import Footer, Static
+from textual.widgets import Static
 
 BLANK = Style()          # Textual's filters (NO_COLOR) want a style on every segment
 ELLIPSIS = "…"
@@ -263,10 +263,6 @@ class Frame(Column):
         border-title-color: $text-muted;
     }
     """
-
-
-class Keys(KeepLines, Footer):
-    """Textual's footer of key bindings, keeping its lines (see KeepLines)."""
 
 
 class Backdrop(KeepLines, Screen):

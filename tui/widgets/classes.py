@@ -70,6 +70,7 @@ class ClassPanel(Panel):
         self.parent.border_title = "by class"
 
     _last = None
+    hidden = 0              # class rows left out for want of room (the `c` key's caption says so)
 
     def on_resize(self) -> None:
         # Which columns fit depends on the width the layout gave: fit again once it is known.
@@ -81,11 +82,8 @@ class ClassPanel(Panel):
         mono = self.app.no_color
         n = len(v.class_figures)
         key = (tuple(class_rows(v)), narrow, mono, room, v.highlight, self.content_size.width)
-        hidden = max(0, n - max(1, room - 2))
-        if self.put(key, lambda: self._fitting(v, narrow, mono, room), lines=min(n + 2, room)):
-            subtitle = f"{hidden} more: c shows them" if hidden else ""
-            if self.parent.border_subtitle != subtitle:      # setting it repaints the frame
-                self.parent.border_subtitle = subtitle
+        self.hidden = max(0, n - max(1, room - 2))
+        self.put(key, lambda: self._fitting(v, narrow, mono, room), lines=min(n + 2, room))
 
     def _fitting(self, v: View, narrow: bool, mono: bool, room: int) -> Text:
         """The widest column set whose table fits the panel (cells are never cut short)."""

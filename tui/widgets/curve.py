@@ -12,7 +12,8 @@ from textual.app import ComposeResult
 from ..view import View
 from .base import Column, Painted, Panel, TextPanel
 from .braille import Series, plot_lines
-from .palette import (BAND, DIMMED, MONO_BAND, MONO_OVERALL, OVERALL, class_colour, class_mark, rgb)
+from .palette import (BAND, DIMMED, MONO_BAND, MONO_DIMMED, MONO_DIMMED_KEY, MONO_OVERALL, OVERALL, class_colour,
+                      class_mark, rgb)
 
 # About e^-1 = 0.368 of the members leave a given row out of their bootstrap draw (Breiman 1996).
 OOB_SHARE = math.exp(-1)
@@ -116,7 +117,8 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
             order.append(v.highlight)          # drawn last: on top
         for k in order:
             dim = v.highlight is not None and k != v.highlight
-            put(k, DIMMED if dim else class_colour(k), class_mark(k))
+            # without colour the highlight stands out by its mark: the other classes draw plain dots
+            put(k, DIMMED if dim else class_colour(k), MONO_DIMMED if dim else class_mark(k))
     put("error", OVERALL, MONO_OVERALL)
     xs = v.curves["error"][0]
     lo, hi = xs[0], xs[-1]
@@ -145,7 +147,8 @@ def curve_key(v: View, mono: bool) -> Text:
             style = "" if mono else rgb(DIMMED if dim else class_colour(k))
             if v.highlight == k:
                 style += " bold underline"
-            t.append((class_mark(k) if mono else "━") + " " + name, style=style.strip())
+            mark = (MONO_DIMMED_KEY if dim else class_mark(k)) if mono else "━"
+            t.append(mark + " " + name, style=style.strip())
     return t
 
 
@@ -219,9 +222,8 @@ class CurvePanel(Column):
         mono = self.app.no_color
         what = "OOB error, % of rows" if v.is_classes else "OOB MSE"
         title = f"{what} by ensemble size"
-        subtitle = f"members axis: {'log' if v.log_x else 'linear'} (l)"
-        if (title, subtitle) != (self.border_title, self.border_subtitle):   # setting them repaints
-            self.border_title, self.border_subtitle = title, subtitle
+        if title != self.border_title:      # setting it repaints (the keys' captions: the app, tui/keys.py)
+            self.border_title = title
         if self._plot() is None:
             return                      # not composed yet: the next redraw draws it
         plot, key = self._parts

@@ -21,6 +21,8 @@ CLASSES = [
 MONO_OVERALL = "@"
 MONO_BAND = "."
 MONO_CLASSES = "123456789abcdefghijklmnopqrstuvwxyz"
+MONO_DIMMED = None                 # classes not highlighted while one is: braille dots, no mark
+MONO_DIMMED_KEY = "⠒"              # and how the curve's key shows them
 
 STATUS_STYLE = {
     "waiting": "italic",

@@ -1,4 +1,4 @@
-"""The job's process as the operating system sees it: pid, threads, CPU and memory."""
+"""The job's process as the operating system sees it: pid, CPU, memory and threads (a line of the progress panel)."""
 from __future__ import annotations
 
 import time
@@ -6,13 +6,9 @@ import time
 from dataclasses import dataclass
 
 import psutil
-from rich.text import Text
-
 from baggr.runs.journal import pid_alive, same_host
 
 from .. import fmt
-from .base import Panel
-from .texttable import pairs
 
 
 @dataclass
@@ -78,36 +74,17 @@ class ProcessProbe:
             return ProcessFigures(pid, host, False)
 
 
-class ProcessPanel(Panel):
-    """pid, threads, CPU % and memory of the job, or a plain word when it is not running."""
+def process_parts(p: ProcessFigures) -> list[str]:
+    """The job's process in words, most telling first: what a narrow panel drops starts from the end."""
+    if p.pid is None:
+        return []
+    if not p.local:
+        return [f"on {p.host}", "not measured from here"]
+    if not p.alive:
+        return []
+    return [f"cpu {p.cpu:.0f}%", fmt.size(p.rss), f"{p.threads} thread" + ("" if p.threads == 1 else "s")]
 
-    DEFAULT_CSS = """
-    ProcessPanel {
-        height: auto;
-        border-top: solid $foreground 30%;
-        border-title-color: $text-muted;
-        padding: 0 1;
-    }
-    """
 
-    def on_mount(self) -> None:
-        self.border_title = " job process "
-
-    def show(self, p: ProcessFigures) -> None:
-        # CPU shown in whole percent and memory in MB: repaint only when those change.
-        key = (p.pid, p.host, p.alive, p.local, p.threads, None if p.cpu is None else round(p.cpu),
-               fmt.size(p.rss))
-        self.put(key, lambda: self._grid(p), lines=3 if p.alive else 2)
-
-    def _grid(self, p: ProcessFigures) -> Text:
-        where = f" on {p.host}" if p.host else ""
-        if p.pid is None:
-            rows = [("pid", Text("none yet", style="italic"))]
-        elif not p.local:
-            rows = [("pid", f"{p.pid}{where}"), ("", Text("other host: not visible here", style="italic"))]
-        elif not p.alive:
-            rows = [("pid", f"{p.pid}{where}"), ("", Text("not running", style="bold"))]
-        else:
-            rows = [("pid", f"{p.pid}{where}"), ("threads", f"{p.threads}   cpu {p.cpu:.0f}%"),
-                    ("memory", fmt.size(p.rss))]
-        return pairs(rows)
+def process_key(p: ProcessFigures) -> tuple:
+    """What the panel shows of the process: CPU in whole percent and memory in MB (a repaint when these change)."""
+    return (p.pid, p.host, p.alive, p.local, p.threads, None if p.cpu is None else round(p.cpu), fmt.size(p.rss))

@@ -29,7 +29,7 @@ def task_words(v: View) -> str:
 
 
 class RunBar(Panel):
-    """One line naming the run and its status."""
+    """One line naming the run and its status, and the keys that act on the whole dashboard."""
 
     DEFAULT_CSS = """
     RunBar {
@@ -41,16 +41,18 @@ class RunBar(Panel):
     """
 
     _view = None
+    _keys: tuple = ()
 
-    def show(self, v: View) -> None:
-        self._view = v
+    def show(self, v: View, keys=()) -> None:
+        """keys: (label, words) of the keys captioned here (tui/keys.py)."""
+        self._view, self._keys = v, tuple(keys)
         width = self.content_region.width
-        self.put((v.run_name, task_words(v), v.status, v.stop_requested, width), lambda: self._line(v, width),
-                 lines=1)
+        self.put((v.run_name, task_words(v), v.status, v.stop_requested, width, self._keys),
+                 lambda: self._line(v, width, self._keys), lines=1)
 
     def on_resize(self) -> None:
         if self._view is not None:          # the status sits at the right edge: place it again
-            self.show(self._view)
+            self.show(self._view, self._keys)
 
     def reading(self, run_name: str, lines: int) -> None:
         """While the opening read runs."""
@@ -58,13 +60,20 @@ class RunBar(Panel):
         self.put(("reading", lines), lambda: Text.assemble(("baggr", "dim"), "  ", (run_name, "bold"), words),
                  lines=1)
 
-    def _line(self, v: View, width: int) -> Text:
-        """The run on the left, its status at the right edge; the left part gives way first."""
+    def _line(self, v: View, width: int, keys=()) -> Text:
+        """The run on the left, its status and the keys at the right edge; the left part gives way first."""
         left = Text.assemble(("baggr", "dim"), ("  ", ""), (v.run_name, "bold"), ("  ", ""), (task_words(v), ""))
         words = STATUS_WORDS.get(v.status, v.status)
         if v.status == "running" and v.stop_requested:
             words = "running, stop requested"
         right = Text(words, style=STATUS_STYLE.get(v.status, ""))
+        tail = Text()
+        for label, what in keys:
+            tail.append("   " if not tail else "  ")
+            tail.append(label, style="bold")
+            tail.append(" " + what, style="dim")
+        if len(right) + len(tail) <= width:
+            right.append_text(tail)
         room = width - len(right) - 1
         if room < 8:
             return right

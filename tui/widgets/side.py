@@ -1,16 +1,15 @@
-"""The side column: progress above, the job's process below, in one frame."""
+"""The side column: progress (with the job's process) above, the run's settings below, in one frame."""
 from __future__ import annotations
 
 from textual.app import ComposeResult
 
 from .base import Column
-from .process import ProcessPanel
 from .progress import ProgressPanel
 from .settings import SettingsPanel
 
 
 class SidePanel(Column):
-    """Progress, process and settings share one frame, to spare rows on a small terminal; what does not fit is cut."""
+    """Progress and settings share one frame, to spare rows on a small terminal; what does not fit is cut."""
 
     DEFAULT_CSS = """
     SidePanel {
@@ -24,7 +23,6 @@ class SidePanel(Column):
 
     def compose(self) -> ComposeResult:
         yield ProgressPanel(id="progress")
-        yield ProcessPanel(id="process")
         yield SettingsPanel(id="settings")
 
     def on_mount(self) -> None:
