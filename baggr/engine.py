@@ -52,8 +52,10 @@ class Training:
         self.grower = Grower(self.prep, config)
         self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
                            max(1, self.prep.n_classes), config.vote, capacity=config.members)
-        # kept trees, in member order: views into the arena, where each is copied once as it is folded
+        # kept trees, in member order: views into the arena, where each is copied once as it is folded;
+        # the trees of members before trees_base were set aside (stored by the caller, see set_aside)
         self.trees: list = []
+        self.trees_base = 0
         self._arena = self._new_arena()
         self.elapsed = 0.0
         self.stats = {"visits": 0, "nodes": 0, "grow_seconds": 0.0, "fold_seconds": 0.0,
@@ -65,7 +67,8 @@ class Training:
         return self.tally.members
 
     def run(self, on_member=None, should_stop=None, until: int | None = None, backend: Backend | None = None):
-        """Grow members until `until` (default config.members) or should_stop() is true; returns the Ensemble.
+        """Grow members until `until` (default config.members) or should_stop() is true; returns the
+        Ensemble (None once trees were set aside: see set_aside).
 
         backend: where members grow (default: local threads, config.threads of them).
         """
@@ -102,7 +105,7 @@ class Training:
             backend.close()
             self.grower.release()
             _trim_heap()
-        return self.ensemble()
+        return self.ensemble() if not self.trees_base else None   # trees set aside: the caller makes it
 
     def event(self, oob_rows: int, recent=()) -> MemberEvent:
         t = self.tally
@@ -164,10 +167,42 @@ class Training:
         self._arena = None  # from here on, the trees are packed when an ensemble is made
         return tree
 
+    def set_aside(self, upto: int) -> None:
+        """Forget the kept trees of members before `upto`, which the caller has stored (a comparison
+        keeps in memory only the trees not yet in a checkpoint's files, candidate after candidate);
+        the later ones move to a fresh arena, so the old one's memory is freed."""
+        if not self.config.keep_members or upto <= self.trees_base:
+            return
+        if upto > self.next_member:
+            raise ValueError("cannot set aside trees not grown yet")
+        later = self.trees[upto - self.trees_base:]
+        self.trees, self.trees_base = [], upto
+        self._arena = self._new_arena()
+        for t in later:
+            self.trees.append(self._keep(t))
+
+    def take_back(self, earlier) -> None:
+        """Take the trees set aside back into a fresh arena, in member order; earlier: the trees of
+        members 0..trees_base-1 (an iterable, read chunk by chunk: memory for one set of trees)."""
+        if not self.trees_base:
+            return
+        later, n = self.trees, 0
+        self.trees, self._arena = [], self._new_arena()
+        for t in earlier:
+            self.trees.append(self._keep(t))
+            n += 1
+        if n != self.trees_base:
+            raise ValueError(f"{self.trees_base} trees were set aside, {n} given back")
+        for t in later:
+            self.trees.append(self._keep(t))
+        self.trees_base = 0
+
     def forest(self) -> Forest | None:
         """The kept trees as a Forest: views of the arena, or (without one) packed now, a copy."""
         if not self.config.keep_members:
             return None
+        if self.trees_base:
+            raise ValueError("trees were set aside: take them back first (take_back)")
         if self._arena is not None:
             return self._arena.forest()
         return Forest.pack(self.trees, self.n_out)
@@ -205,7 +240,7 @@ class Training:
         if self.config.keep_members and len(trees) != m:
             raise ModelFileError(f"checkpoint has {m} members but {len(trees)} kept trees")
         self.tally.restore(tally)
-        self.trees = []
+        self.trees, self.trees_base = [], 0
         self._arena = self._new_arena()
         if self.config.keep_members:
             for t in trees:

@@ -69,8 +69,9 @@ class Dashboard(App):
     # From 110 columns the side column widens (its CSS): the process line keeps all its figures.
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
 
-    def __init__(self, run_dir, *, get_time=time.time, poll: float = TAIL_POLL, opening=None):
+    def __init__(self, run_dir, *, get_time=time.time, poll: float = TAIL_POLL, opening=None, back: bool = False):
         super().__init__()
+        self.back = back            # opened from a comparison's board: Escape goes back to it
         self.run_dir = Path(run_dir)
         self.get_time = get_time
         self.tail = Tail(self.run_dir, self.post_message, poll=poll, opening=opening)
@@ -238,6 +239,10 @@ class Dashboard(App):
     def action_leave(self) -> None:
         """q or Ctrl-C: leave the dashboard; the job goes on (the command then says how to stop it)."""
         self.exit()
+
+    def action_back(self) -> None:
+        """Escape, on a candidate opened from a comparison's board: back to the board."""
+        self.exit("back")
 
     def action_log_scale(self) -> None:
         self.log_x = not self.log_x

@@ -57,6 +57,8 @@ KEYS = [
     Key("c", "c", "cycle_class", _class_words, "highlight the next class in the curve and tables", "classes",
         when=_classes),
     Key("question_mark", "?", "help", "keys", "this list", "top"),
+    Key("escape", "Esc", "back", "back to the comparison", "back to the comparison's board (a candidate opened "
+        "from it)", "top", when=lambda app: getattr(app, "back", False)),
 ]
 
 

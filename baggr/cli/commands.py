@@ -70,9 +70,22 @@ def cmd_train(args) -> int:
     return launch(rd, run_mode(args), fresh=True, announce=str(rd.path), cluster=cluster, debug=args.debug)
 
 
+def _comparison(path) -> bool:
+    from baggr.runs.comparison import is_comparison
+    return is_comparison(path)
+
+
+def cmd_compare(args) -> int:
+    from baggr.cli import compare
+    return compare.cmd_compare(args)
+
+
 def cmd_resume(args) -> int:
     from baggr import runs
     cluster = _cluster(args)
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_resume(args)
     rd = runs.RunDir(args.dir).require()
     cfg = rd.read_config()
     st, status = rd.state()
@@ -88,6 +101,9 @@ def cmd_resume(args) -> int:
 
 
 def cmd_job(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_job(args)
     from baggr.cli import progress as prog
     from baggr.runs import Job, RunDir
     if args.cluster is not None and not args.debug:
@@ -100,6 +116,9 @@ def cmd_job(args) -> int:
 
 
 def cmd_watch(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_watch(args)
     from baggr.runs import RunDir
     rd = RunDir(args.dir).require()
     code = attach(rd)
@@ -110,6 +129,9 @@ def cmd_watch(args) -> int:
 
 
 def cmd_stop(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_stop(args)
     from baggr.runs import journal
     from baggr.runs import RunDir, RunDirError
     from baggr.runs import status_words
@@ -128,6 +150,9 @@ def cmd_stop(args) -> int:
 
 
 def cmd_report(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_report(args)
     from baggr.cli import report
     r = report.load(args.dir)
     if args.json:

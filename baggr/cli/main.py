@@ -10,10 +10,11 @@ import sys
 import textwrap
 import traceback
 
-from baggr.cli.commands import cmd_demo, cmd_job, cmd_predict, cmd_report, cmd_resume, cmd_stop, cmd_train, cmd_watch
+from baggr.cli.commands import (cmd_compare, cmd_demo, cmd_job, cmd_predict, cmd_report, cmd_resume, cmd_stop,
+                                cmd_train, cmd_watch)
 from baggr.errors import BaggrError
 
-COMMANDS = ("train", "resume", "watch", "stop", "report", "predict", "demo")
+COMMANDS = ("train", "compare", "resume", "watch", "stop", "report", "predict", "demo")
 
 
 # ---------------------------------------------------------------- parsing
@@ -108,6 +109,34 @@ def cluster_option() -> Parser:
     return p
 
 
+def _listed(item, what: str):
+    """An argparse type for a comma list of items (each parsed by item): "2,4,8" -> [2, 4, 8]."""
+    def parse(text: str) -> list:
+        out = []
+        for part in text.split(","):
+            part = part.strip()
+            if not part:
+                raise argparse.ArgumentTypeError(f"expected a comma list of {what}, got {text!r}")
+            try:
+                out.append(item(part))
+            except (ValueError, argparse.ArgumentTypeError):
+                raise argparse.ArgumentTypeError(f"expected a comma list of {what}, got {part!r} in {text!r}") from None
+        return out
+    return parse
+
+
+def _depth(text: str):
+    return None if text.lower() in ("none", "no", "off") else int(text)
+
+
+def _choice(*names):
+    def parse(text: str) -> str:
+        if text not in names:
+            raise ValueError(text)
+        return text
+    return parse
+
+
 def _example(text: str) -> str:
     return "example:\n" + textwrap.indent(textwrap.dedent(text).strip(), "  ")
 
@@ -142,7 +171,8 @@ def build_parser() -> Parser:
     g.add_argument("--threads", type=int, default=None, help="local threads (default: all cores)")
     g.add_argument("--estimate-only", action="store_true",
                    help="drop each tree after its OOB votes: the OOB estimate without a model for scoring")
-    r = settings.add_argument_group("run settings")
+    run_opts = Parser(add_help=False)
+    r = run_opts.add_argument_group("run settings")
     r.add_argument("--stop-when-stable", action="store_true",
                    help="stop early once the OOB error has settled within its own 95%% interval "
                         "(after at least 50 members, over the last max(25, members/5) members)")
@@ -175,7 +205,7 @@ def build_parser() -> Parser:
             """
             baggr train firings.csv --target outcome --members 500 --features-per-split 4
             baggr train log.csv --target weather --drop station_id --delimiter ';'""",
-            (settings, table_parser(), cluster, ui), "Train an ensemble on DATA (CSV, TSV or Parquet) and write a run directory: its "
+            (settings, run_opts, table_parser(), cluster, ui), "Train an ensemble on DATA (CSV, TSV or Parquet) and write a run directory: its "
             "config, a journal line per member, checkpoints and the model. On a terminal the job runs "
             "detached (a dropped SSH link does not end it) and the dashboard attaches; leave the dashboard "
             "and the job goes on (baggr watch DIR to return).")
@@ -183,21 +213,68 @@ def build_parser() -> Parser:
     t.add_argument("--target", "-t", required=True, metavar="COL", help="the column to predict")
     t.set_defaults(func=cmd_train)
 
+    listed = Parser(add_help=False)
+    g = listed.add_argument_group("ensemble settings (a comma list makes one candidate per value)")
+    g.add_argument("--members", type=_listed(int, "whole numbers"), default=[100], metavar="N[,N...]",
+                   help="members (trees) of each candidate (default 100)")
+    g.add_argument("--features-per-split", type=_listed(_features_per_split, "sqrt, log2, whole numbers or fractions"),
+                   default=[None], metavar="K[,K...]", help="features tried at each split (default sqrt for classes, "
+                   "1/3 for regression)")
+    g.add_argument("--min-leaf", type=_listed(int, "whole numbers"), default=[1], metavar="N[,N...]",
+                   help="fewest in-bag draws in a leaf (default 1)")
+    g.add_argument("--depth-limit", type=_listed(_depth, "whole numbers or none"), default=[None], metavar="D[,D...]",
+                   help="deepest level; none: no limit (default none)")
+    g.add_argument("--draw", type=_listed(_choice("bootstrap", "balanced", "subsample"), "bootstrap, balanced or "
+                   "subsample"), default=["bootstrap"], metavar="SCHEME[,...]",
+                   help="how rows are drawn: bootstrap, balanced, subsample (default bootstrap); candidates with "
+                        "other draw schemes do not share their draws")
+    g.add_argument("--draw-fraction", type=_listed(float, "fractions"), default=[0.632], metavar="F[,F...]",
+                   help="share of rows drawn by --draw subsample (default 0.632)")
+    g.add_argument("--bins", type=_listed(int, "whole numbers"), default=[255], metavar="N[,N...]",
+                   help="value bins per numeric feature, 2..255 (default 255); each bins value is binned once")
+    g.add_argument("--vote", type=_listed(_choice("hard", "shares"), "hard or shares"), default=["hard"],
+                   metavar="V[,V]", help="how members vote (default hard)")
+    g.add_argument("--task", choices=("classes", "regression"), default=None,
+                   help="default: text, whole numbers and true/false are classes; other numbers regression")
+    g.add_argument("--seed", type=int, default=0, help="random seed, one for all candidates (default 0)")
+    g.add_argument("--threads", type=int, default=None, help="local threads (default: all cores)")
+    g.add_argument("--estimate-only", action="store_true",
+                   help="drop each tree after its OOB votes: estimates without models for scoring")
+    c = add("compare", "train several candidate settings on the same data and rank them fairly",
+            "baggr compare firings.csv --target outcome --features-per-split 2,4,8 --min-leaf 1,5 --members 300",
+            (listed, run_opts, table_parser(), ui),
+            "Train one candidate per combination of the listed settings (or per line of --candidates FILE) on "
+            "DATA, read and binned once, with the same seed: member m of every candidate draws the same rows, "
+            "so the candidates are compared on the same OOB rows with paired tests. Candidates grow in "
+            "interleaved blocks of members. Writes a comparison directory holding one ordinary run directory "
+            "per candidate; baggr report DIR ranks them.")
+    c.add_argument("data", metavar="DATA", help="the training table (.csv, .tsv, .txt, .parquet)")
+    c.add_argument("--target", "-t", required=True, metavar="COL", help="the column to predict")
+    c.add_argument("--candidates", metavar="FILE", default=None,
+                   help="the candidates, one per line as setting=value pairs (min_leaf=5 features_per_split=4), "
+                        "or a JSON list of objects; the options above set what a line leaves out")
+    c.add_argument("--block", type=int, default=None, metavar="N",
+                   help="members each candidate grows before the next takes its turn (default 25)")
+    c.add_argument("--measure", default=None, metavar="NAME",
+                   help="the figure to rank by: error, balanced-error, log-loss, brier, auc (classes); "
+                        "mse, mae, r2 (regression); default error or mse")
+    c.set_defaults(func=cmd_compare)
+
     rs = add("resume", "continue an interrupted run from its last checkpoint",
              "baggr resume runs/firings-20250101-120000", (cluster, ui),
              "Continue a stopped, failed or crashed run from its last checkpoint; the result is bit-identical "
              "to a run never interrupted. The data file must be unchanged. A finished run is left as it is "
              "(exit 0).")
-    rs.add_argument("dir", metavar="DIR", help="the run directory")
+    rs.add_argument("dir", metavar="DIR", help="the run directory (or comparison directory)")
     rs.set_defaults(func=cmd_resume)
 
     w = add("watch", "attach the dashboard to a run (running or not)", "baggr watch runs/firings-20250101-120000")
-    w.add_argument("dir", metavar="DIR", help="the run directory")
+    w.add_argument("dir", metavar="DIR", help="the run directory (a comparison directory: a line a round)")
     w.set_defaults(func=cmd_watch)
 
     s = add("stop", "ask a running job to finish the member in hand, save and stop",
             "baggr stop runs/firings-20250101-120000 --wait")
-    s.add_argument("dir", metavar="DIR", help="the run directory")
+    s.add_argument("dir", metavar="DIR", help="the run directory (a comparison directory: all its candidates)")
     s.add_argument("--wait", action="store_true", help="wait until the job has stopped")
     s.set_defaults(func=cmd_stop)
 
@@ -206,8 +283,10 @@ def build_parser() -> Parser:
              description="Print a run's OOB error with its interval, per-class errors, the confusion counts, "
                          "coverage, where the curve settled, members, time, settings and the data fingerprint. "
                          "Works on a finished run (model.npz), an unfinished one (its checkpoint) or a model file.")
-    rp.add_argument("dir", metavar="DIR", help="a run directory or a model file")
+    rp.add_argument("dir", metavar="DIR", help="a run directory, a model file, or a comparison directory (ranked)")
     rp.add_argument("--json", action="store_true", help="print one JSON object instead of tables")
+    rp.add_argument("--measure", default=None, metavar="NAME",
+                    help="a comparison directory: the figure to rank by (default: the comparison's own)")
     rp.set_defaults(func=cmd_report)
 
     pr = add("predict", "score new rows with a run's model",

@@ -98,7 +98,10 @@ class Checkpointer:
         self.writes += 1
         self.last_started = m
         kept = self.chunks[-1][1] if self.chunks else 0
-        trees = list(tr.trees[kept:m]) if tr.config.keep_members and m > kept else []
+        base = tr.trees_base          # trees before it were set aside: they are in chunk files already
+        if tr.config.keep_members and kept < base:
+            raise ValueError(f"trees from member {kept} on were set aside before a checkpoint stored them")
+        trees = list(tr.trees[kept - base:m - base]) if tr.config.keep_members and m > kept else []
         arrays, header = tr.checkpoint()
         arrays = {k: np.array(v, copy=True) for k, v in arrays.items()}   # the tallies move on meanwhile
         if tr.prep.task == "classes":
@@ -224,30 +227,48 @@ class Checkpointer:
         self._drop_unreferenced()
         return True
 
+    def stored_trees(self, upto: int):
+        """The kept trees of members 0..upto-1, read back from the latest checkpoint's chunk files one
+        file at a time (a generator: a file's trees are let go once the caller has copied them)."""
+        n = 0
+        for c in self.chunks:
+            if n >= upto:
+                break
+            for t in self._chunk_trees(c, n, self.training.prep.codes.shape[0]):
+                if n >= upto:
+                    break
+                yield t
+                n += 1
+        if n < upto:
+            raise ModelFileError(f"{self.rd.path}: the chunk files hold fewer than {upto} members")
+
     def _load_chunks(self, chunks, n_features: int) -> list:
-        from baggr.model.forest import Forest
         trees, at = [], 0
         for c in chunks:
-            if not (isinstance(c, list) and len(c) == 3 and c[0] == at and c[1] > c[0] and isinstance(c[2], str)
-                    and (c[2] == _chunk_name(c[0], c[1]) or (c[2] == MODEL and c[0] == 0))):
-                raise ModelFileError(f"{self.rd / CHECKPOINT}: its list of member files is damaged")
-            if c[2] == MODEL:   # the first c[1] members of the model a stop saved (fold_into_model)
-                trees.extend(self._model_members(c[1]))
-                at = c[1]
-                continue
-            h, a = npzfile.read(self.rd / c[2], "members file")
-            if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
-                raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
-            if h.get("format_version") == 1:
-                forest = Forest(a)
-                forest.validate(n_features, self.training.n_out)
-            else:
-                forest = self._compact_chunk(c[2], h, a)
-            if forest.members != c[1] - c[0]:
-                raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
-            trees.extend(forest.unpack())
+            trees.extend(self._chunk_trees(c, at, n_features))
             at = c[1]
         return trees
+
+    def _chunk_trees(self, c, at: int, n_features: int) -> list:
+        """The trees of one entry of the checkpoint's list (a chunk file, or the first members of
+        the model a stop saved), checked against the list (the entry must start at member `at`)."""
+        from baggr.model.forest import Forest
+        if not (isinstance(c, list) and len(c) == 3 and c[0] == at and c[1] > c[0] and isinstance(c[2], str)
+                and (c[2] == _chunk_name(c[0], c[1]) or (c[2] == MODEL and c[0] == 0))):
+            raise ModelFileError(f"{self.rd / CHECKPOINT}: its list of member files is damaged")
+        if c[2] == MODEL:   # the first c[1] members of the model a stop saved (fold_into_model)
+            return self._model_members(c[1])
+        h, a = npzfile.read(self.rd / c[2], "members file")
+        if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
+            raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
+        if h.get("format_version") == 1:
+            forest = Forest(a)
+            forest.validate(n_features, self.training.n_out)
+        else:
+            forest = self._compact_chunk(c[2], h, a)
+        if forest.members != c[1] - c[0]:
+            raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
+        return forest.unpack()
 
     def _model_members(self, k: int) -> list:
         h, a = npzfile.read(self.rd / MODEL, "model file")

@@ -80,6 +80,10 @@ class Job:
         self.journal = None
         self.training = None
         self.checkpointer = None
+        self.cfg = None
+        self.settings = None
+        self._lock = None
+        self._resumed = False
         self._old_handlers = {}
 
     # -- signals
@@ -115,43 +119,73 @@ class Job:
     # -- the run
     def run(self) -> Outcome:
         """Train to the end (or a stop); BaggrError for what the user can fix (after an end line "failed")."""
-        lock = self.rd.acquire()
+        self.acquire()
         self._install_signals()
         try:
-            try:
-                _terminate_torn_line(self.rd / JOURNAL)
-                self.journal = JournalWriter(self.rd / JOURNAL)
-            except OSError as e:
-                raise write_error("the journal", self.rd / JOURNAL, e) from None
-            try:
-                return self._run()
-            except KeyboardInterrupt as e:
-                return self._quit(str(e) or "SIGINT")
-            except BaggrError as e:
-                self._end("failed", f"error: {e}")
-                raise
-            except OSError as e:   # a full or read-only disk under the run directory: the user's to fix
-                err = write_error("files in", self.rd.path, e)
-                self._end("failed", f"error: {err}")
-                raise err from None
-            except Exception as e:
-                self._end("failed", f"internal error: {type(e).__name__}: {e}")
-                raise
+            return self.guarded(self._run)
         finally:
             if self.backend is not None:
                 self.backend.shutdown()
             self._restore_signals()
-            if self.journal is not None:
-                self.journal.close()
-            lock.release()
+            self.release()
+
+    def acquire(self) -> None:
+        """Take the run directory's lock and open its journal (ending a torn last line first)."""
+        self._lock = self.rd.acquire()
+        try:
+            _terminate_torn_line(self.rd / JOURNAL)
+            self.journal = JournalWriter(self.rd / JOURNAL)
+        except OSError as e:
+            self._lock.release()
+            self._lock = None
+            raise write_error("the journal", self.rd / JOURNAL, e) from None
+
+    def release(self) -> None:
+        if self.journal is not None:
+            self.journal.close()
+        if self._lock is not None:
+            self._lock.release()
+            self._lock = None
+
+    def guarded(self, step):
+        """step() with the job's handling of what ends it: a second signal quits, a user error or an
+        internal one writes the end line "failed" and is raised again."""
+        try:
+            return step()
+        except KeyboardInterrupt as e:
+            return self._quit(str(e) or "SIGINT")
+        except BaggrError as e:
+            self._end("failed", f"error: {e}")
+            raise
+        except OSError as e:   # a full or read-only disk under the run directory: the user's to fix
+            err = write_error("files in", self.rd.path, e)
+            self._end("failed", f"error: {err}")
+            raise err from None
+        except Exception as e:
+            self._end("failed", f"internal error: {type(e).__name__}: {e}")
+            raise
 
     def _run(self) -> Outcome:
+        done = self.open()
+        if done is not None:
+            return done
+        if self.stop_reason:
+            return self._stopped(self.training, write_checkpoint=False)
+        self.begin()
+        self.advance(self.training.config.members)
+        return self.conclude()
+
+    def open(self, prepared=None) -> Outcome | None:
+        """Read the settings and the data (or take `prepared`: a function of the Config giving the
+        data already read and binned for these settings), make the Training and restore the
+        checkpoint; an Outcome when the run is finished already."""
         rd = self.rd
-        cfg = rd.read_config()
+        cfg = self.cfg = rd.read_config()
         config = Config.from_dict(cfg["config"])
-        settings = RunSettings.from_dict(cfg.get("run"))
+        self.settings = RunSettings.from_dict(cfg.get("run"))
         info = cfg["data"]
         st, _ = rd.state()
+        self._resumed = st.starts > 0
         if st.status == "finished" and (rd / MODEL).exists():
             remove_checkpoint(rd)   # a crash may have left them after the end line
             return Outcome("finished", st.reason or "finished", st.members, st.elapsed,
@@ -165,12 +199,15 @@ class Job:
             (rd / STOP).unlink()     # a stop request from an earlier job is not meant for this one
         except FileNotFoundError:
             pass
-        from baggr.data.table import read_table      # not .data: a bad file is told before numba is even imported
         table = table_options(cfg)
-        X, y = read_table(info["path"], cfg["target"], drop=table["drop"], only=table["only"],
-                          delimiter=table["delimiter"])
         from baggr.engine import Training, compile_seconds, missing_target_text
-        tr = self.training = Training(X, y, config, target=cfg["target"], missing_target=table["missing_target"])
+        if prepared is None:
+            from baggr.data.table import read_table      # not .data: a bad file is told before numba is even imported
+            X, y = read_table(info["path"], cfg["target"], drop=table["drop"], only=table["only"],
+                              delimiter=table["delimiter"])
+            tr = self.training = Training(X, y, config, target=cfg["target"], missing_target=table["missing_target"])
+        else:
+            tr = self.training = Training(None, None, config, prepared=prepared(config))
         seconds = compile_seconds(tr.prep.task)   # the data is good: the run will start
         if seconds:
             self._compiling(seconds)
@@ -190,45 +227,82 @@ class Job:
         tr.warm_up()   # compiling (a first run) or loading the kernels: out of the training figures
         extra = {"sha256": info.get("sha256"), "config": config.to_dict(), "schema": tr.prep.schema.to_json(),
                  "target": cfg["target"]}
-        self.checkpointer = ck = Checkpointer(rd, tr, settings, extra, self.journal)
+        self.checkpointer = Checkpointer(rd, tr, self.settings, extra, self.journal)
         try:
-            resumed = ck.restore()
+            self._resumed = self.checkpointer.restore() or self._resumed
         except ModelFileError as e:
             raise ModelFileError(f"{e}; to start this run over from member 0, remove {rd / CHECKPOINT}") from None
-        if self.stop_reason:
-            return self._stopped(tr, write_checkpoint=False)
-        self._start(tr, cfg, resumed or st.starts > 0)
-        if tr.next_member < config.members:
-            kill_members = os.environ.get(FAULT_KILL, "")
+        return None
 
-            def on_member(ev):
-                fields = ev.journal_fields()
-                self.journal.write("member", **fields)
-                if self.progress is not None:
-                    self.progress.member(fields)
-                if kill_members:
-                    fault_kill("member", fields["member"])
-                if ck.due():
-                    ck.write()
+    def begin(self) -> None:
+        """Write the start line."""
+        self._start(self.training, self.cfg, self._resumed)
 
-            def should_stop():
-                if self.stop_reason:
+    @property
+    def done(self) -> bool:
+        """The run reached its members or settled (nothing more to grow)."""
+        tr = self.training
+        return tr.next_member >= tr.config.members or (self.stop_reason or "").startswith("stable")
+
+    def advance(self, until: int, should_stop=None) -> None:
+        """Grow members until `until` (at most the configured members), a stop or a settled curve.
+
+        should_stop: a further reason to stop (a string, or None), asked after every member.
+        """
+        tr, rd, ck, settings = self.training, self.rd, self.checkpointer, self.settings
+        until = min(until, tr.config.members)
+        if tr.next_member >= until or self.done:
+            return
+        kill_members = os.environ.get(FAULT_KILL, "")
+
+        def on_member(ev):
+            fields = ev.journal_fields()
+            self.journal.write("member", **fields)
+            if self.progress is not None:
+                self.progress.member(fields)
+            if kill_members:
+                fault_kill("member", fields["member"])
+            if ck.due():
+                ck.write()
+
+        def stop_now():
+            if self.stop_reason:
+                return True
+            if (rd / STOP).exists():
+                self.stop_reason = "stop requested"
+                return True
+            if should_stop is not None:
+                why = should_stop()
+                if why:
+                    self.stop_reason = why
                     return True
-                if (rd / STOP).exists():
-                    self.stop_reason = "stop requested"
+            if settings.stop_when_stable:
+                why = stable_now(tr.tally.curve, tr.tally.curve_interval, tr.next_member, settings)
+                if why:
+                    self.stop_reason = why
                     return True
-                if settings.stop_when_stable:
-                    why = stable_now(tr.tally.curve, tr.tally.curve_interval, tr.next_member, settings)
-                    if why:
-                        self.stop_reason = why
-                        return True
-                return False
+            return False
 
-            try:
-                tr.run(on_member=on_member, should_stop=should_stop, backend=self.backend)
-            except ClusterLostError as e:
-                self._cluster_lost(tr, e)
-        if tr.next_member >= config.members or (self.stop_reason or "").startswith("stable"):
+        try:
+            tr.run(on_member=on_member, should_stop=stop_now, until=until, backend=self.backend)
+        except ClusterLostError as e:
+            self._cluster_lost(tr, e)
+
+    def set_aside(self) -> None:
+        """Free the memory of the kept trees already in the checkpoint's files (a comparison does this
+        for the candidates not growing); starts a checkpoint of the newer ones in the background."""
+        tr, ck = self.training, self.checkpointer
+        if tr is None or not tr.config.keep_members:
+            return
+        ck.poll()
+        tr.set_aside(ck.member)
+        if tr.next_member > ck.last_started and not ck.busy:
+            ck.write()
+
+    def conclude(self) -> Outcome:
+        """Save and write the end line: finished when done, else stopped (with a checkpoint)."""
+        tr = self.training
+        if self.done:
             return self._finished(tr)
         return self._stopped(tr, write_checkpoint=True)
 
@@ -260,6 +334,8 @@ class Job:
             self.progress.begin(fields)
 
     def _save_model(self, tr) -> None:
+        if tr.trees_base:       # a comparison set them aside: back from the checkpoint's files, file by file
+            tr.take_back(self.checkpointer.stored_trees(tr.trees_base))
         ens = tr.ensemble()
         try:
             ens.save(self.rd / MODEL)

@@ -64,13 +64,19 @@ def fingerprint(path) -> dict:
     return {"path": str(p.resolve()), "bytes": size, "sha256": digest}
 
 
-def default_run_dir(data_path, root="runs") -> Path:
-    """runs/<data-name>-<YYYYmmdd-HHMMSS>, with -2, -3, ... if that exists already."""
+def data_stem(data_path) -> str:
+    """The data file's name without folders and extensions (firings.csv.gz -> firings)."""
     name = Path(data_path).name
     for suffix in (".gz", ".bz2", ".zst", ".lz4"):
         if name.lower().endswith(suffix):
             name = name[: -len(suffix)]
-    name = Path(name).stem or "run"
+    return Path(name).stem or "run"
+
+
+def default_run_dir(data_path, root="runs", kind: str = "") -> Path:
+    """runs/<data-name>-<YYYYmmdd-HHMMSS> (kind "compare": runs/<data-name>-compare-<...>), with -2,
+    -3, ... if that exists already."""
+    name = data_stem(data_path) + (f"-{kind}" if kind else "")
     base = Path(root) / f"{name}-{time.strftime('%Y%m%d-%H%M%S')}"
     path, k = base, 2
     while path.exists():
