@@ -12,6 +12,10 @@ DRAWS = ("bootstrap", "balanced", "subsample")
 CRITERIA = ("gini", "entropy", "variance")
 TASKS = ("classes", "regression")
 VOTES = ("hard", "shares")
+# the measures' names as `--measure` spells them (their definitions: baggr/oob/measures.py)
+CLASS_MEASURES = ("error", "balanced-error", "log-loss", "brier", "auc")
+REGRESSION_MEASURES = ("mse", "rmse", "mae", "r2")
+MEASURES = CLASS_MEASURES + REGRESSION_MEASURES
 
 
 @dataclass(frozen=True)
@@ -31,6 +35,8 @@ class Config:
     seed: int = 0
     threads: int | None = None         # None: all cores
     keep_members: bool = True          # False: estimate-only run, trees dropped after their tally
+    importance: bool = False           # OOB permutation importance per member (Breiman 2001), and impurity decrease
+    measure: str | None = None         # the figure a run is judged by (None: "error" for classes, "mse" for regression)
 
     def __post_init__(self):
         _check(isinstance(self.members, int) and not isinstance(self.members, bool) and self.members >= 1,
@@ -52,6 +58,9 @@ class Config:
         _check(isinstance(self.seed, int) and self.seed >= 0, f"seed must be a whole number >= 0, got {self.seed!r}")
         _check(self.threads is None or (isinstance(self.threads, int) and self.threads >= 1),
                f"threads must be a whole number >= 1 (or unset: all cores), got {self.threads!r}")
+        _check(isinstance(self.importance, bool), f"importance must be True or False, got {self.importance!r}")
+        _check(self.measure is None or self.measure in MEASURES,
+               f"measure must be one of {', '.join(MEASURES)}, got {self.measure!r}")
         f = self.features_per_split
         ok = (f is None or f in ("sqrt", "log2")
               or (isinstance(f, int) and not isinstance(f, bool) and f >= 1)
@@ -102,6 +111,16 @@ class Config:
                 "features_per_split": self.resolved_features(n_features, task),
                 "features_rule": self.features_rule(task), "features": n_features,
                 "criterion": self.resolved_criterion(task), "threads": self.resolved_threads()}
+
+    def resolved_measure(self, task: str) -> str:
+        """The measure a run is judged by, checking it fits the task."""
+        names = CLASS_MEASURES if task == "classes" else REGRESSION_MEASURES
+        if self.measure is None:
+            return names[0]
+        if self.measure not in names:
+            kind = "classes" if task == "classes" else "a regression target"
+            raise ConfigError(f"measure {self.measure!r} does not fit {kind}; use one of {', '.join(names)}")
+        return self.measure
 
     def resolved_threads(self) -> int:
         """Local threads to use."""

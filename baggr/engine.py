@@ -19,6 +19,8 @@ from baggr.errors import ConfigError, ModelFileError
 from baggr.events import MemberEvent
 from baggr.model.ensemble import Ensemble
 from baggr.model.forest import Forest
+from baggr.oob.importance import ImportanceTally
+from baggr.oob.measure_curve import MeasureCurve
 from baggr.oob.view import OOB
 from baggr.oob.tally import Tally
 
@@ -52,6 +54,10 @@ class Training:
         self.grower = Grower(self.prep, config)
         self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
                            max(1, self.prep.n_classes), config.vote, capacity=config.members)
+        self.measures = MeasureCurve(self.prep.task)   # every measure at log-spaced sizes
+        self._measured: dict | None = None
+        self.importance = ImportanceTally(self.prep.codes.shape[0], self.prep.n_classes if self.prep.task == "classes"
+                                          else 0) if config.importance else None
         # kept trees, in member order: views into the arena, where each is copied once as it is folded;
         # the trees of members before trees_base were set aside (stored by the caller, see set_aside)
         self.trees: list = []
@@ -59,7 +65,7 @@ class Training:
         self._arena = self._new_arena()
         self.elapsed = 0.0
         self.stats = {"visits": 0, "nodes": 0, "grow_seconds": 0.0, "fold_seconds": 0.0,
-                      "keep_seconds": 0.0, "members": 0, "missing_target": self.prep.missing_target}
+                      "keep_seconds": 0.0, "measure_seconds": 0.0, "members": 0, "missing_target": self.prep.missing_target}
         self.warm_up_seconds = 0.0   # compiling or loading the kernels before the first member (not in elapsed)
 
     @property
@@ -85,6 +91,13 @@ class Training:
                 self.tally.fold(result.delta)
                 t1 = time.perf_counter()
                 self.stats["fold_seconds"] += t1 - t0
+                if self.importance is not None and result.importance is not None:
+                    self.importance.fold(result.importance)
+                    self.stats["importance_seconds"] = self.stats.get("importance_seconds", 0.0) + \
+                        result.importance_seconds
+                self._measured = self.measures.after_fold(self.tally)
+                self.stats["measure_seconds"] = self.measures.seconds
+                t1 = time.perf_counter()
                 if result.tree is not None:
                     self.trees.append(self._keep(result.tree))
                     self.stats["keep_seconds"] += time.perf_counter() - t1
@@ -117,6 +130,8 @@ class Training:
             ev.confusion = t.confusion.tolist()
         else:
             ev.r2 = t.r2()
+        if self._measured is not None:
+            ev.measures = self._measured
         return ev
 
     def warm_up(self) -> float:
@@ -210,8 +225,18 @@ class Training:
     def ensemble(self) -> Ensemble:
         p = self.prep
         stats = dict(self.stats, seconds=self.elapsed)
-        return Ensemble(p.schema, p.binning, self.config, self.forest(), OOB.from_tally(self.tally, p.schema.classes),
-                        stats)
+        oob = OOB.from_tally(self.tally, p.schema.classes)
+        oob.arrays().update(self._oob_extras())
+        return Ensemble(p.schema, p.binning, self.config, self.forest(), oob, stats)
+
+    def _oob_extras(self) -> dict:
+        """Arrays the OOB view carries beside the tallies: the targets (the measures and the per-row
+        export judge against them) and the measure curve."""
+        y = self.tally.y
+        extra = {"target": np.array(y, copy=True), **self.measures.arrays()}
+        if self.importance is not None:
+            extra.update(self.importance.arrays())
+        return extra
 
     # -- checkpoints -----------------------------------------------------------------------------
     def checkpoint(self) -> tuple[dict, dict]:
@@ -221,6 +246,7 @@ class Training:
         files via Forest.pack(training.trees[a:b])), so a checkpoint costs O(rows), not O(trees).
         """
         arrays = {"tally_" + k: v for k, v in self.tally.arrays().items()}
+        arrays.update(self._oob_extras())
         header = {"next_member": self.next_member, "elapsed": self.elapsed,
                   "stats": {k: float(v) for k, v in self.stats.items()}}
         return arrays, header
@@ -240,6 +266,11 @@ class Training:
         if self.config.keep_members and len(trees) != m:
             raise ModelFileError(f"checkpoint has {m} members but {len(trees)} kept trees")
         self.tally.restore(tally)
+        self.measures.restore(arrays, m)
+        if self.importance is not None:
+            if "imp_sum" not in arrays:
+                raise ModelFileError("the checkpoint has no importance figures, but the run measures importance")
+            self.importance.restore(arrays)
         self.trees, self.trees_base = [], 0
         self._arena = self._new_arena()
         if self.config.keep_members:

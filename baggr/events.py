@@ -20,6 +20,7 @@ class MemberEvent:
     confusion: list | None = None
     r2: float | None = None
     rate: float = 0.0               # members per second, recent
+    measures: dict | None = None    # {name: (value, interval)} at the measure curve's sizes, else None
 
     def journal_fields(self) -> dict:
         """Fields for the journal's member line (strict JSON: NaN becomes null)."""
@@ -31,6 +32,9 @@ class MemberEvent:
             d["confusion"] = self.confusion
         if self.r2 is not None:
             d["r2"] = _num(self.r2)
+        if self.measures is not None:
+            d["measures"] = {k: [_num(v), *([_num(x) for x in iv] if iv is not None else [None, None])]
+                             for k, (v, iv) in self.measures.items()}
         return d
 
 

@@ -107,6 +107,7 @@ def _from_checkpoint(path, header, arrays, common) -> RunReport:
     except Exception as e:   # a damaged header: any shape of wrong
         raise ModelFileError(f"{path}: the header is damaged ({e})") from None
     a = {k[6:]: v for k, v in arrays.items() if k.startswith("tally_")}
+    a.update({k: v for k, v in arrays.items() if k == "target" or k.startswith("measure_")})
     if schema.task == "classes":
         a["class_rows"] = arrays.get("class_rows")
         if a["class_rows"] is None:

@@ -13,16 +13,22 @@ from baggr.jit import kernel
 @kernel
 def vote_range(votes):
     """(smallest, largest) number of OOB votes over the rows that have any; (0, -1) when none has."""
-    kmin = np.int64(1) << 62
+    big = np.int64(1) << 62
+    kmin = big
     kmax = np.int64(-1)
-    for r in range(votes.shape[0]):
-        k = np.int64(0)
-        for c in range(votes.shape[1]):
-            k += votes[r, c]
-        if k > 0:
-            kmin = min(kmin, k)
+    if votes.shape[1] == 2:     # branch-free: min and max compile to selects
+        for r in range(votes.shape[0]):
+            k = np.int64(votes[r, 0]) + np.int64(votes[r, 1])
             kmax = max(kmax, k)
-    if kmax < 0:
+            kmin = min(kmin, k if k > 0 else big)
+    else:
+        for r in range(votes.shape[0]):
+            k = np.int64(0)
+            for c in range(votes.shape[1]):
+                k += votes[r, c]
+            kmax = max(kmax, k)
+            kmin = min(kmin, k if k > 0 else big)
+    if kmax <= 0:
         return np.int64(0), np.int64(-1)
     return kmin, kmax
 
@@ -76,9 +82,9 @@ def class_cells(y, votes, kmin, width, first_class, true_cells, rank_cells, clas
 
 
 @kernel
-def class_rows(y, votes, log_loss, brier, class_covered, class_wrong):
-    """Per-row log loss and Brier score of covered rows (other rows: NaN) for votes of any kind
-    (float64 share sums or int32 counts), and per-class covered and wrong counts.
+def class_rows(y, votes, sums, class_covered, class_wrong):
+    """Log loss and Brier sums over covered rows for votes of any kind (float64 share sums or int32
+    counts), and per-class covered and wrong counts: sums += [log loss, its square, Brier, its square].
 
     log loss: -log((v_y + 1/2) / (k + C/2)), the share smoothed by Krichevsky and Trofimov (1981)
     (see measures.py); Brier: sum_c (v_c / k - [y == c])**2 (Brier 1950).
@@ -93,18 +99,36 @@ def class_rows(y, votes, log_loss, brier, class_covered, class_wrong):
             if votes[r, c] > votes[r, best]:
                 best = c
         if not k > 0.0:
-            log_loss[r] = np.nan
-            brier[r] = np.nan
             continue
         t = np.int64(y[r])
-        log_loss[r] = -np.log((votes[r, t] + 0.5) / (k + half_c))
+        ll = -np.log((votes[r, t] + 0.5) / (k + half_c))
         loss = 0.0
         for c in range(n_classes):
             d = votes[r, c] / k - (1.0 if c == t else 0.0)
             loss += d * d
-        brier[r] = loss
+        sums[0] += ll
+        sums[1] += ll * ll
+        sums[2] += loss
+        sums[3] += loss * loss
         class_covered[t] += 1
         class_wrong[t] += np.int64(best != t)
+
+
+@kernel
+def share_bins(y, votes, first_class, cells):
+    """cells[a, bin of share_c, y == c] += 1 for c = first_class + a over covered rows: the share
+    v_c / k put in one of cells.shape[1] equal bins of [0, 1] (votes of any kind)."""
+    n_bins = cells.shape[1]
+    for r in range(votes.shape[0]):
+        k = 0.0
+        for c in range(votes.shape[1]):
+            k += votes[r, c]
+        if not k > 0.0:
+            continue
+        for a in range(cells.shape[0]):
+            c = first_class + a
+            b = min(np.int64(votes[r, c] / k * n_bins), n_bins - 1)
+            cells[a, b, np.int64(y[r] == c)] += 1
 
 
 @kernel

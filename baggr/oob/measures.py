@@ -42,13 +42,10 @@ import math
 
 import numpy as np
 
-from baggr.errors import ConfigError
+from baggr.config import CLASS_MEASURES, MEASURES, REGRESSION_MEASURES  # noqa: F401  (the names live there)
 from baggr.oob import measure_kernels as k
 from baggr.oob.intervals import Z95, normal_mean, wilson
 
-CLASS_MEASURES = ("error", "balanced-error", "log-loss", "brier", "auc")
-REGRESSION_MEASURES = ("mse", "rmse", "mae", "r2")
-MEASURES = CLASS_MEASURES + REGRESSION_MEASURES
 HIGHER_IS_BETTER = frozenset({"auc", "r2"})
 LABELS = {"error": "OOB error", "balanced-error": "balanced error", "log-loss": "log loss", "brier": "Brier score",
           "auc": "AUC", "mse": "OOB MSE", "rmse": "RMSE", "mae": "MAE", "r2": "R2"}
@@ -74,21 +71,9 @@ def task_measures(task: str) -> tuple:
     return CLASS_MEASURES if task == "classes" else REGRESSION_MEASURES
 
 
-def default_measure(task: str) -> str:
-    """The measure a run is judged by unless --measure says otherwise."""
-    return "error" if task == "classes" else "mse"
-
-
-def check_measure(name: str | None, task: str | None = None) -> str | None:
-    """name when it is a measure (and fits the task, when that is known); ConfigError otherwise."""
-    if name is None:
-        return None
-    if name not in MEASURES:
-        raise ConfigError(f"measure must be one of {', '.join(MEASURES)}, got {name!r}")
-    if task is not None and name not in task_measures(task):
-        kind = "classes" if task == "classes" else "regression"
-        raise ConfigError(f"measure {name!r} does not fit a {kind} target; use one of {', '.join(task_measures(task))}")
-    return name
+def _dot(a, b) -> float:
+    """sum(a * b) without BLAS (whose threads, on a busy machine, take longer to wake than the sum)."""
+    return float(np.sum(np.multiply(a, b)))
 
 
 def _pair(value, interval):
@@ -112,9 +97,15 @@ def _normal(total, total_sq, n, lo=None, hi=None):
 
 # ---------------------------------------------------------------- classes
 
-def class_measures(y, votes) -> dict:
+def class_measures(y, votes, share_bins: int | None = None) -> dict:
     """{name: (value, (lo, hi) or None)} of the class measures; y: int class per row, votes: (n, C)
-    OOB votes per row and class (int32 counts, or float64 sums of leaf shares)."""
+    OOB votes per row and class (int32 counts, or float64 sums of leaf shares).
+
+    share_bins: for float votes, rank the shares in that many equal bins of [0, 1] instead of
+    sorting them (the run's measure curve does, at 65,536 bins: shares within a bin count as tied,
+    so the AUC moves by at most half the share of positive-negative pairs that share a bin; the
+    report sorts exactly). Hard votes are always exact.
+    """
     y = np.ascontiguousarray(y, dtype=np.int32)
     votes = np.ascontiguousarray(votes)
     n_classes = votes.shape[1]
@@ -127,7 +118,7 @@ def class_measures(y, votes) -> dict:
         if n_cells * max(1, n_classes) <= MAX_CELLS:
             cells = _from_cells(y, votes, int(kmin), int(kmax), covered, wrong)
     if cells is None:
-        cells = _from_rows(y, votes, covered, wrong)
+        cells = _from_rows(y, votes, covered, wrong, share_bins)
     (ll_sum, ll_sq), (br_sum, br_sq), auc = cells
     n = int(covered.sum())
     out = {"error": _pair(wrong.sum() / n if n else np.nan, wilson(int(wrong.sum()), n))}
@@ -169,7 +160,7 @@ def _from_cells(y, votes, kmin, kmax, covered, wrong):
     nz = np.flatnonzero(true_cells)
     cnt = true_cells[nz].astype(np.float64)
     loss = -np.log((nz % width + 0.5) / (kmin + nz // width + 0.5 * n_classes))
-    ll = (float(np.dot(cnt, loss)), float(np.dot(cnt, loss * loss)))
+    ll = (float(_dot(cnt, loss)), float(_dot(cnt, loss * loss)))
     groups = [_cell_groups(rank_cells[a], kmin, width) for a in range(len(which))]
 
     def row_groups(a):
@@ -209,26 +200,26 @@ def _two_from_cells(y, votes, kmin, kmax, covered, wrong):
     wrong[:] = (int(neg[2 * v1 > kk].sum()), int(pos[2 * v1 <= kk].sum()))
     loss1 = -np.log((v1 + 0.5) / (kk + 1.0))
     loss0 = -np.log((kk - v1 + 0.5) / (kk + 1.0))
-    ll = (float(np.dot(pos, loss1) + np.dot(neg, loss0)), float(np.dot(pos, loss1 ** 2) + np.dot(neg, loss0 ** 2)))
+    ll = (float(_dot(pos, loss1) + _dot(neg, loss0)), float(_dot(pos, loss1 ** 2) + _dot(neg, loss0 ** 2)))
     b1 = 2.0 * (1.0 - v1 / kk) ** 2
     b0 = 2.0 * (v1 / kk) ** 2
-    br = (float(np.dot(pos, b1) + np.dot(neg, b0)), float(np.dot(pos, b1 ** 2) + np.dot(neg, b0 ** 2)))
+    br = (float(_dot(pos, b1) + _dot(neg, b0)), float(_dot(pos, b1 ** 2) + _dot(neg, b0 ** 2)))
     g = _cell_groups(cells, kmin, width)
     return ll, br, _auc(y, [1], [(g[0], g[1])], None)
 
 
-def _from_rows(y, votes, covered, wrong):
-    """The same from per-row losses and sorted shares (votes of any kind, or very many cells)."""
+def _from_rows(y, votes, covered, wrong, share_bins=None):
+    """The same from per-row losses and sorted (or binned) shares (votes of any kind, or very many cells)."""
     n = votes.shape[0]
     n_classes = votes.shape[1]
-    ll_rows = np.empty(n)
-    br_rows = np.empty(n)
-    k.class_rows(y, votes, ll_rows, br_rows, covered, wrong)
-    ok = ~np.isnan(ll_rows)
-    ll = (float(ll_rows[ok].sum()), float(np.square(ll_rows[ok]).sum()))
-    br = (float(br_rows[ok].sum()), float(np.square(br_rows[ok]).sum()))
+    sums = np.zeros(4)
+    k.class_rows(y, votes, sums, covered, wrong)
+    ll, br = (float(sums[0]), float(sums[1])), (float(sums[2]), float(sums[3]))
     which = _auc_classes(n_classes)
+    if share_bins:
+        return ll, br, _binned_auc(y, votes, which, share_bins)
     total = votes.sum(axis=1, dtype=np.float64)
+    ok = total > 0
     groups, invs = [], []
     for c in which:
         s = votes[ok, c] / total[ok]
@@ -244,6 +235,29 @@ def _from_rows(y, votes, covered, wrong):
         return g
 
     return ll, br, _auc(y, which, groups, row_groups)
+
+
+def _binned_auc(y, votes, which, n_bins):
+    """The AUC with the shares ranked in n_bins equal bins (see class_measures)."""
+    cells = np.zeros((len(which), n_bins, 2), np.int64)
+    k.share_bins(y, votes, which[0], cells)
+    groups, nzs = [], []
+    for a in range(len(which)):
+        nz = np.flatnonzero(cells[a, :, 0] + cells[a, :, 1])
+        groups.append((cells[a, nz, 1], cells[a, nz, 0]))
+        nzs.append(nz)
+
+    def row_groups(a):
+        rank = np.full(n_bins, -1, np.int32)
+        rank[nzs[a]] = np.arange(nzs[a].shape[0], dtype=np.int32)
+        g = np.full(y.shape[0], -1, np.int32)
+        total = votes.sum(axis=1, dtype=np.float64)
+        ok = total > 0
+        s = votes[ok, which[a]] / total[ok]
+        g[ok] = rank[np.minimum((s * n_bins).astype(np.int64), n_bins - 1)]
+        return g
+
+    return _auc(y, which, groups, row_groups)
 
 
 def delong(pos, neg):
@@ -265,11 +279,11 @@ def delong(pos, neg):
     pos_above = n1 - np.cumsum(pos)
     place_pos = (neg_below + 0.5 * neg) / n0
     place_neg = (pos_above + 0.5 * pos) / n1
-    auc = float(np.dot(pos, place_pos) / n1)
+    auc = float(_dot(pos, place_pos) / n1)
     if n1 < 2 or n0 < 2:
         return auc, float("nan"), place_pos, place_neg
-    s10 = float(np.dot(pos, (place_pos - auc) ** 2)) / (n1 - 1)
-    s01 = float(np.dot(neg, (place_neg - auc) ** 2)) / (n0 - 1)
+    s10 = float(_dot(pos, (place_pos - auc) ** 2)) / (n1 - 1)
+    s01 = float(_dot(neg, (place_neg - auc) ** 2)) / (n0 - 1)
     return auc, s10 / n1 + s01 / n0, place_pos, place_neg
 
 
