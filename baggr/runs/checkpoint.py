@@ -14,7 +14,8 @@ from pathlib import Path
 import numpy as np
 
 from baggr.version import __version__
-from baggr.errors import ModelFileError
+from baggr.config import Config
+from baggr.errors import BaggrError, ModelFileError
 from baggr.model import npzfile
 from baggr.runs.files import CHECKPOINT, CHECKPOINT_INFO, CONFIG, MEMBERS, MODEL, write_error, write_json_atomic
 from baggr.runs.rundir import RunDir, RunSettings
@@ -209,7 +210,7 @@ class Checkpointer:
         header, arrays = npzfile.read(path, "checkpoint file")
         check_checkpoint_header(path, header, "resume")
         tr = self.training
-        if header.get("config") != tr.config.to_dict():
+        if not _same_settings(header.get("config"), tr.config):
             raise ModelFileError(f"{path} belongs to other settings than {CONFIG}; it cannot be resumed")
         if header.get("sha256") not in (None, self.header_extra.get("sha256")):
             raise ModelFileError(f"{path} was made from other data than the run's data file")
@@ -218,8 +219,7 @@ class Checkpointer:
         if tr.config.keep_members:
             trees = self._load_chunks(chunks, tr.prep.codes.shape[0])
             expect = len(trees)
-        tally = {k: v for k, v in arrays.items() if k.startswith("tally_")}
-        tr.restore(tally, header, trees if tr.config.keep_members else None)
+        tr.restore(arrays, header, trees if tr.config.keep_members else None)
         if tr.config.keep_members and expect != tr.next_member:
             raise ModelFileError(f"{path}: chunk files hold {expect} members, the tallies {tr.next_member}")
         self.chunks, self.member = [list(c) for c in chunks], tr.next_member
@@ -342,3 +342,14 @@ def check_checkpoint_header(path, header: dict, to: str) -> None:
     if not isinstance(v, int) or v > CHECKPOINT_VERSION:
         raise ModelFileError(f"{path} was written by a newer baggr (checkpoint format {v!r}; this baggr "
                              f"{__version__} reads up to {CHECKPOINT_VERSION}): upgrade baggr to {to} it")
+
+
+def _same_settings(stored, config: Config) -> bool:
+    """Whether a checkpoint's settings are the run's: compared as Configs, so that a setting added
+    since the checkpoint was written (at its default) does not count as a difference."""
+    if not isinstance(stored, dict):
+        return False
+    try:
+        return Config.from_dict(stored).to_dict() == config.to_dict()
+    except BaggrError:
+        return False
