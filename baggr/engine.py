@@ -51,6 +51,7 @@ class Training:
             raise ConfigError("config must be a baggr.Config")
         self.config = config
         self.prep = prepared or prepare(X, y, config, target=target, missing_target=missing_target)
+        config.resolved_measure(self.prep.task)   # a measure that does not fit the target fails here
         self.grower = Grower(self.prep, config)
         self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
                            max(1, self.prep.n_classes), config.vote, capacity=config.members)
@@ -132,6 +133,8 @@ class Training:
             ev.r2 = t.r2()
         if self._measured is not None:
             ev.measures = self._measured
+            if self.importance is not None:
+                ev.importance = self.importance.latest()
         return ev
 
     def warm_up(self) -> float:

@@ -21,6 +21,7 @@ class MemberEvent:
     r2: float | None = None
     rate: float = 0.0               # members per second, recent
     measures: dict | None = None    # {name: (value, interval)} at the measure curve's sizes, else None
+    importance: dict | None = None  # {"mean": [...], "se": [...]} per feature, at the same sizes (--importance)
 
     def journal_fields(self) -> dict:
         """Fields for the journal's member line (strict JSON: NaN becomes null)."""
@@ -35,6 +36,8 @@ class MemberEvent:
         if self.measures is not None:
             d["measures"] = {k: [_num(v), *([_num(x) for x in iv] if iv is not None else [None, None])]
                              for k, (v, iv) in self.measures.items()}
+        if self.importance is not None:
+            d["importance"] = self.importance
         return d
 
 

@@ -23,7 +23,7 @@ def _config(args):
     return Config(members=args.members, features_per_split=args.features_per_split, min_leaf=args.min_leaf,
                   depth_limit=args.depth_limit, bins=args.bins, draw=args.draw, draw_fraction=args.draw_fraction,
                   vote=args.vote, task=args.task, seed=args.seed, threads=args.threads,
-                  keep_members=not args.estimate_only)
+                  keep_members=not args.estimate_only, importance=args.importance, measure=args.measure)
 
 
 def _settings(args):
@@ -153,17 +153,33 @@ def cmd_report(args) -> int:
     if _comparison(args.dir):
         from baggr.cli import compare
         return compare.cmd_report(args)
-    from baggr.cli import report
+    from baggr.cli import outputs, report
+    keep = [c.strip() for c in args.keep.split(",") if c.strip()] if args.keep else None
+    if keep and not args.rows:
+        raise ConfigError("--keep goes with --rows (it names columns to copy into the per-row export)")
     r = report.load(args.dir)
+    if getattr(args, "measure", None):      # head the report by another measure than the run's own
+        r.config = r.config.replace(measure=args.measure)     # an unknown name: ConfigError
+        r.config.resolved_measure(r.task)                      # one that does not fit the task: ConfigError
+    d = report.figures(r)
+    files = []
+    if args.rows:
+        files.append(outputs.write_rows(r, Path(args.rows), keep, args.force))
+    if args.html:
+        files.append(outputs.write_html(r, d, Path(args.html), args.force))
+    if args.figures:
+        files.append(outputs.write_figures(r, d, Path(args.figures), args.force))
     if args.json:
-        say(json.dumps(report.figures(r), allow_nan=False))
-        return 0
-    from rich.console import Console
-    report.render(r, Console())
+        say(json.dumps(d, allow_nan=False))
+    elif not files:
+        from rich.console import Console
+        report.render(r, Console(), d)
+    for line in files:    # with --json, stdout holds the JSON alone
+        if args.json:
+            sys.stderr.write(line + "\n")
+        else:
+            say(line)
     return 0
-
-
-OUT_KINDS = {".csv": "csv", ".tsv": "tsv", ".parquet": "parquet", ".pq": "parquet"}
 
 
 def cmd_predict(args) -> int:
@@ -172,14 +188,10 @@ def cmd_predict(args) -> int:
     from baggr.model import ensemble as model
     from baggr.runs import model_path
     path = model_path(args.model)
+    from baggr.cli.outputs import check_new, table_kind
     out = Path(args.out)
-    kind = OUT_KINDS.get(out.suffix.lower())
-    if kind is None:
-        raise ConfigError(f"--out must end in .csv, .tsv, .parquet or .pq, got {out.name!r}")
-    if (out.exists() or out.is_symlink()) and not args.force:
-        raise BaggrError(f"{out} already exists (use --force to replace it)")
-    if not out.parent.resolve().is_dir():
-        raise BaggrError(f"cannot write {out}: folder {out.parent} does not exist")
+    kind = table_kind(out)
+    check_new(out, args.force)
     ens = model.load(path)
     if ens.forest is None or ens.forest.members == 0:
         raise BaggrError(f"{path} was trained with --estimate-only: it has no trees to score new rows")

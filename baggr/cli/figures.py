@@ -7,8 +7,6 @@ for bands, the class colours in the same order.
 """
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 INK = "#2b3038"            # all rows
@@ -49,9 +47,23 @@ def _num(a):
 
 
 def _sizes_axis(ax, m: int) -> None:
+    from matplotlib.ticker import FixedLocator, NullFormatter, NullLocator
     ax.set_xscale("log")
     ax.set_xlim(1, max(m, 2))
+    ticks = [s * 10 ** e for e in range(0, 9) for s in (1, 2, 5) if s * 10 ** e <= max(m, 2)]
+    if len(ticks) > 10:
+        ticks = [t for t in ticks if str(t)[0] in "15"]
+    ax.xaxis.set_major_locator(FixedLocator(ticks))
+    ax.set_xticks(ticks, [f"{t:,}" for t in ticks])
+    ax.xaxis.set_minor_locator(NullLocator())
+    ax.xaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel("members (ensemble size, log scale)")
+
+
+def _legend_below(fig, ax, n: int) -> None:
+    """The legend under the plot, where it hides no line."""
+    handles, labels = ax.get_legend_handles_labels()
+    fig.legend(handles, labels, loc="outside lower center", ncols=min(n, 5), fontsize=8)
 
 
 def curve(d: dict):
@@ -60,7 +72,7 @@ def curve(d: dict):
     c = _num(d.get("curve") or [])
     if c.shape[0] == 0:
         return None
-    fig, ax = _figure(3.4)
+    fig, ax = _figure(3.8)
     b = np.arange(1, c.shape[0] + 1)
     iv = np.array([[np.nan if v is None else v for v in row] for row in d.get("curve_interval") or []]).reshape(-1, 2)
     what = "OOB error" if d["task"] == "classes" else "OOB MSE"
@@ -76,7 +88,7 @@ def curve(d: dict):
     _sizes_axis(ax, c.shape[0])
     ax.set_ylabel(what)
     ax.set_title(f"{what} by ensemble size")
-    ax.legend(loc="upper right", fontsize=8, ncols=2 if len(d.get("classes") or []) > 3 else 1)
+    _legend_below(fig, ax, 2 + len(d.get("classes") or []) + bool(raw))
     return fig
 
 
@@ -101,7 +113,7 @@ def measure_curve(d: dict, name: str):
     ax.set_ylabel(label)
     ax.set_title(f"{label} by ensemble size (the measure this run is judged by)" if name == d.get("measure")
                  else f"{label} by ensemble size")
-    ax.legend(loc="best", fontsize=8)
+    _legend_below(fig, ax, 3)
     return fig
 
 
@@ -143,9 +155,9 @@ def confusion(d: dict):
     names = [str(c) for c in d["classes"]]
     k = len(names)
     shares = cm / np.maximum(cm.sum(axis=1, keepdims=True), 1)
-    side = min(WIDTH, 1.6 + 0.62 * k)
+    side = min(WIDTH - 1.4, max(3.2, 1.6 + 0.62 * k))
     plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(side + 1.2, side), layout="constrained")
+    fig, ax = plt.subplots(figsize=(side + 1.4, side), layout="constrained")
     cmap = LinearSegmentedColormap.from_list("baggr", [PAPER, CLASSES[0], "#1f4f49"])
     im = ax.imshow(shares, cmap=cmap, vmin=0, vmax=1)
     ax.grid(False)
@@ -154,7 +166,7 @@ def confusion(d: dict):
     ax.set_yticks(range(k), names)
     ax.set_xlabel("OOB prediction")
     ax.set_ylabel("true class")
-    ax.set_title("Confusion (counts; shade: share of the true class)")
+    ax.set_title("Confusion")
     if k <= 12:
         for i in range(k):
             for j in range(k):
@@ -198,6 +210,7 @@ def reliability(d: dict, oob):
         ax.set_xlabel("OOB share of the class (binned)")
         ax.set_ylabel("share of rows of that class")
         ax.set_title("Reliability of the OOB shares")
+        ax.set_aspect("equal")
         ax.legend(loc="upper left", fontsize=8)
         return fig
     pred = np.asarray(oob.prediction)[ok]
@@ -247,6 +260,3 @@ def close(figs) -> None:
     for f in figs:
         plt.close(f)
 
-
-def finite(v) -> bool:
-    return v is not None and math.isfinite(v)

@@ -33,7 +33,9 @@ table { border-collapse: collapse; margin: 0.4rem 0 1rem; font-size: 0.9rem; }
 th, td { padding: 0.28rem 0.7rem; border-bottom: 1px solid var(--rule); text-align: right; vertical-align: top; }
 th { color: var(--slate); font-weight: normal; border-bottom: 1px solid var(--slate); }
 td:first-child, th:first-child { text-align: left; }
-td.text { text-align: left; }
+td.text, th.text { text-align: left; }
+.wide { overflow-x: auto; }
+td.iv { white-space: nowrap; }
 tr.chosen td { font-weight: bold; }
 figure { margin: 0.8rem 0 1.4rem; }
 figure img { max-width: 100%; height: auto; display: block; border: 1px solid var(--rule); }
@@ -74,18 +76,25 @@ def _fmt(v, task="classes", digits=4) -> str:
     return f"{v:.4g}" if task == "regression" else f"{v:.{digits}f}"
 
 
-def _iv(iv, task="classes") -> str:
+def _iv(iv, task="classes", digits=4) -> str:
     if not iv or iv[0] is None:
         return "-"
-    return f"{_fmt(iv[0], task)} – {_fmt(iv[1], task)}"
+    return f"{_fmt(iv[0], task, digits)} – {_fmt(iv[1], task, digits)}"
 
 
-def _table(head, rows, classes=None) -> str:
-    out = ["<table><thead><tr>", *(f"<th>{_e(h)}</th>" for h in head), "</tr></thead><tbody>"]
+def _table(head, rows, classes=None, text_cols=()) -> str:
+    """A table; text_cols: columns aligned left; cells holding an interval do not wrap."""
+    out = ['<div class="wide"><table><thead><tr>',
+           *(f'<th class="text">{_e(h)}</th>' if j in text_cols else f"<th>{_e(h)}</th>" for j, h in enumerate(head)),
+           "</tr></thead><tbody>"]
     for i, row in enumerate(rows):
         cls = f' class="{classes[i]}"' if classes and classes[i] else ""
-        out.append(f"<tr{cls}>" + "".join(f"<td>{_e(c)}</td>" for c in row) + "</tr>")
-    out.append("</tbody></table>")
+        cells = []
+        for j, c in enumerate(row):
+            kind = "text" if j in text_cols else ("iv" if " – " in str(c) else "")
+            cells.append(f'<td class="{kind}">{_e(c)}</td>' if kind else f"<td>{_e(c)}</td>")
+        out.append(f"<tr{cls}>" + "".join(cells) + "</tr>")
+    out.append("</tbody></table></div>")
     return "".join(out)
 
 
@@ -141,7 +150,7 @@ def _page(d: dict, figs: dict) -> str:
         for name, m in measures.items():
             rows.append([labels.get(name, name), _fmt(m["value"], task), _iv(m["interval"], task), m.get("method", "")])
             marks.append("chosen" if name == chosen else "")
-        parts.append(_table(["measure", "value", "95% interval", "interval method"], rows, marks))
+        parts.append(_table(["measure", "value", "95% interval", "interval method"], rows, marks, text_cols=(3,)))
         if d.get("measure_notes"):
             parts.append("".join(f'<p class="sub">{_e(n)}</p>' for n in d["measure_notes"]))
 
@@ -163,12 +172,14 @@ def _page(d: dict, figs: dict) -> str:
         total = sum(d["class_rows"]) or 1
         for k, name in enumerate(d["classes"]):
             c = cm.get(str(name), {})
+            cells = []
+            for x in ("precision", "recall", "f1"):
+                cells += [_fmt((c.get(x) or {}).get("value"), digits=3),
+                          _iv((c.get(x) or {}).get("interval"), digits=3)]
             rows.append([name, f"{d['class_rows'][k]:,}", f"{100 * d['class_rows'][k] / total:.1f}%",
-                         _fmt(d["class_error"][k]), _iv(d["class_interval"][k]),
-                         *[f"{_fmt((c.get(x) or {}).get('value'))} ({_iv((c.get(x) or {}).get('interval'))})"
-                           for x in ("precision", "recall", "f1")]])
-        parts.append(_table(["class", "rows", "share", "OOB error", "95% interval", "precision (95%)",
-                             "recall (95%)", "F1 (95%)"], rows))
+                         _fmt(d["class_error"][k], digits=3), _iv(d["class_interval"][k], digits=3), *cells])
+        parts.append(_table(["class", "rows", "share", "OOB error", "95%", "precision", "95%", "recall", "95%",
+                             "F1", "95%"], rows))
         parts.append('<p class="sub">Precision and recall: Wilson intervals; F1: bootstrap over rows.</p>')
         if "confusion" in figs:
             parts.append(_figure(figs["confusion"], "confusion", CAPTIONS["confusion"]))
@@ -189,7 +200,8 @@ def _page(d: dict, figs: dict) -> str:
         parts.append(_table(["feature", "permutation: mean rise", "SE", "impurity decrease", "SE"], rows))
 
     parts.append("<h2>Settings</h2>")
-    parts.append(_table(["setting", "value"], [[k, "-" if v is None else v] for k, v in d["config"].items()]))
+    parts.append(_table(["setting", "value"], [[k, "-" if v is None else v] for k, v in d["config"].items()],
+                        text_cols=(1,)))
     parts.append("<h2>Data</h2>")
     data = d.get("data") or {}
     rows = [["target", d.get("target") or "-"], ["rows", f"{d['rows']:,}"]]
@@ -198,7 +210,7 @@ def _page(d: dict, figs: dict) -> str:
                  ["SHA-256", data.get("sha256")]]
     if d.get("version"):
         rows.append(["made by", f"baggr {d['version']}, {d.get('created')}"])
-    parts.append(_table(["", ""], rows))
+    parts.append(_table(["", ""], rows, text_cols=(1,)))
 
     parts.append('<h2>Read with care</h2><ul class="cautions">' +
                  "".join(f"<li>{_e(c)}</li>" for c in d.get("cautions") or []) + "</ul>")

@@ -12,6 +12,7 @@ import traceback
 
 from baggr.cli.commands import (cmd_compare, cmd_demo, cmd_job, cmd_predict, cmd_report, cmd_resume, cmd_stop,
                                 cmd_train, cmd_watch)
+from baggr.config import MEASURES
 from baggr.errors import BaggrError
 
 COMMANDS = ("train", "compare", "resume", "watch", "stop", "report", "predict", "demo")
@@ -171,11 +172,18 @@ def build_parser() -> Parser:
     g.add_argument("--threads", type=int, default=None, help="local threads (default: all cores)")
     g.add_argument("--estimate-only", action="store_true",
                    help="drop each tree after its OOB votes: the OOB estimate without a model for scoring")
+    g.add_argument("--importance", action="store_true",
+                   help="measure each feature's OOB permutation importance (each member's OOB rows again with "
+                        "the feature's values shuffled; costs several times the member time)")
+    g.add_argument("--measure", choices=MEASURES, default=None, metavar="NAME",
+                   help="the figure the run is judged by: error, balanced-error, log-loss, brier or auc for "
+                        "classes; mse, rmse, mae or r2 for regression (default error / mse). It heads the "
+                        "report and the dashboard and decides --stop-when-stable")
     run_opts = Parser(add_help=False)
     r = run_opts.add_argument_group("run settings")
     r.add_argument("--stop-when-stable", action="store_true",
-                   help="stop early once the OOB error has settled within its own 95%% interval "
-                        "(after at least 50 members, over the last max(25, members/5) members)")
+                   help="stop early once the OOB error (or the --measure) has settled within its own 95%% "
+                        "interval (after at least 50 members, over the last max(25, members/5) members)")
     r.add_argument("--checkpoint-every", type=int, default=None, metavar="N",
                    help="checkpoint exactly every N members (default: every 50 members or 30 s, "
                         "whichever comes first, at most every 2 s and under 2%% of the time)")
@@ -279,14 +287,28 @@ def build_parser() -> Parser:
     s.set_defaults(func=cmd_stop)
 
     rp = add("report", "print a run's OOB figures (finished or not)",
-             "baggr report runs/firings-20250101-120000 --json > figures.json",
-             description="Print a run's OOB error with its interval, per-class errors, the confusion counts, "
-                         "coverage, where the curve settled, members, time, settings and the data fingerprint. "
-                         "Works on a finished run (model.npz), an unfinished one (its checkpoint) or a model file.")
+             "baggr report runs/firings-20250101-120000 --json > figures.json\n"
+             "baggr report runs/firings-20250101-120000 --html firings.html --rows oob.csv --keep firing_id",
+             description="Print a run's OOB error with its interval, the measures of the OOB predictions (AUC, "
+                         "log loss, Brier, ...; MSE, MAE, R2) with their intervals, per-class errors, precision, "
+                         "recall and F1, the confusion counts, coverage, where the curve settled, feature "
+                         "importance (runs with --importance), members, time, settings and the data fingerprint. "
+                         "Works on a finished run (model.npz), an unfinished one (its checkpoint) or a model file. "
+                         "--rows, --html and --figures write files as well.")
     rp.add_argument("dir", metavar="DIR", help="a run directory, a model file, or a comparison directory (ranked)")
     rp.add_argument("--json", action="store_true", help="print one JSON object instead of tables")
+    rp.add_argument("--rows", metavar="FILE", default=None,
+                    help="write each training row's OOB figures (.csv, .tsv or .parquet): row, target, "
+                         "left_out, prediction, share_<class> (empty cells for rows never left out)")
+    rp.add_argument("--keep", metavar="COL,...", default=None,
+                    help="with --rows: copy these columns of the training table (e.g. an identifier)")
+    rp.add_argument("--html", metavar="FILE", default=None,
+                    help="write the report as one self-contained HTML file with its figures")
+    rp.add_argument("--figures", metavar="DIR", default=None, help="write the report's figures as PNG and SVG")
+    rp.add_argument("--force", action="store_true", help="replace existing output files")
     rp.add_argument("--measure", default=None, metavar="NAME",
-                    help="a comparison directory: the figure to rank by (default: the comparison's own)")
+                    help="the figure the report is headed by (a run: default its own --measure; a comparison "
+                         "directory: the figure to rank by, default the comparison's own)")
     rp.set_defaults(func=cmd_report)
 
     pr = add("predict", "score new rows with a run's model",

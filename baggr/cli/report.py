@@ -162,7 +162,7 @@ def cautions(r: RunReport) -> list[str]:
         "If one entity (a patient, a machine, a customer) gave several rows, or the data drift over time, "
         "the estimate is optimistic: rows of the same entity or period judge each other. Hold out whole "
         "entities or a later period to check.",
-        "Decisions that affect people need review beyond this estimate.",
+        "Decisions about people, money or safety need review beyond these figures.",
         f"Each row is judged only by the members that left it out: {judged:.1f} of the {m} members here, "
         "on average. A small ensemble therefore overstates the error the whole ensemble makes; "
         "read the tail of the curve, not its start.",
@@ -205,6 +205,9 @@ def figures(r: RunReport) -> dict:
         d["class_curve"] = [[_f(v) for v in row] for row in oob.class_curve]
     else:
         d["r2"] = _f(oob.r2)
+    from baggr.cli import report_measures
+    d.update(report_measures.figures(r))
+    d["cautions"] += report_measures.cautions(d)
     return d
 
 
@@ -234,7 +237,7 @@ def columns_text(d: dict) -> str:
     return "; ".join(parts)
 
 
-def render(r: RunReport, console) -> None:
+def render(r: RunReport, console, d: dict | None = None) -> None:
     """Print the report (baggr/cli/report_text.py: the look; plain text, no markup from the data)."""
     from baggr.cli.report_text import render_text
-    render_text(r, figures(r), console, settings=setting_rows(r.config, r.schema.n_features, r.task, r.threads))
+    render_text(r, d or figures(r), console, settings=setting_rows(r.config, r.schema.n_features, r.task, r.threads))

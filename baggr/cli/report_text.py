@@ -14,6 +14,7 @@ from rich.cells import cell_len
 from rich.text import Text
 
 from baggr import units
+from baggr.cli import report_measures
 from baggr.cli.report import curve_sizes
 
 WIDEST = 100        # the text keeps to this many columns on a wide terminal
@@ -131,6 +132,9 @@ def render_text(r, d: dict, console, settings=None) -> None:
     headline = Text(err_text(task, head["oob_error"]), style="bold")
     headline.append(f"   95% interval {span_text(task, head['interval'])}")
     est = [(what, headline)]
+    chosen = report_measures.headline(d)
+    if chosen is not None:
+        est.insert(0, chosen)
     if task == "regression":
         est.append(("R2", "-" if head.get("r2") is None else f"{head['r2']:.3f}"))
     if latest:
@@ -138,6 +142,7 @@ def render_text(r, d: dict, console, settings=None) -> None:
     else:
         est += _source_rows(d, n_rows)
     out.pairs(est)
+    report_measures.render_measures(out, d)
 
     if task == "classes":
         _classes(out, d, head)
@@ -147,6 +152,7 @@ def render_text(r, d: dict, console, settings=None) -> None:
         out.pairs([("Members", f"{units.count(d['members'])}, {units.duration(d['elapsed'])} of training"),
                    *_source_rows(d, n_rows)])
     _curve(out, d, task, what, "(checkpoint)" if latest else "")
+    report_measures.render_importance(out, d)
 
     out.rule("Settings")
     out.pairs(settings or [(k, str(v)) for k, v in d["config"].items()])

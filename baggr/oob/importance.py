@@ -115,6 +115,11 @@ class ImportanceTally:
     def arrays(self) -> dict:
         return {name: v.copy() for name, v in self.a.items()}
 
+    def latest(self) -> dict:
+        """The permutation importance so far, {"mean": [...], "se": [...]} per feature (for the journal)."""
+        mean, se = _mean_se(self.a["imp_sum"], self.a["imp_sq"], int(self.a["imp_members"][0]))
+        return {"mean": [_num(v) for v in mean], "se": [_num(v) for v in se]}
+
     def restore(self, arrays: dict) -> None:
         check_arrays(arrays, "checkpoint", self.a["imp_sum"].shape[0], self.a["imp_class_members"].shape[0])
         for name in self.NAMES:

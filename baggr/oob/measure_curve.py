@@ -96,6 +96,24 @@ class MeasureCurve:
         self.seconds += time.perf_counter() - t0
         return values
 
+    def stable(self, name: str, m: int, min_members: int, window: int, part: int) -> str | None:
+        """Why `name` counts as settled after m members (None if not): the rule of the error curve
+        (runs.job.stable_now) on this measure's points. m must be a size just computed; the points
+        of the last w = max(window, m // part) members, at least three of them, all lie within
+        +-h of the value at m, h the half-width of its 95% interval."""
+        if m < max(min_members, 1) or not self.sizes or self.sizes[-1] != m:
+            return None
+        i = self.names.index(name)
+        w = min(m, max(window, m // part))
+        pts = [row[i] for b, row in zip(self.sizes, self.rows) if b > m - w]
+        v, lo, hi = pts[-1]
+        if len(pts) < 3 or not (math.isfinite(v) and math.isfinite(lo) and math.isfinite(hi)):
+            return None
+        h = (hi - lo) / 2.0
+        if any(not math.isfinite(p[0]) or abs(p[0] - v) > h for p in pts):
+            return None
+        return f"stable: the {name} stayed within {v:.4g} +- {h:.2g} over the last {w} members"
+
     def compute(self, tally) -> dict:
         """Every measure of the tally as it stands."""
         b = tally.members

@@ -277,7 +277,12 @@ class Job:
                     self.stop_reason = why
                     return True
             if settings.stop_when_stable:
-                why = stable_now(tr.tally.curve, tr.tally.curve_interval, tr.next_member, settings)
+                measure = tr.config.resolved_measure(tr.prep.task)
+                if measure in ("error", "mse"):
+                    why = stable_now(tr.tally.curve, tr.tally.curve_interval, tr.next_member, settings)
+                else:      # the chosen measure's points (baggr.oob.measure_curve)
+                    why = tr.measures.stable(measure, tr.next_member, settings.stable_min_members,
+                                             settings.stable_window, settings.stable_window_part)
                 if why:
                     self.stop_reason = why
                     return True
@@ -323,6 +328,8 @@ class Job:
                   "first_member": tr.next_member, "config": tr.config.to_dict(), "version": __version__,
                   "target": cfg.get("target"), "data": cfg["data"].get("path"),
                   "resolved": tr.config.resolved(p.schema.n_features, p.task), "missing_target": p.missing_target}
+        if tr.config.importance:
+            fields["feature_names"] = [str(n) for n in p.schema.names]
         if resumed:
             fields["resumed"] = True
         if self.backend is not None:

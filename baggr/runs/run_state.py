@@ -14,6 +14,7 @@ from baggr.runs.downsample import downsample
 from baggr.runs.files import JOURNAL
 from baggr.runs.journal_lines import END_STATUSES
 from baggr.runs.journal_reader import JournalReader
+from baggr.runs.measure_points import MeasurePoints
 
 
 def class_interval(error: float | None, n: int) -> tuple[float, float] | None:
@@ -77,6 +78,8 @@ class RunState:
         self.curve_r2 = array("f")
         self.curve_class: list[array] = []
         self._drawn: dict = {}     # per series: extremes of complete buckets (see downsample)
+        self.measures = MeasurePoints()   # the measures at the sizes the job computed them, and importance
+        self.feature_names: list[str] = []
 
     # -- folding
 
@@ -122,6 +125,7 @@ class RunState:
         self.config = ev.get("config", self.config)
         self.resolved = ev.get("resolved", self.resolved)
         self.version = ev.get("version", self.version)
+        self.feature_names = [str(f) for f in ev.get("feature_names") or self.feature_names]
         self.resumed = bool(ev.get("resumed", self.starts > 1))
         self.first_member = first
         if self.started_t is None:
@@ -143,6 +147,7 @@ class RunState:
                     *self.curve_class):
             del arr[cut:]
         self._drawn.clear()
+        self.measures.truncate(member)
         self.members = member
         # The latest figures now come from the curve; coverage and confusion are unknown until the next line.
         if cut:
@@ -192,6 +197,7 @@ class RunState:
         if el is not None:
             self.elapsed = float(el)
         self._last = ev
+        self.measures.fold(m, ev.get("measures"), ev.get("importance"))
 
     def _end(self, ev: dict) -> None:
         status = ev.get("status")
