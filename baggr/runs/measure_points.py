@@ -10,6 +10,7 @@ from bisect import bisect_left
 # not imported: the dashboard reads this module and keeps its imports few)
 CLASS_MEASURES = ("error", "balanced-error", "log-loss", "brier", "auc")
 REGRESSION_MEASURES = ("mse", "rmse", "mae", "r2")
+BY_TASK = {"classes": CLASS_MEASURES, "regression": REGRESSION_MEASURES}
 LABELS = {"error": "OOB error", "balanced-error": "balanced error", "log-loss": "log loss", "brier": "Brier score",
           "auc": "AUC", "mse": "OOB MSE", "rmse": "RMSE", "mae": "MAE", "r2": "R2"}
 

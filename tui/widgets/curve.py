@@ -72,7 +72,7 @@ class CurvePlot(Painted):
     def draw(self, v: View, mono: bool) -> None:
         """Plot the view's curves unless they are drawn already (the app decides how often to ask)."""
         self._last_args = (v, mono)
-        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes))
+        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes), v.measure)
         if key == self._drawn:
             return
         self._drawn = key
@@ -109,9 +109,18 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
 
     if not v.curves or not len(v.curves.get("error", ((), ()))[0]):
         return [[("no members yet", Style(italic=True))]]
-    put("lo", BAND, MONO_BAND)
-    put("hi", BAND, MONO_BAND)
-    if v.is_classes:
+    if not v.per_member:
+        # a measure: its points at the sizes where the job computed it, over the same members axis
+        scale = 1.0
+        if not len(v.curves.get("m", ((), ()))[0]):
+            return [[(f"no {v.measure_label} yet", Style(italic=True))]]
+        put("m_lo", BAND, MONO_BAND)
+        put("m_hi", BAND, MONO_BAND)
+        put("m", OVERALL, MONO_OVERALL)
+    else:
+        put("lo", BAND, MONO_BAND)
+        put("hi", BAND, MONO_BAND)
+    if v.is_classes and v.per_member:
         order = [k for k in range(len(v.classes)) if k != v.highlight]
         if v.highlight is not None:
             order.append(v.highlight)          # drawn last: on top
@@ -119,7 +128,8 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
             dim = v.highlight is not None and k != v.highlight
             # without colour the highlight stands out by its mark: the other classes draw plain dots
             put(k, DIMMED if dim else class_colour(k), MONO_DIMMED if dim else class_mark(k))
-    put("error", OVERALL, MONO_OVERALL)
+    if v.per_member:
+        put("error", OVERALL, MONO_OVERALL)
     xs = v.curves["error"][0]
     lo, hi = xs[0], xs[-1]
     if log:
@@ -137,10 +147,13 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
 def curve_key(v: View, mono: bool) -> Text:
     """One line saying which line is which."""
     t = Text(no_wrap=True, overflow="ellipsis")
-    t.append((MONO_OVERALL if mono else "━") + " all", style="" if mono else rgb(OVERALL))
+    t.append((MONO_OVERALL if mono else "━") + (" all" if v.per_member else " " + v.measure_label),
+             style="" if mono else rgb(OVERALL))
     t.append("  ")
     t.append((MONO_BAND if mono else "─") + " 95%", style="" if mono else rgb(BAND))
-    if v.is_classes:
+    if not v.per_member:
+        t.append("  (m: next measure)", style="dim")
+    if v.is_classes and v.per_member:
         for k, name in enumerate(v.classes):
             dim = v.highlight is not None and k != v.highlight
             t.append("  ")
@@ -179,7 +192,7 @@ class CurveKey(Panel):
     """
 
     def show(self, v: View, mono: bool) -> None:
-        self.put((tuple(v.classes), v.highlight, mono, v.task), lambda: curve_key(v, mono), lines=1)
+        self.put((tuple(v.classes), v.highlight, mono, v.task, v.measure), lambda: curve_key(v, mono), lines=1)
 
 
 class CurvePanel(Column):
@@ -221,6 +234,8 @@ class CurvePanel(Column):
     def show(self, v: View) -> None:
         mono = self.app.no_color
         what = "OOB error, % of rows" if v.is_classes else "OOB MSE"
+        if not v.per_member:
+            what = v.measure_label
         title = f"{what} by ensemble size"
         if title != self.border_title:      # setting it repaints (the keys' captions: the app, tui/keys.py)
             self.border_title = title
