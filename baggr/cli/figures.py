@@ -12,6 +12,7 @@ import numpy as np
 INK = "#2b3038"            # all rows
 SLATE = "#76808c"          # bands, the raw curve, guides
 PAPER = "#fbfaf7"
+DEEP = "#1f4f49"           # the dark end of the teal scales
 GRID = "#e6e2d8"
 CLASSES = ["#3f9c8f", "#c98f3c", "#8a76c4", "#c05c6b", "#5a94c8", "#8ea04a", "#b27ba6", "#6fae80"]
 WIDTH = 7.6                # inches; at 100 dpi the figures fill the page's column
@@ -158,7 +159,7 @@ def confusion(d: dict):
     side = min(WIDTH - 1.4, max(3.2, 1.6 + 0.62 * k))
     plt = _pyplot()
     fig, ax = plt.subplots(figsize=(side + 1.4, side), layout="constrained")
-    cmap = LinearSegmentedColormap.from_list("baggr", [PAPER, CLASSES[0], "#1f4f49"])
+    cmap = LinearSegmentedColormap.from_list("baggr", [PAPER, CLASSES[0], DEEP])
     im = ax.imshow(shares, cmap=cmap, vmin=0, vmax=1)
     ax.grid(False)
     ax.set_xticks(range(k), names, rotation=45 if max(map(len, names)) > 6 else 0, ha="right" if
@@ -217,7 +218,9 @@ def reliability(d: dict, oob):
     y = y[ok]
     fig, ax = _figure(3.8)
     if pred.shape[0] > 4000:
-        ax.hexbin(y, pred, gridsize=60, cmap="Greys", mincnt=1, bins="log", linewidths=0)
+        from matplotlib.colors import LinearSegmentedColormap
+        cmap = LinearSegmentedColormap.from_list("baggr", ["#cfe6e2", CLASSES[0], DEEP])
+        ax.hexbin(y, pred, gridsize=60, cmap=cmap, mincnt=1, bins="log", linewidths=0)
     else:
         ax.scatter(y, pred, s=6, color=CLASSES[0], alpha=0.6, linewidths=0)
     lo, hi = float(min(y.min(), pred.min())), float(max(y.max(), pred.max()))

@@ -200,6 +200,7 @@ def _page(d: dict, figs: dict) -> str:
         parts.append(_table(["feature", "permutation: mean rise", "SE", "impurity decrease", "SE"], rows))
 
     parts.append("<h2>Settings</h2>")
+    # the settings with what the data chose in place of the unset ones (cli.settings_text.settings_json)
     parts.append(_table(["setting", "value"], [[k, "-" if v is None else v] for k, v in d["config"].items()],
                         text_cols=(1,)))
     parts.append("<h2>Data</h2>")

@@ -43,6 +43,8 @@ def setting_rows(config: Config, n_features: int, task: str, threads: int | None
         ("seed", str(config.seed)),
         ("threads", thr),
         ("trees kept", "yes (for baggr predict)" if config.keep_members else "no (--estimate-only)"),
+        ("measure", config.measure or (("error" if task == "classes" else "mse") + " (the default)")),
+        ("importance", "yes (--importance)" if config.importance else "no"),
     ]
 
 
