@@ -121,16 +121,27 @@ def render_measures(out, d: dict) -> None:
         out.hanging(Text("  "), note, 2)
     if d["task"] != "classes" or not d.get("class_measures"):
         return
-    out.rule("Precision, recall and F1 by class (95% intervals)")
+    out.rule("Precision, recall and F1 by class")
     classes = [c["class"] for c in d["class_measures"]]
-    nw = min(16, max(cell_len(c) for c in classes))
-    for c in d["class_measures"]:
+    nw = min(16, max(5, *(cell_len(c) for c in classes)))
+    cells = [[f"{c[k]['value']:.3f}" if c[k]["value"] is not None else "-",
+              "-" if not c[k]["interval"] or c[k]["interval"][0] is None
+              else f"{c[k]['interval'][0]:.3f}-{c[k]['interval'][1]:.3f}"] for c in d["class_measures"]
+             for k in ("precision", "recall", "f1")]
+    vw = max(5, *(cell_len(x[0]) for x in cells))
+    iw = max(3, *(cell_len(x[1]) for x in cells))
+    head = Text(f"  {'class'.ljust(nw)}", style="dim")
+    for lab in ("precision", "recall", "F1"):
+        head.append(f"  {lab.ljust(vw)} {'95%'.ljust(iw)}")
+    out.put(head)
+    for i, c in enumerate(d["class_measures"]):
         line = Text("  ")
         line.append(c["class"][:nw].ljust(nw), style="bold")
-        for k, lab in (("precision", "precision"), ("recall", "recall"), ("f1", "F1")):
-            line.append(f"  {lab} ", style="dim")
-            line.append(measure_text(k, c[k]["value"]), style="bold")
-            line.append(f" {measure_span(k, c[k]['interval'])}")
+        for j in range(3):
+            v, iv = cells[3 * i + j]
+            line.append("  ")
+            line.append(v.ljust(vw), style="bold")
+            line.append(" " + iv.ljust(iw))
         out.put(line)
     out.hanging(Text("  "), "Precision and recall: Wilson intervals; F1: a bootstrap over rows.", 2)
 

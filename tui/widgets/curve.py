@@ -151,8 +151,6 @@ def curve_key(v: View, mono: bool) -> Text:
              style="" if mono else rgb(OVERALL))
     t.append("  ")
     t.append((MONO_BAND if mono else "─") + " 95%", style="" if mono else rgb(BAND))
-    if not v.per_member:
-        t.append("  (m: next measure)", style="dim")
     if v.is_classes and v.per_member:
         for k, name in enumerate(v.classes):
             dim = v.highlight is not None and k != v.highlight
