@@ -128,11 +128,13 @@ def render_measures(out, d: dict) -> None:
               "-" if not c[k]["interval"] or c[k]["interval"][0] is None
               else f"{c[k]['interval'][0]:.3f}-{c[k]['interval'][1]:.3f}"] for c in d["class_measures"]
              for k in ("precision", "recall", "f1")]
-    vw = max(5, *(cell_len(x[0]) for x in cells))
+    labels = ("precision", "recall", "F1")
     iw = max(3, *(cell_len(x[1]) for x in cells))
+    vw = [max(cell_len(lab), *(cell_len(cells[3 * i + j][0]) for i in range(len(classes))))
+          for j, lab in enumerate(labels)]
     head = Text(f"  {'class'.ljust(nw)}", style="dim")
-    for lab in ("precision", "recall", "F1"):
-        head.append(f"  {lab.ljust(vw)} {'95%'.ljust(iw)}")
+    for j, lab in enumerate(labels):
+        head.append(f"  {lab.ljust(vw[j])} {'95%'.ljust(iw)}")
     out.put(head)
     for i, c in enumerate(d["class_measures"]):
         line = Text("  ")
@@ -140,7 +142,7 @@ def render_measures(out, d: dict) -> None:
         for j in range(3):
             v, iv = cells[3 * i + j]
             line.append("  ")
-            line.append(v.ljust(vw), style="bold")
+            line.append(v.ljust(vw[j]), style="bold")
             line.append(" " + iv.ljust(iw))
         out.put(line)
     out.hanging(Text("  "), "Precision and recall: Wilson intervals; F1: a bootstrap over rows.", 2)
