@@ -179,3 +179,23 @@ def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
     assert probe["fetched"] == [] and probe["blocked"] == []
     assert "Read with care" in r.stdout and "Measures of the OOB predictions" in r.stdout
     shutil.rmtree(profile, ignore_errors=True)
+
+
+def test_rows_number_the_file_and_keep_a_dropped_identifier(tmp_path):
+    # An identifier column left out of training with --drop is copied by --keep, and rows left out
+    # for a missing target keep their place in the numbering (the file's data rows, from 0).
+    X, y = waveform(300, seed=9)
+    label = np.array(["arc", "bump", "crest"], dtype=object)[y]
+    label[[5, 17, 200]] = None
+    cols = {f"w{i}": X[:, i] for i in range(21)}
+    cols["id"] = [f"case-{i:04d}" for i in range(300)]
+    cols["shape"] = pa.array(list(label), pa.string())
+    pacsv.write_csv(pa.table(cols), tmp_path / "w.csv")
+    _run("train", tmp_path / "w.csv", "--target", "shape", "--drop", "id", "--members", "6", "--no-ui",
+         "--run-dir", tmp_path / "run")
+    _run("report", tmp_path / "run", "--rows", tmp_path / "rows.parquet", "--keep", "id")
+    t = pq.read_table(tmp_path / "rows.parquet")
+    kept = [i for i in range(300) if i not in (5, 17, 200)]
+    assert t.column("row").to_pylist() == kept
+    assert t.column("id").to_pylist() == [f"case-{i:04d}" for i in kept]
+    assert t.column("target").to_pylist() == [label[i] for i in kept]

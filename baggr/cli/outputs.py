@@ -60,30 +60,38 @@ def write_table(table, out: Path, kind: str) -> None:
 # ---------------------------------------------------------------- --rows
 
 def rows_table(r, keep: list[str] | None = None):
-    """One line per training row: row (counting from 0, the table's order), target, left_out (times out
-    of bag), prediction (the OOB class or value) and share_<class> per class; the kept columns of the
-    training table first. A row never left out has empty cells, not zeros."""
+    """One line per training row: row (its data row in the training file, counting from 0), target,
+    left_out (times out of bag), prediction (the OOB class or value) and share_<class> per class;
+    the kept columns of the training table first. A row never left out has empty cells, not zeros.
+    Rows the run left out for a missing target are not in it (their numbers are skipped)."""
     import numpy as np
     import pyarrow as pa
     oob = r.oob
     a = oob.arrays()
     n = oob.left_out.shape[0]
-    table = _training_table(r) if keep or "target" not in a else None
+    table = where = None
+    if keep or "target" not in a or r.missing_target:
+        table, where = _training_rows(r, n)
     cols = {}
     if keep:
         missing = [c for c in keep if c not in table.column_names]
         if missing:
             raise ConfigError(f"--keep: the training table has no column {missing[0]!r} "
                               f"(it has {', '.join(table.column_names[:8])}{', ...' if table.num_columns > 8 else ''})")
+        if len(set(keep)) != len(keep):
+            raise ConfigError("--keep names a column twice")
+        clash = [c for c in keep if c in ("row", "target", "left_out", "prediction") or c.startswith("share_")]
+        if clash:
+            raise ConfigError(f"--keep: column {clash[0]!r} would clash with a column the export writes")
         for c in keep:
-            cols[c] = table.column(c)
+            cols[c] = table.column(c).take(pa.array(where))
     uncovered = oob.left_out == 0
-    cols["row"] = pa.array(np.arange(n, dtype=np.int64))
+    cols["row"] = pa.array(np.arange(n, dtype=np.int64) if where is None else where.astype(np.int64))
     if "target" in a:
         t = a["target"]
         cols["target"] = pa.array([r.schema.classes[k] for k in t]) if r.task == "classes" else pa.array(t)
     else:
-        cols["target"] = table.column(r.run.get("target") or r.schema.target)
+        cols["target"] = table.column(r.run.get("target") or r.schema.target).take(pa.array(where))
     cols["left_out"] = pa.array(oob.left_out.astype(np.int64))
     if r.task == "classes":
         cols["prediction"] = pa.array(list(oob.prediction))       # None where never left out
@@ -92,26 +100,29 @@ def rows_table(r, keep: list[str] | None = None):
             cols[f"share_{c}"] = pa.array(shares[:, k], mask=uncovered)
     else:
         cols["prediction"] = pa.array(np.asarray(oob.prediction, np.float64), mask=uncovered)
-    if len(set(cols)) != len(cols) or (keep and len(set(keep)) != len(keep)):
-        raise ConfigError("--keep names a column twice")
-    clash = [c for c in (keep or []) if c in ("row", "target", "left_out", "prediction") or c.startswith("share_")]
-    if clash:
-        raise ConfigError(f"--keep: column {clash[0]!r} would clash with a column the export writes")
     return pa.table(cols)
 
 
-def _training_table(r):
-    """The run's training table (the very file it was trained on)."""
+def _training_rows(r, n: int):
+    """(the run's training file as a table, the data rows it trained on): the very file, read as the
+    run read it, less the rows whose target was missing when the run left those out."""
+    import numpy as np
     data = r.run.get("data") if r.run else None
     if not data:
         raise ConfigError("--keep needs a run directory (a model file does not name its training data)")
     from baggr.runs import check_data
     check_data(data)
+    from baggr.data.schema import missing_targets
     from baggr.data.table import read_table
-    table = read_table(data["path"])      # a file: an Arrow table
-    if table.num_rows != r.oob.left_out.shape[0]:
-        raise BaggrError(f"{data['path']} has {table.num_rows:,} rows, the run {r.oob.left_out.shape[0]:,}")
-    return table
+    opts = r.run.get("table") or {}
+    table = read_table(data["path"], delimiter=opts.get("delimiter"))     # a file: an Arrow table
+    where = np.arange(table.num_rows)
+    target = r.run.get("target")
+    if opts.get("missing_target", "drop") == "drop" and target in table.column_names:
+        where = np.flatnonzero(~missing_targets(table.column(target)))
+    if where.shape[0] != n:
+        raise BaggrError(f"{data['path']} has {where.shape[0]:,} rows with a target, the run {n:,}")
+    return table, where
 
 
 def write_rows(r, out: Path, keep: list[str] | None, force: bool) -> str:
