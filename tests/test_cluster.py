@@ -63,8 +63,9 @@ def labelled(n, seed):
 
 # ---------------------------------------------------------------- same results as threads
 
-@pytest.mark.parametrize("settings", [dict(), dict(draw="balanced", vote="shares", keep_members=False)],
-                         ids=["kept", "balanced-estimate-only"])
+@pytest.mark.parametrize("settings", [dict(), dict(draw="balanced", vote="shares", keep_members=False),
+                                      dict(importance=True, measure="auc", keep_members=False)],
+                         ids=["kept", "balanced-estimate-only", "importance"])
 def test_classes_same_as_threads(cluster, settings):
     X, y = labelled(3000, seed=2)
     cfg = Config(members=24, seed=5, threads=2, features_per_split=4, **settings)
