@@ -292,19 +292,30 @@ def compile_seconds(task: str | None) -> float:
 
 
 def train(X, y, config: Config | None = None, on_member=None, *, drop=None, only=None,
-          missing_target: str = "drop") -> Ensemble:
+          missing_target: str = "drop", cluster=None) -> Ensemble:
     """Train a bagged tree ensemble and its OOB estimate in one pass; on_member(event) after every member.
 
     drop / only: column names of X to leave out / to keep (the command's --drop and --only).
     missing_target: "drop" (the default) leaves out rows whose target is missing, with a warning
     giving their count (also in ensemble.stats["missing_target"]); "refuse" raises a DataError.
+    cluster: grow the members on a Dask cluster (needs baggr[cluster]): a distributed.Client, a
+    scheduler address ("tcp://host:8786", "tls://host:8786") or "local:N" (N worker processes on this
+    machine, stopped at the end). The result is the same, bit for bit, as with local threads.
     """
-    if drop or only:
-        X = read_table(X, drop=drop, only=only)
-    tr = Training(X, y, config or Config(), missing_target=missing_target)
-    if tr.prep.missing_target:
-        warnings.warn(missing_target_text(tr.prep.missing_target, tr.prep.n_rows), stacklevel=2)
-    return tr.run(on_member=on_member)
+    backend = None
+    if cluster is not None:
+        from baggr.backends.dask import Dask
+        backend = Dask(cluster)     # connected first: a wrong address fails before the data is read
+    try:
+        if drop or only:
+            X = read_table(X, drop=drop, only=only)
+        tr = Training(X, y, config or Config(), missing_target=missing_target)
+        if tr.prep.missing_target:
+            warnings.warn(missing_target_text(tr.prep.missing_target, tr.prep.n_rows), stacklevel=2)
+        return tr.run(on_member=on_member, backend=backend)
+    finally:
+        if backend is not None:
+            backend.shutdown()
 
 
 def missing_target_text(missing: int, rows: int, target: str | None = None) -> str:

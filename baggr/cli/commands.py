@@ -44,10 +44,19 @@ def _settings(args):
     return s
 
 
+def _cluster(args) -> str | None:
+    """The --cluster option, checked before anything is written (the address's form, the extra installed)."""
+    text = getattr(args, "cluster", None)
+    if text is None:
+        return None
+    from baggr.backends.dask_connect import check_option
+    return check_option(text)
+
+
 def cmd_train(args) -> int:
     from baggr import runs
     from baggr.cli.main import table_options
-    config, settings = _config(args), _settings(args)
+    config, settings, cluster = _config(args), _settings(args), _cluster(args)
     info = runs.fingerprint(args.data)
     rd = runs.create(args.run_dir or runs.default_run_dir(args.data), force=args.force)
     try:
@@ -58,7 +67,7 @@ def cmd_train(args) -> int:
         raise
     # the run directory is the first line, printed once the job has started (a start that fails
     # removes the directory)
-    return launch(rd, run_mode(args), fresh=True, announce=str(rd.path))
+    return launch(rd, run_mode(args), fresh=True, announce=str(rd.path), cluster=cluster, debug=args.debug)
 
 
 def _comparison(path) -> bool:
@@ -76,6 +85,7 @@ def cmd_resume(args) -> int:
     if _comparison(args.dir):
         from baggr.cli import compare
         return compare.cmd_resume(args)
+    cluster = _cluster(args)
     rd = runs.RunDir(args.dir).require()
     cfg = rd.read_config()
     st, status = rd.state()
@@ -87,7 +97,7 @@ def cmd_resume(args) -> int:
         say(f"{rd.path} is finished ({st.members} members; {st.reason}); nothing to resume")
         return 0
     runs.check_data(cfg["data"])
-    return launch(rd, run_mode(args), fresh=False)
+    return launch(rd, run_mode(args), fresh=False, cluster=cluster, debug=args.debug)
 
 
 def cmd_job(args) -> int:
@@ -96,7 +106,10 @@ def cmd_job(args) -> int:
         return compare.cmd_job(args)
     from baggr.cli import progress as prog
     from baggr.runs import Job, RunDir
-    job = Job(RunDir(args.dir), prog.PlainProgress(sys.stdout), verify=args.verify)
+    if args.cluster is not None and not args.debug:
+        from baggr.backends.dask_connect import quiet_logs
+        quiet_logs()
+    job = Job(RunDir(args.dir), prog.PlainProgress(sys.stdout), verify=args.verify, cluster=args.cluster)
     out = job.run()
     say(out.message)
     return out.code

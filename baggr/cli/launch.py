@@ -64,17 +64,21 @@ class Announced:
         return getattr(self.inner, name)
 
 
-def launch(rd, mode: str, *, fresh: bool, announce: str | None = None) -> int:
+def launch(rd, mode: str, *, fresh: bool, announce: str | None = None, cluster: str | None = None,
+           debug: bool = False) -> int:
     """Run the job of rd in the chosen mode; returns the exit code. announce: a line to print
-    first, once the job has started."""
+    first, once the job has started; cluster: where the members grow (None: local threads)."""
     if mode == "detached":
-        return detached(rd, fresh=fresh, announce=announce)
+        return detached(rd, fresh=fresh, announce=announce, cluster=cluster)
     from baggr.cli import progress as prog
     from baggr.runs import Job
+    if cluster is not None and not debug:
+        from baggr.backends.dask_connect import quiet_logs
+        quiet_logs()     # the job says what matters in its own lines
     bar = prog.make(mode)
     if announce is not None:
         bar = Announced(bar, announce)
-    job = Job(rd, bar, verify=False)
+    job = Job(rd, bar, verify=False, cluster=cluster)
     try:
         out = job.run()
     except BaggrError:
@@ -87,13 +91,13 @@ def launch(rd, mode: str, *, fresh: bool, announce: str | None = None) -> int:
     return out.code
 
 
-def detached(rd, *, fresh: bool, announce: str | None = None) -> int:
+def detached(rd, *, fresh: bool, announce: str | None = None, cluster: str | None = None) -> int:
     from baggr import runs
     pid = rd.lock_holder()
     if pid:
         raise runs.RunDirError(f"{rd.path} is already running (pid {pid}); watch it with: baggr watch {rd.path}")
     st, _ = rd.state()
-    proc = runs.spawn(rd)
+    proc = runs.spawn(rd, cluster=cluster)
     from rich.console import Console
     console = Console()
     said = []
@@ -110,7 +114,8 @@ def detached(rd, *, fresh: bool, announce: str | None = None) -> int:
                 status.update(f"{ev['message']} (job pid {proc.pid}) ...")
 
     try:
-        with console.status(f"reading the data (job pid {proc.pid}) ...") as status:
+        doing = "reading the data" if cluster is None else f"connecting to the cluster ({cluster}) and reading the data"
+        with console.status(f"{doing} (job pid {proc.pid}) ...") as status:
             code = runs.wait_started(rd, proc, st.starts, on_event=on_event)
     except KeyboardInterrupt:
         say(f"left the job starting in the background (pid {proc.pid}); reattach with: baggr watch {rd.path}")

@@ -99,6 +99,16 @@ def command_words(message: str) -> str:
     return message
 
 
+def cluster_option() -> Parser:
+    """--cluster, for every command that grows members (a parent parser)."""
+    p = Parser(add_help=False)
+    p.add_argument("--cluster", default=None, metavar="ADDRESS",
+                   help="grow the members on a Dask cluster: its scheduler's address (tcp://HOST:8786, "
+                        "tls://HOST:8786) or local:N for N worker processes on this machine; the results are "
+                        "the same as with local threads (needs: pip install 'baggr[cluster]')")
+    return p
+
+
 def _listed(item, what: str):
     """An argparse type for a comma list of items (each parsed by item): "2,4,8" -> [2, 4, 8]."""
     def parse(text: str) -> list:
@@ -138,6 +148,8 @@ def build_parser() -> Parser:
     ui.add_argument("--no-ui", action="store_true", help="train in this process, printing plain progress lines")
     ui.add_argument("--foreground", action="store_true",
                     help="train in this process with a progress bar (Ctrl-C stops and saves)")
+
+    cluster = cluster_option()
 
     settings = Parser(add_help=False)
     g = settings.add_argument_group("ensemble settings")
@@ -193,7 +205,7 @@ def build_parser() -> Parser:
             """
             baggr train firings.csv --target outcome --members 500 --features-per-split 4
             baggr train log.csv --target weather --drop station_id --delimiter ';'""",
-            (settings, run_opts, table_parser(), ui), "Train an ensemble on DATA (CSV, TSV or Parquet) and write a run directory: its "
+            (settings, run_opts, table_parser(), cluster, ui), "Train an ensemble on DATA (CSV, TSV or Parquet) and write a run directory: its "
             "config, a journal line per member, checkpoints and the model. On a terminal the job runs "
             "detached (a dropped SSH link does not end it) and the dashboard attaches; leave the dashboard "
             "and the job goes on (baggr watch DIR to return).")
@@ -249,7 +261,7 @@ def build_parser() -> Parser:
     c.set_defaults(func=cmd_compare)
 
     rs = add("resume", "continue an interrupted run from its last checkpoint",
-             "baggr resume runs/firings-20250101-120000", (ui,),
+             "baggr resume runs/firings-20250101-120000", (cluster, ui),
              "Continue a stopped, failed or crashed run from its last checkpoint; the result is bit-identical "
              "to a run never interrupted. The data file must be unchanged. A finished run is left as it is "
              "(exit 0).")
@@ -309,6 +321,7 @@ def build_parser() -> Parser:
     j = sub.add_parser("_job", parents=[common])      # the detached job itself; not for people
     j.add_argument("dir")
     j.add_argument("--verify", action="store_true")
+    j.add_argument("--cluster", default=None)
     j.set_defaults(func=cmd_job)
     return p
 

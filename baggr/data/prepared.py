@@ -34,6 +34,16 @@ class Prepared:
     def n_classes(self) -> int:
         return len(self.schema.classes)
 
+    def for_workers(self) -> "Prepared":
+        """What a remote worker needs to grow members: the codes, the targets, each feature's bin count
+        and categorical flag. Column names, class labels, categorical levels and bin edges stay here
+        (classes become 0..C-1, names empty): the members grown from it are the same."""
+        p = self.codes.shape[0]
+        schema = Schema(names=[""] * p, kinds=list(self.schema.kinds), levels=[None] * p, target=None,
+                        task=self.task, classes=list(range(self.n_classes)))
+        binning = Binning(edges=[None] * p, n_bins=self.binning.n_bins, is_cat=self.binning.is_cat)
+        return Prepared(schema, binning, self.codes, self.y_class, self.y_value, self.task)
+
 
 def prepare(X, y, config: Config, target: str | None = None, missing_target: str = "drop") -> Prepared:
     """Schema, binning and codes for a training table (the binning never looks at the target).

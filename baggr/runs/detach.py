@@ -14,14 +14,17 @@ from baggr.runs.journal_reader import JournalReader
 from baggr.runs.rundir import RunDir
 
 
-def spawn(rd: RunDir, *, verify: bool = False) -> subprocess.Popen:
-    """Start the job as its own process in its own session (a dropped SSH link does not end it)."""
+def spawn(rd: RunDir, *, verify: bool = False, cluster: str | None = None) -> subprocess.Popen:
+    """Start the job as its own process in its own session (a dropped SSH link does not end it);
+    cluster: grow its members there (an address or local:N)."""
     pkg_root = str(Path(__file__).resolve().parents[2])   # the folder holding baggr/
     env = dict(os.environ)
     env["PYTHONPATH"] = pkg_root + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
     args = [sys.executable, "-m", "baggr.cli", "_job", str(rd.path)]
     if verify:
         args.append("--verify")
+    if cluster is not None:
+        args += ["--cluster", cluster]
     try:
         log = open(rd / JOB_LOG, "ab")
     except OSError as e:

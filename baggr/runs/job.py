@@ -17,7 +17,7 @@ import numpy as np
 
 from baggr.version import __version__
 from baggr.config import Config
-from baggr.errors import BaggrError, ModelFileError
+from baggr.errors import BaggrError, ClusterLostError, ModelFileError
 from baggr.runs.checkpoint import FAULT_KILL, Checkpointer, fault_kill, remove_checkpoint
 from baggr.runs.files import CHECKPOINT, JOURNAL, MODEL, STOP, DiskFullError, write_error
 from baggr.runs.journal_writer import JournalWriter
@@ -66,12 +66,14 @@ class Job:
 
     progress: an object with begin(start_fields), member(fields), note(text), end(outcome) and close().
     verify: check the data file's SHA-256 against config.json before reading it.
+    cluster: grow the members on a Dask cluster (a scheduler's address or local:N); None: local threads.
     """
 
     SIGNALS = ("SIGINT", "SIGTERM", "SIGHUP")
 
-    def __init__(self, rd: RunDir, progress=None, *, verify: bool = True):
-        self.rd, self.progress, self.verify = rd, progress, verify
+    def __init__(self, rd: RunDir, progress=None, *, verify: bool = True, cluster: str | None = None):
+        self.rd, self.progress, self.verify, self.cluster = rd, progress, verify, cluster
+        self.backend = None          # the cluster's backend, connected before the data is read
         self.started = False         # the start line was written
         self.stop_reason = None
         self.saving = False
@@ -122,6 +124,8 @@ class Job:
         try:
             return self.guarded(self._run)
         finally:
+            if self.backend is not None:
+                self.backend.shutdown()
             self._restore_signals()
             self.release()
 
@@ -186,6 +190,9 @@ class Job:
             remove_checkpoint(rd)   # a crash may have left them after the end line
             return Outcome("finished", st.reason or "finished", st.members, st.elapsed,
                            f"{rd.path} is finished ({st.members} members); nothing to resume")
+        if self.cluster is not None:    # before the data: a wrong address is told at once
+            from baggr.backends.dask import Dask
+            self.backend = Dask(self.cluster, on_note=self._cluster_note)
         if self.verify:
             check_data(info)
         try:
@@ -276,7 +283,10 @@ class Job:
                     return True
             return False
 
-        tr.run(on_member=on_member, should_stop=stop_now, until=until)
+        try:
+            tr.run(on_member=on_member, should_stop=stop_now, until=until, backend=self.backend)
+        except ClusterLostError as e:
+            self._cluster_lost(tr, e)
 
     def set_aside(self) -> None:
         """Free the memory of the kept trees already in the checkpoint's files (a comparison does this
@@ -315,6 +325,9 @@ class Job:
                   "resolved": tr.config.resolved(p.schema.n_features, p.task), "missing_target": p.missing_target}
         if resumed:
             fields["resumed"] = True
+        if self.backend is not None:
+            fields.update(cluster=self.cluster, cluster_address=self.backend.address,
+                          cluster_threads=self.backend.threads)
         self.journal.write("start", **fields)
         self.started = True
         if self.progress is not None:
@@ -365,6 +378,29 @@ class Job:
         return Outcome("stopped", reason, m, tr.elapsed,
                        f"stopped at {m} of {tr.config.members} members ({reason}); {what}; "
                        f"continue with: baggr resume {self.rd.path}")
+
+    def _cluster_note(self, text: str) -> None:
+        """What the cluster backend tells (workers lost or back): the journal's warnings and the progress."""
+        self._note(text)
+        if self.journal is not None:
+            try:
+                self.journal.write("warning", message=text)
+            except OSError:
+                pass
+
+    def _cluster_lost(self, tr, e: ClusterLostError):
+        """The scheduler went away: save a checkpoint and the model of the members folded, then fail
+        (the end line says why; a resume, here or on a cluster, goes on from the checkpoint)."""
+        self.saving = True
+        m = tr.next_member
+        if m > 0:
+            self.checkpointer.wait()
+            if m > self.checkpointer.member:
+                self.checkpointer.write(wait=True)
+            self._save_model(tr)
+        saved = f"checkpoint saved at {m} of {tr.config.members} members" if m else "no member was grown"
+        raise ClusterLostError(f"{e}; {saved}; continue with: baggr resume {self.rd.path} "
+                               "(add --cluster ADDRESS to use a cluster again)") from None
 
     def _quit(self, name: str) -> Outcome:
         """A second signal: leave now without saving; the last checkpoint stays for resume."""
