@@ -82,10 +82,10 @@ def cmd_compare(args) -> int:
 
 def cmd_resume(args) -> int:
     from baggr import runs
+    cluster = _cluster(args)
     if _comparison(args.dir):
         from baggr.cli import compare
         return compare.cmd_resume(args)
-    cluster = _cluster(args)
     rd = runs.RunDir(args.dir).require()
     cfg = rd.read_config()
     st, status = rd.state()
