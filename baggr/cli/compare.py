@@ -162,6 +162,9 @@ def cmd_job(args) -> int:
 def cmd_resume(args) -> int:
     from baggr import runs
     from baggr.runs import comparison
+    if getattr(args, "cluster", None):
+        raise ConfigError("a comparison grows its candidates on local threads; --cluster is not supported "
+                          "for comparisons yet (resume a candidate on a cluster with: baggr resume DIR/c1-...)")
     cmp = comparison.read(args.dir)
     rd = cmp.rundir()
     st, status = rd.state()
