@@ -5,6 +5,13 @@ from baggr.config import Config  # noqa: E402
 from baggr.errors import BaggrError, ConfigError, DataError, ModelFileError  # noqa: E402
 
 
+def load(path):
+    """Read a model file, or the model of a run directory (as `baggr predict` takes either)."""
+    from baggr.model.ensemble import load as load_file
+    from baggr.runs.rundir import model_path
+    return load_file(model_path(path))
+
+
 def __getattr__(name):
     # Lazy: `import baggr` stays light (the journal reader and dashboard never load numba).
     if name == "train":
@@ -13,9 +20,6 @@ def __getattr__(name):
     if name == "grow":
         from baggr.engine import grow
         return grow
-    if name == "load":
-        from baggr.model.ensemble import load
-        return load
     if name == "read_table":
         from baggr.data import read_table
         return read_table

@@ -12,6 +12,10 @@ DRAWS = ("bootstrap", "balanced", "subsample")
 CRITERIA = ("gini", "entropy", "variance")
 TASKS = ("classes", "regression")
 VOTES = ("hard", "shares")
+# the measures' names as `--measure` spells them (their definitions: baggr/oob/measures.py)
+CLASS_MEASURES = ("error", "balanced-error", "log-loss", "brier", "auc")
+REGRESSION_MEASURES = ("mse", "rmse", "mae", "r2")
+MEASURES = CLASS_MEASURES + REGRESSION_MEASURES
 
 
 @dataclass(frozen=True)
@@ -31,6 +35,8 @@ class Config:
     seed: int = 0
     threads: int | None = None         # None: all cores
     keep_members: bool = True          # False: estimate-only run, trees dropped after their tally
+    importance: bool = False           # OOB permutation importance per member (Breiman 2001), and impurity decrease
+    measure: str | None = None         # the figure a run is judged by (None: "error" for classes, "mse" for regression)
 
     def __post_init__(self):
         _check(isinstance(self.members, int) and not isinstance(self.members, bool) and self.members >= 1,
@@ -38,7 +44,7 @@ class Config:
         _check(isinstance(self.min_leaf, int) and self.min_leaf >= 1,
                f"min_leaf must be a whole number >= 1, got {self.min_leaf!r}")
         _check(self.depth_limit is None or (isinstance(self.depth_limit, int) and self.depth_limit >= 0),
-               f"depth_limit must be None or a whole number >= 0, got {self.depth_limit!r}")
+               f"depth_limit must be a whole number >= 0 (or unset: no limit), got {self.depth_limit!r}")
         _check(isinstance(self.bins, int) and 2 <= self.bins <= 255,
                f"bins must be between 2 and 255, got {self.bins!r}")
         _check(self.draw in DRAWS, f"draw must be one of {', '.join(DRAWS)}, got {self.draw!r}")
@@ -51,7 +57,10 @@ class Config:
                f"task must be one of {', '.join(TASKS)}, got {self.task!r}")
         _check(isinstance(self.seed, int) and self.seed >= 0, f"seed must be a whole number >= 0, got {self.seed!r}")
         _check(self.threads is None or (isinstance(self.threads, int) and self.threads >= 1),
-               f"threads must be None or a whole number >= 1, got {self.threads!r}")
+               f"threads must be a whole number >= 1 (or unset: all cores), got {self.threads!r}")
+        _check(isinstance(self.importance, bool), f"importance must be True or False, got {self.importance!r}")
+        _check(self.measure is None or self.measure in MEASURES,
+               f"measure must be one of {', '.join(MEASURES)}, got {self.measure!r}")
         f = self.features_per_split
         ok = (f is None or f in ("sqrt", "log2")
               or (isinstance(f, int) and not isinstance(f, bool) and f >= 1)
@@ -84,6 +93,34 @@ class Config:
                 raise ConfigError(f"features_per_split is {f} but the table has only {n_features} features")
             k = f
         return max(1, min(k, n_features))
+
+    def features_rule(self, task: str) -> str:
+        """The rule features_per_split follows, in words: "sqrt", "log2", "1/3", "0.5" or "4" (a count)."""
+        f = self.features_per_split
+        if f is None:
+            return "sqrt" if task == "classes" else "1/3"
+        return str(f)
+
+    def resolved(self, n_features: int, task: str, task_given: bool | None = None) -> dict:
+        """The settings left to the data, as this run chose them (plain values, for JSON and reports).
+
+        task_given: whether the task was asked for (default: whether config.task is set).
+        """
+        return {"task": task, "task_from": "asked" if (self.task is not None if task_given is None else task_given)
+                else "the target",
+                "features_per_split": self.resolved_features(n_features, task),
+                "features_rule": self.features_rule(task), "features": n_features,
+                "criterion": self.resolved_criterion(task), "threads": self.resolved_threads()}
+
+    def resolved_measure(self, task: str) -> str:
+        """The measure a run is judged by, checking it fits the task."""
+        names = CLASS_MEASURES if task == "classes" else REGRESSION_MEASURES
+        if self.measure is None:
+            return names[0]
+        if self.measure not in names:
+            kind = "classes" if task == "classes" else "a regression target"
+            raise ConfigError(f"measure {self.measure!r} does not fit {kind}; use one of {', '.join(names)}")
+        return self.measure
 
     def resolved_threads(self) -> int:
         """Local threads to use."""

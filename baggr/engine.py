@@ -5,6 +5,7 @@ from __future__ import annotations
 import collections
 import hashlib
 import time
+import warnings
 
 import numpy as np
 
@@ -12,12 +13,15 @@ from baggr.backends.base import Backend
 from baggr.backends.member import Grower
 from baggr.backends.threads import Threads
 from baggr.data.prepared import Prepared, prepare
+from baggr.data.table import read_table
 from baggr.model.arena import Arena
 from baggr.config import Config
 from baggr.errors import ConfigError, DataError, ModelFileError
 from baggr.events import MemberEvent
 from baggr.model.ensemble import Ensemble
 from baggr.model.forest import Forest
+from baggr.oob.importance import ImportanceTally
+from baggr.oob.measure_curve import MeasureCurve
 from baggr.oob.view import OOB
 from baggr.oob.tally import Tally
 
@@ -42,31 +46,42 @@ _malloc_trim = None
 class Training:
     """A run in progress: grows members from `next_member` on, folding each into the tallies."""
 
-    def __init__(self, X, y, config: Config, *, prepared: Prepared | None = None, target: str | None = None):
+    def __init__(self, X, y, config: Config, *, prepared: Prepared | None = None, target: str | None = None,
+                 missing_target: str = "drop"):
         if not isinstance(config, Config):
             raise ConfigError("config must be a baggr.Config")
         self.config = config
-        self.prep = prepared or prepare(X, y, config, target=target)
+        self.prep = prepared or prepare(X, y, config, target=target, missing_target=missing_target)
+        config.resolved_measure(self.prep.task)   # a measure that does not fit the target fails here
         self.grower = Grower(self.prep, config)
         self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
                            max(1, self.prep.n_classes), config.vote, capacity=config.members)
-        # kept trees, in member order: views into the arena, where each is copied once as it is folded
+        self.measures = MeasureCurve(self.prep.task)   # every measure at log-spaced sizes
+        self._measured: dict | None = None
+        self.importance = ImportanceTally(self.prep.codes.shape[0], self.prep.n_classes if self.prep.task == "classes"
+                                          else 0) if config.importance else None
+        # kept trees, in member order: views into the arena, where each is copied once as it is folded;
+        # the trees of members before trees_base were set aside (stored by the caller, see set_aside)
         self.trees: list = []
+        self.trees_base = 0
         self._arena = self._new_arena()
         self.elapsed = 0.0
         self.stats = {"visits": 0, "nodes": 0, "grow_seconds": 0.0, "fold_seconds": 0.0,
-                      "keep_seconds": 0.0, "members": 0}
+                      "keep_seconds": 0.0, "measure_seconds": 0.0, "members": 0, "missing_target": self.prep.missing_target}
+        self.warm_up_seconds = 0.0   # compiling or loading the kernels before the first member (not in elapsed)
 
     @property
     def next_member(self) -> int:
         return self.tally.members
 
     def run(self, on_member=None, should_stop=None, until: int | None = None, backend: Backend | None = None):
-        """Grow members until `until` (default config.members) or should_stop() is true; returns the Ensemble.
+        """Grow members until `until` (default config.members) or should_stop() is true; returns the
+        Ensemble (None once trees were set aside: see set_aside).
 
         backend: where members grow (default: local threads, config.threads of them).
         """
         target = self.config.members if until is None else until
+        self.warm_up()
         backend = backend or Threads(self.config.resolved_threads())
         # the figures between members are only read through on_member (a run's journal)
         self.tally.live_fits = on_member is not None
@@ -80,6 +95,13 @@ class Training:
                 self.tally.fold(result.delta)
                 t1 = time.perf_counter()
                 self.stats["fold_seconds"] += t1 - t0
+                if self.importance is not None and result.importance is not None:
+                    self.importance.fold(result.importance)
+                    self.stats["importance_seconds"] = self.stats.get("importance_seconds", 0.0) + \
+                        result.importance_seconds
+                self._measured = self.measures.after_fold(self.tally)
+                self.stats["measure_seconds"] = self.measures.seconds
+                t1 = time.perf_counter()
                 if result.tree is not None:
                     self.trees.append(self._keep(result.tree))
                     self.stats["keep_seconds"] += time.perf_counter() - t1
@@ -100,7 +122,7 @@ class Training:
             backend.close()
             self.grower.release()
             _trim_heap()
-        return self.ensemble()
+        return self.ensemble() if not self.trees_base else None   # trees set aside: the caller makes it
 
     def event(self, oob_rows: int, recent=()) -> MemberEvent:
         t = self.tally
@@ -121,7 +143,38 @@ class Training:
             ev.r2 = t.r2()
         if t.est is not None and t.est.members == t.members:
             ev.curve = t.curve_points(self.config.members)
+        if self._measured is not None:
+            ev.measures = self._measured
+            if self.importance is not None:
+                ev.importance = self.importance.latest()
         return ev
+
+    def warm_up(self) -> float:
+        """Grow a member on a few rows of this table first: compiling the kernels (once per machine)
+        or loading them (once per process) then stays out of the training figures (elapsed and
+        members/s). Once per process and kind of run; returns its seconds (0 when done before)."""
+        p, cfg = self.prep, self.config
+        y = p.y_class if p.task == "classes" else p.y_value
+        key = (p.task, cfg.vote, cfg.resolved_criterion(p.task), cfg.draw, cfg.keep_members,
+               bool(np.any(p.binning.is_cat)), min(p.n_classes, 3), p.codes.flags.writeable, y.flags.writeable)
+        if key in _WARM:
+            return 0.0
+        _WARM.add(key)
+        t0 = time.perf_counter()
+        n = p.n_rows
+        if p.task == "classes":   # a few rows of every class, so every class's draw works
+            rows = np.unique(np.concatenate([np.arange(min(n, 32))] +
+                                            [np.flatnonzero(p.y_class == c)[:4] for c in range(p.n_classes)]))
+        else:
+            rows = np.arange(min(n, 48))
+        # the same dtypes, layouts and read-only flags as the table's own arrays: the same compiled code
+        small = Prepared(p.schema, p.binning, _alike(p.codes[:, rows], p.codes),
+                         _alike(p.y_class[rows], p.y_class) if p.task == "classes" else p.y_class,
+                         _alike(p.y_value[rows], p.y_value) if p.task == "regression" else p.y_value, p.task)
+        Training(None, None, cfg.replace(members=2, threads=1), prepared=small).run(backend=Threads(1))
+        seconds = time.perf_counter() - t0
+        self.warm_up_seconds += seconds
+        return seconds
 
     @property
     def n_out(self) -> int:
@@ -144,10 +197,42 @@ class Training:
         self._arena = None  # from here on, the trees are packed when an ensemble is made
         return tree
 
+    def set_aside(self, upto: int) -> None:
+        """Forget the kept trees of members before `upto`, which the caller has stored (a comparison
+        keeps in memory only the trees not yet in a checkpoint's files, candidate after candidate);
+        the later ones move to a fresh arena, so the old one's memory is freed."""
+        if not self.config.keep_members or upto <= self.trees_base:
+            return
+        if upto > self.next_member:
+            raise ValueError("cannot set aside trees not grown yet")
+        later = self.trees[upto - self.trees_base:]
+        self.trees, self.trees_base = [], upto
+        self._arena = self._new_arena()
+        for t in later:
+            self.trees.append(self._keep(t))
+
+    def take_back(self, earlier) -> None:
+        """Take the trees set aside back into a fresh arena, in member order; earlier: the trees of
+        members 0..trees_base-1 (an iterable, read chunk by chunk: memory for one set of trees)."""
+        if not self.trees_base:
+            return
+        later, n = self.trees, 0
+        self.trees, self._arena = [], self._new_arena()
+        for t in earlier:
+            self.trees.append(self._keep(t))
+            n += 1
+        if n != self.trees_base:
+            raise ValueError(f"{self.trees_base} trees were set aside, {n} given back")
+        for t in later:
+            self.trees.append(self._keep(t))
+        self.trees_base = 0
+
     def forest(self) -> Forest | None:
         """The kept trees as a Forest: views of the arena, or (without one) packed now, a copy."""
         if not self.config.keep_members:
             return None
+        if self.trees_base:
+            raise ValueError("trees were set aside: take them back first (take_back)")
         if self._arena is not None:
             return self._arena.forest()
         return Forest.pack(self.trees, self.n_out)
@@ -156,7 +241,17 @@ class Training:
         p = self.prep
         stats = dict(self.stats, seconds=self.elapsed)
         oob = OOB.from_tally(self.tally, p.schema.classes, extra={"data_sha256": self.data_sha256()})
+        oob.arrays().update(self._oob_extras())
         return Ensemble(p.schema, p.binning, self.config, self.forest(), oob, stats)
+
+    def _oob_extras(self) -> dict:
+        """Arrays the OOB view carries beside the tallies: the targets (the measures and the per-row
+        export judge against them) and the measure curve."""
+        y = self.tally.y
+        extra = {"target": np.array(y, copy=True), **self.measures.arrays()}
+        if self.importance is not None:
+            extra.update(self.importance.arrays())
+        return extra
 
     def data_sha256(self) -> np.ndarray:
         """SHA-256 of the binned table and the targets (uint8[32]), kept with the OOB figures: a
@@ -167,7 +262,8 @@ class Training:
         return np.frombuffer(h.digest(), np.uint8).copy()
 
     @classmethod
-    def from_ensemble(cls, ens: Ensemble, X, y, members: int, target: str | None = None) -> "Training":
+    def from_ensemble(cls, ens: Ensemble, X, y, members: int, target: str | None = None,
+                      missing_target: str = "drop") -> "Training":
         """A training that continues `ens` (trained on X, y) from its members up to `members`:
         run() then ends bit-identical to a run of `members` members from the start (members are
         pure functions of (data, config, seed, m); the tallies are folded on in member order)."""
@@ -177,10 +273,13 @@ class Training:
         if "data_sha256" not in arrays:
             raise ModelFileError("this ensemble does not record the data it was trained on (saved by an older "
                                  "baggr): it cannot be grown; train a new one")
-        tr = cls(X, y, ens.config.replace(members=members), target=target)
+        tr = cls(X, y, ens.config.replace(members=members), target=target, missing_target=missing_target)
         if not np.array_equal(tr.data_sha256(), arrays["data_sha256"]):
             raise DataError("these rows are not the table this ensemble was trained on: growing needs the same data")
-        tally = {"tally_" + k: v for k, v in arrays.items()
+        # the tallies (and the run's latest refit) as a checkpoint has them; the rest (targets, measures,
+        # importance) beside them, as checkpoint() puts them
+        known = set(tr.tally.arrays())
+        tally = {("tally_" + k if k in known or k.startswith("est_") else k): v for k, v in arrays.items()
                  if not k.startswith("final_") and k not in ("class_rows", "data_sha256")}
         header = {"next_member": ens.members, "elapsed": float(ens.stats.get("seconds", 0.0)),
                   "stats": {k: v for k, v in ens.stats.items() if k in tr.stats}}
@@ -199,6 +298,7 @@ class Training:
         files via Forest.pack(training.trees[a:b])), so a checkpoint costs O(rows), not O(trees).
         """
         arrays = {"tally_" + k: v for k, v in self.tally.arrays().items()}
+        arrays.update(self._oob_extras())
         header = {"next_member": self.next_member, "elapsed": self.elapsed,
                   "stats": {k: float(v) for k, v in self.stats.items()}}
         return arrays, header
@@ -224,7 +324,12 @@ class Training:
         bad = self.tally.est.check() if self.tally.est is not None else None
         if bad:
             raise ModelFileError(f"checkpoint's estimated curve is damaged: {bad}")
-        self.trees = []
+        self.measures.restore(arrays, m)
+        if self.importance is not None:
+            if "imp_sum" not in arrays:
+                raise ModelFileError("the checkpoint has no importance figures, but the run measures importance")
+            self.importance.restore(arrays)
+        self.trees, self.trees_base = [], 0
         self._arena = self._new_arena()
         if self.config.keep_members:
             for t in trees:
@@ -235,9 +340,77 @@ class Training:
                 self.stats[k] = type(self.stats[k])(v)
 
 
-def train(X, y, config: Config | None = None, on_member=None) -> Ensemble:
-    """Train a bagged tree ensemble and its OOB estimate in one pass; on_member(event) after every member."""
-    return Training(X, y, config or Config()).run(on_member=on_member)
+_WARM: set = set()   # kinds of run warmed up in this process (Training.warm_up)
+
+
+def _alike(part: np.ndarray, whole: np.ndarray) -> np.ndarray:
+    """A C-contiguous copy of part, read-only when whole is (numba compiles each flag apart)."""
+    out = np.ascontiguousarray(part)
+    if not whole.flags.writeable:
+        out.flags.writeable = False
+    return out
+
+
+# CPU seconds a first run spends compiling the kernels, on one core of the project's 2-core VM
+# (bench/first_run.py, bench/README.md): all of them, or one task's share when the other task's are on disk.
+COMPILE_ALL = 15.0
+COMPILE_TASK = 9.0
+
+
+def compile_seconds(task: str | None) -> float:
+    """About how long the kernels a training of this task runs take to compile here: 0 when numba's
+    cache holds them (a cheap look at its index), else the measured CPU time stretched by the load
+    (a busy machine lends the compiler only part of a core)."""
+    from baggr import jit
+    from baggr.learn.tree_kernels import grow_kernel
+    from baggr.oob import tally_kernels as tk
+    if not jit.cached(grow_kernel):
+        cpu = COMPILE_ALL
+    elif task == "regression":
+        cpu = 0.0 if jit.cached(tk.fold_regression) else COMPILE_TASK
+    else:
+        cpu = 0.0 if jit.cached(tk.fold_two_hard) or jit.cached(tk.fold_classes) else COMPILE_TASK
+    if cpu:
+        import os
+        try:
+            busy = os.getloadavg()[0] / (os.cpu_count() or 1)
+        except OSError:
+            busy = 1.0
+        cpu *= min(4.0, max(1.0, busy))
+    return cpu
+
+
+def train(X, y, config: Config | None = None, on_member=None, *, drop=None, only=None,
+          missing_target: str = "drop", cluster=None) -> Ensemble:
+    """Train a bagged tree ensemble and its OOB estimate in one pass; on_member(event) after every member.
+
+    drop / only: column names of X to leave out / to keep (the command's --drop and --only).
+    missing_target: "drop" (the default) leaves out rows whose target is missing, with a warning
+    giving their count (also in ensemble.stats["missing_target"]); "refuse" raises a DataError.
+    cluster: grow the members on a Dask cluster (needs baggr[cluster]): a distributed.Client, a
+    scheduler address ("tcp://host:8786", "tls://host:8786") or "local:N" (N worker processes on this
+    machine, stopped at the end). The result is the same, bit for bit, as with local threads.
+    """
+    backend = None
+    if cluster is not None:
+        from baggr.backends.dask import Dask
+        backend = Dask(cluster)     # connected first: a wrong address fails before the data is read
+    try:
+        if drop or only:
+            X = read_table(X, drop=drop, only=only)
+        tr = Training(X, y, config or Config(), missing_target=missing_target)
+        if tr.prep.missing_target:
+            warnings.warn(missing_target_text(tr.prep.missing_target, tr.prep.n_rows), stacklevel=2)
+        return tr.run(on_member=on_member, backend=backend)
+    finally:
+        if backend is not None:
+            backend.shutdown()
+
+
+def missing_target_text(missing: int, rows: int, target: str | None = None) -> str:
+    """The one line that says how many rows were left out for a missing target."""
+    what = f"target {target!r}" if target else "target"
+    return f"left out {missing} of {missing + rows} rows whose {what} is missing"
 
 
 def grow(ens: Ensemble, X, y, members: int, on_member=None) -> Ensemble:

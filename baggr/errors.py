@@ -19,3 +19,12 @@ class ModelFileError(BaggrError):
 
 class RunDirError(BaggrError):
     """A run directory is missing, busy, or cannot be used as asked."""
+
+
+class ClusterError(BaggrError):
+    """A Dask cluster cannot be used: the extra is not installed, the address is wrong, nobody answers."""
+
+
+class ClusterLostError(ClusterError):
+    """The cluster cannot go on mid-run (its scheduler went away, no worker is left, a worker's
+    error); the members folded before it are intact, and a resume goes on from there."""

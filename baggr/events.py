@@ -26,6 +26,8 @@ class MemberEvent:
     confusion: list | None = None
     r2: float | None = None
     rate: float = 0.0               # members per second, recent
+    measures: dict | None = None    # {name: (value, interval)} at the measure curve's sizes, else None
+    importance: dict | None = None  # {"mean": [...], "se": [...]} per feature, at the same sizes (--importance)
     raw_error: float = math.nan     # textbook OOB error after `member` members
     raw_interval: tuple | None = None
     raw_class_error: list = field(default_factory=list)
@@ -56,6 +58,11 @@ class MemberEvent:
             d["confusion"] = self.confusion
         if self.r2 is not None:
             d["r2"] = _num(self.r2)
+        if self.measures is not None:
+            d["measures"] = {k: [_num(v), *([_num(x) for x in iv] if iv is not None else [None, None])]
+                             for k, (v, iv) in self.measures.items()}
+        if self.importance is not None:
+            d["importance"] = self.importance
         return d
 
 

@@ -8,7 +8,7 @@ machine code is at hand), writes /tmp/perf-PID.map naming each compiled function
 (perf's format for code generated at run time) and waits; `perf record` then attaches to it for
 the trees alone. Prints each function's share of the samples that fell in compiled code and in the
 runtime helpers it calls (reference counts, memset, memmove); the rest (Python, numpy) below that.
-Helpers inlined into grow_kernel count as grow_kernel.
+Helpers inlined into grow_nodes count as grow_nodes.
 """
 import gc
 import os
@@ -49,9 +49,7 @@ def child(problem: str, trees: int) -> None:
     sys.path.insert(0, os.path.join(HERE, ".."))
     import numpy as np
 
-    from baggr.learn import hist_kernels
-    from baggr.learn import split_kernels
-    from baggr.learn import tree_kernels
+    from baggr.learn import hist_kernels, partition_kernels, split_kernels, tree_kernels
     from baggr.learn.rng import STREAM_TREE, stream_state
     from baggr.learn.tree import Learner
     from tree_speed import bootstrap, quantile_codes, twonorm
@@ -78,7 +76,7 @@ def child(problem: str, trees: int) -> None:
         learner.grow(w, stream_state(7, m, STREAM_TREE), oob=oob, scratch=scratch)
 
     one(0)  # compile
-    n = write_perf_map([tree_kernels, hist_kernels, split_kernels])
+    n = write_perf_map([tree_kernels, hist_kernels, split_kernels, partition_kernels])
     # compiling afresh leaves millions of objects behind: out of the collector's way, or its passes
     # over them take a quarter of the samples
     gc.collect()

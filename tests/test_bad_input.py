@@ -26,11 +26,16 @@ def test_one_class():
         baggr.train(np.random.default_rng(0).normal(size=(50, 3)), np.ones(50, int), _cfg())
 
 
-def test_nan_in_target():
+def test_nan_in_target_refused_when_asked_and_otherwise_left_out_with_a_warning():
     y = np.random.default_rng(0).normal(size=50)
     y[7] = np.nan
-    with pytest.raises(baggr.BaggrError, match="missing"):
-        baggr.train(np.random.default_rng(1).normal(size=(50, 3)), y, _cfg())
+    X = np.random.default_rng(1).normal(size=(50, 3))
+    with pytest.raises(baggr.BaggrError, match="1 missing values"):
+        baggr.train(X, y, _cfg(), missing_target="refuse")
+    with pytest.warns(UserWarning, match="left out 1 of 50 rows whose target is missing"):
+        ens = baggr.train(X, y, _cfg())
+    # the OOB figures cover the 49 rows with a target, no more (common practice, no source)
+    assert ens.oob.left_out.shape == (49,) and ens.stats["missing_target"] == 1
 
 
 def test_rows_and_target_lengths_differ():

@@ -143,7 +143,7 @@ def test_report_tables_say_the_figures_and_the_cautions(run):
     assert 0 <= fig["oob_error"] <= 1 and 0 <= fig["coverage"] <= 1
     assert all(c in text for c in ("Per class", "Read with care", "Settled at", fig["data"]["sha256"]))
     flat = " ".join(text.split())                                     # the cautions wrap to the width
-    assert "patient" in flat and "drift" in flat and "affect people" in flat and "0.37 b members" in flat
+    assert "patient" in flat and "drift" in flat and "people, money or safety" in flat and "0.37 b members" in flat
     assert f"Textbook OOB {100 * fig['raw_error']:.2f}%" in flat and f"Error limit {100 * fig['error_limit']:.2f}%" in flat
     assert f"Members needed {fig['members_needed']:,}" in flat
     assert not [ln for ln in text.splitlines() if ln != ln.rstrip()]   # no line ends in spaces
@@ -367,7 +367,7 @@ def _bad_files(d: Path, run_dir: Path):
         ("not parquet", (*t, garbage, *L), "not a readable Parquet"),
         ("unknown target", (*t, small, "--target", "nope"), "target column 'nope' not found"),
         ("one class", (*t, one, *L), "only one class"),
-        ("NaN in target", (*t, nan, "--target", "y"), "missing values"),
+        ("NaN in target", (*t, nan, "--target", "y", "--missing-target", "refuse"), "missing values"),
         ("identifier", (*t, ident, *L), "looks like an identifier"),
         ("wrong delimiter", (*t, semi, *L), "delimiter"),
         ("ragged", (*t, ragged, *L), "ragged rows"),
@@ -375,7 +375,7 @@ def _bad_files(d: Path, run_dir: Path):
         ("members 0", (*t, small, *L, "--members", "0"), "members must be a whole number >= 1"),
         ("members text", (*t, small, *L, "--members", "lots"), "invalid int value: 'lots'"),
         ("features too many", (*t, small, *L, "--features-per-split", "99"),
-         "features_per_split is 99 but the table has only 4 features"),
+         "--features-per-split is 99 but the table has only 4 features"),
         ("run dir not writable", (*t, small, *L, "--run-dir", afile / "sub"), "cannot create the run directory"),
         ("run dir exists", (*t, small, *L, "--run-dir", run_dir), "already exists (use --force"),
         ("force on a non-run folder", (*t, small, *L, "--run-dir", d, "--force"), "is not a baggr run directory"),

@@ -31,7 +31,7 @@ from generators import noisy_halves
 BAGGR = [sys.executable, "-m", "baggr.cli"]
 MEMBERS = 30
 # Timing fields of the model header: the only ones allowed to differ after a resume.
-TIMES = {"grow_seconds", "fold_seconds", "keep_seconds", "seconds"}
+TIMES = {"grow_seconds", "fold_seconds", "keep_seconds", "measure_seconds", "importance_seconds", "seconds"}
 
 
 def baggr(*args, env=None, timeout=120, cwd=None):

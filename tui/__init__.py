@@ -64,4 +64,10 @@ def watch(run_dir, *, get_time=time.time) -> int:
     return _watch(run_dir, get_time=get_time, opening=opening)
 
 
-__all__ = ["watch"]
+def watch_comparison(path) -> int:
+    """The board of a comparison directory (every candidate's curve, the ranked table) until `q`."""
+    from .compare import watch_comparison as _watch
+    return _watch(path)
+
+
+__all__ = ["watch", "watch_comparison"]

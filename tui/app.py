@@ -7,7 +7,7 @@ from pathlib import Path
 from textual.app import App, ComposeResult
 from textual.css.query import NoMatches
 
-from baggr.runs.journal import RunDirError, job_status, request_stop, stop_requested
+from baggr.runs.journal import MEASURES_BY_TASK, RunDirError, job_status, request_stop, stop_requested
 
 from . import keys
 from .opening import Opening
@@ -17,6 +17,7 @@ from .tail import Tail
 from .view import View, make_view
 from .widgets import Caution, ClassPanel, ConfusionPanel, CurvePanel, FitPanel, ProgressPanel, RunBar, SidePanel
 from .widgets.base import Backdrop, Frame, Row
+from .widgets.importance import ImportancePanel
 from .widgets.settings import SettingsPanel
 from .widgets.process import ProcessProbe
 
@@ -69,8 +70,9 @@ class Dashboard(App):
     # From 110 columns the side column widens (its CSS): the process line keeps all its figures.
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
 
-    def __init__(self, run_dir, *, get_time=time.time, poll: float = TAIL_POLL, opening=None):
+    def __init__(self, run_dir, *, get_time=time.time, poll: float = TAIL_POLL, opening=None, back: bool = False):
         super().__init__()
+        self.back = back            # opened from a comparison's board: Escape goes back to it
         self.run_dir = Path(run_dir)
         self.get_time = get_time
         self.tail = Tail(self.run_dir, self.post_message, poll=poll, opening=opening)
@@ -78,6 +80,7 @@ class Dashboard(App):
         self.log_x = False
         self.show_raw = True        # the textbook OOB curve, faint beside the estimate (key r)
         self.highlight: int | None = None
+        self.measure: str | None = None     # the measure on the curve (None: the run's chosen one)
         self.status = "waiting"
         self.redraws = 0            # drawn frames (read by the benchmark)
         self.first_full_draw: float | None = None   # time.perf_counter() of the first draw after the opening read
@@ -179,7 +182,7 @@ class Dashboard(App):
             view = make_view(state, run_name=self.run_dir.name, status=self.status, now=self.get_time(),
                              width=curve.plot_width, log_x=self.log_x, highlight=self.highlight,
                              stop_requested=stop_requested(self.run_dir), malformed=self.tail.reader.malformed,
-                             curves=heavy, show_raw=self.show_raw)
+                             curves=heavy, measure=self.measure, show_raw=self.show_raw)
         if not heavy and self.view is not None:
             view.curves = self.view.curves      # the curves last drawn, not downsampled again
         self.view = view
@@ -196,6 +199,7 @@ class Dashboard(App):
             self._draw_tables(view, regression)
             if not all_panels:      # what a drawing on the clock costs, Textual's painting of it included
                 self.call_after_refresh(self._heavy_done, cpu)
+        self.panel(ImportancePanel).show(view)
         self.panel(SettingsPanel).show(view)
         self._show_captions()
         if isinstance(self.screen, StopScreen):
@@ -240,6 +244,10 @@ class Dashboard(App):
         """q or Ctrl-C: leave the dashboard; the job goes on (the command then says how to stop it)."""
         self.exit()
 
+    def action_back(self) -> None:
+        """Escape, on a candidate opened from a comparison's board: back to the board."""
+        self.exit("back")
+
     def action_log_scale(self) -> None:
         self.log_x = not self.log_x
         self.redraw()
@@ -256,6 +264,17 @@ class Dashboard(App):
             return
         # none -> 0 -> 1 -> ... -> k-1 -> none
         self.highlight = 0 if self.highlight is None else (None if self.highlight + 1 >= k else self.highlight + 1)
+        self.redraw()
+
+    def action_cycle_measure(self) -> None:
+        """Show the next measure on the curve: the run's chosen one first, then the others in turn."""
+        v = self.view
+        if v is None or not v.task:
+            self.notify("No measures known yet.")
+            return
+        names = MEASURES_BY_TASK["regression" if v.task == "regression" else "classes"]
+        now = self.measure or v.chosen_measure or names[0]
+        self.measure = names[(names.index(now) + 1) % len(names)] if now in names else names[0]
         self.redraw()
 
     def action_help(self) -> None:

@@ -62,7 +62,11 @@ KEYS = [
         "curve"),
     Key("c", "c", "cycle_class", _class_words, "highlight the next class in the curve and tables", "classes",
         when=_classes),
+    Key("m", "m", "cycle_measure", "next measure", "curve: the next measure (error, AUC, log loss, ...; MSE, MAE, "
+        "R2), from the run's own", "curve"),
     Key("question_mark", "?", "help", "keys", "this list", "top"),
+    Key("escape", "Esc", "back", "back to the comparison", "back to the comparison's board (a candidate opened "
+        "from it)", "top", when=lambda app: getattr(app, "back", False)),
 ]
 
 

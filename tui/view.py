@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from baggr.runs.journal import RunState
+from baggr.runs.journal import MEASURE_LABELS as LABELS, RunState, chosen_measure as chosen
 
 
 @dataclass
@@ -48,7 +48,21 @@ class View:
     members_needed: int | None = None
     show_raw: bool = True           # draw the textbook curve (faint) beside the estimate
     config: dict | None = None      # the start line's settings
+    resolved: dict | None = None    # what the data chose for the unset ones (task, features per split, ...)
     version: int = 0                # events folded so far: the curve changed when this did
+    measure: str | None = None      # the measure shown (m cycles); the run's chosen one at first
+    chosen_measure: str | None = None
+    measure_value: tuple | None = None   # (value, lo, hi) of the shown measure at its latest point
+    importance: list = field(default_factory=list)   # (feature, mean, se), largest mean first
+
+    @property
+    def measure_label(self) -> str:
+        return LABELS.get(self.measure or "", self.measure or "")
+
+    @property
+    def per_member(self) -> bool:
+        """Whether the curve shows the per-member error (MSE), not a measure's points."""
+        return self.measure in (None, "error", "mse")
 
     @property
     def is_classes(self) -> bool:
@@ -57,7 +71,7 @@ class View:
 
 def make_view(state: RunState, *, run_name: str, status: str, now: float, width: int, log_x: bool,
               highlight: int | None, stop_requested: bool, malformed: int, curves: bool = True,
-              show_raw: bool = True) -> View:
+              measure: str | None = None, show_raw: bool = True) -> View:
     """Copy the figures out of `state` (call with its lock held); curves downsampled to `width` points
     (none when `curves` is false: a redraw that does not build the plot)."""
     running = status == "running"
@@ -72,6 +86,18 @@ def make_view(state: RunState, *, run_name: str, status: str, now: float, width:
         series += list(range(len(state.curve_class)))
         for s in series:
             curves[s] = state.curve(s, width=width, log=log_x)
+    the_chosen = chosen(state.config, state.task)
+    measure = measure or the_chosen
+    if want_curves and measure not in ("error", "mse"):
+        xs, v, lo, hi = state.measures.curve(measure)     # a point a scheduled size: a few dozen
+        curves["m"], curves["m_lo"], curves["m_hi"] = (xs, v), (xs, lo), (xs, hi)
+    latest = state.measures.latest(measure)
+    imp = state.measures.importance
+    names = state.feature_names
+    importance = []
+    if imp and names and len(imp.get("mean") or []) == len(names):
+        importance = sorted(((n, m, e) for n, m, e in zip(names, imp["mean"], imp.get("se") or [None] * len(names))
+                             if m is not None), key=lambda r: -r[1])
     return View(
         run_name=run_name, status=status, reason=state.reason, task=state.task,
         classes=list(state.classes), rows=state.rows, features=state.features,
@@ -87,4 +113,6 @@ def make_view(state: RunState, *, run_name: str, status: str, now: float, width:
         version=state.events, config=dict(state.config) if isinstance(state.config, dict) else None,
         fit=None if state.fit is None else dict(state.fit), raw_error=state.raw_error, error_limit=state.error_limit,
         error_limit_interval=state.error_limit_interval, members_needed=state.members_needed, show_raw=show_raw,
+        resolved=dict(state.resolved) if isinstance(state.resolved, dict) else None,
+        measure=measure, chosen_measure=the_chosen, measure_value=latest, importance=importance,
     )

@@ -12,6 +12,7 @@ from baggr.data.prepared import Prepared
 from baggr.learn.draw import Drawer
 from baggr.learn.rng import STREAM_TREE, stream_state
 from baggr.learn.tree import Learner, Scratch, Tree
+from baggr.oob.importance import MemberImportance, member_importance
 from baggr.oob.tally import MemberDelta
 
 
@@ -25,6 +26,8 @@ class MemberResult:
     visits: int
     nodes: int
     seconds: float
+    importance: MemberImportance | None = None   # with config.importance
+    importance_seconds: float = 0.0
 
 
 class Grower:
@@ -52,7 +55,12 @@ class Grower:
         with self._lock:
             if self._spare:
                 return self._spare.pop()
-        return self.learner.scratch(keep=self.config.keep_members)
+        return self.learner.scratch(keep=self._tree_needed)
+
+    @property
+    def _tree_needed(self) -> bool:
+        """The tree is built in full when it is kept, or (only for the time of the member) for its importance."""
+        return self.config.keep_members or self.config.importance
 
     def release(self) -> None:
         """Drop the working arrays (a finished run keeps no per-thread memory)."""
@@ -65,19 +73,27 @@ class Grower:
         s = self._scratch()
         try:
             w = self.drawer.counts_into(m, s.weights)
-            g = self.learner.grow(w, stream_state(cfg.seed, m, STREAM_TREE), keep=cfg.keep_members,
+            g = self.learner.grow(w, stream_state(cfg.seed, m, STREAM_TREE), keep=self._tree_needed,
                                   oob=self.oob, scratch=s)
+            imp, t_imp = None, 0.0
+            if cfg.importance:
+                t1 = time.perf_counter()
+                p = self.prep
+                imp = member_importance(p.codes, g.tree, g.oob_rows, self.learner.y_class, self.learner.y_value,
+                                        p.task == "regression", max(1, p.n_classes), cfg.seed, m)
+                t_imp = time.perf_counter() - t1
         finally:
             with self._lock:
                 self._spare.append(s)
+        tree = g.tree if cfg.keep_members else None
         if self.oob == "class":
             votes = g.oob_int
         elif self.prep.task == "classes":
             votes = g.oob_value
         else:
             votes = g.oob_value[:, 0]
-        return MemberResult(m, g.tree, MemberDelta(m, g.oob_rows, votes), g.visits, g.n_nodes,
-                            time.perf_counter() - t0)
+        return MemberResult(m, tree, MemberDelta(m, g.oob_rows, votes), g.visits, g.n_nodes,
+                            time.perf_counter() - t0 - t_imp, imp, t_imp)
 
     def grow_chunk(self, members) -> list[MemberResult]:
         """The members of a range, in order: the unit a backend ships (trees and OOB deltas)."""

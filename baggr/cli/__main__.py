@@ -3,4 +3,6 @@ import sys
 
 from baggr.cli.main import main
 
-sys.exit(main())
+# Guarded: the worker processes of a local Dask cluster are spawned and import this module again.
+if __name__ == "__main__":
+    sys.exit(main())

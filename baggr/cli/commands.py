@@ -12,12 +12,18 @@ from baggr.cli.launch import attach, discard, goes_on, launch, run_mode, say
 from baggr.errors import BaggrError, ConfigError, DataError
 
 
+def text_width() -> int:
+    """Columns to wrap prose to: the terminal's (80 when not a terminal), at most 100, one spare."""
+    import shutil
+    return max(40, min(shutil.get_terminal_size((80, 24)).columns, 100) - 1)
+
+
 def _config(args):
     from baggr.config import Config
     return Config(members=args.members, features_per_split=args.features_per_split, min_leaf=args.min_leaf,
                   depth_limit=args.depth_limit, bins=args.bins, draw=args.draw, draw_fraction=args.draw_fraction,
                   vote=args.vote, task=args.task, seed=args.seed, threads=args.threads,
-                  keep_members=not args.estimate_only)
+                  keep_members=not args.estimate_only, importance=args.importance, measure=args.measure)
 
 
 def _settings(args):
@@ -38,23 +44,48 @@ def _settings(args):
     return s
 
 
+def _cluster(args) -> str | None:
+    """The --cluster option, checked before anything is written (the address's form, the extra installed)."""
+    text = getattr(args, "cluster", None)
+    if text is None:
+        return None
+    from baggr.backends.dask_connect import check_option
+    return check_option(text)
+
+
 def cmd_train(args) -> int:
     from baggr import runs
-    config, settings = _config(args), _settings(args)
+    from baggr.cli.main import table_options
+    config, settings, cluster = _config(args), _settings(args), _cluster(args)
     info = runs.fingerprint(args.data)
     rd = runs.create(args.run_dir or runs.default_run_dir(args.data), force=args.force)
     try:
-        runs.init_config(rd, data=info, target=args.target, config=config, settings=settings)
+        runs.init_config(rd, data=info, target=args.target, config=config, settings=settings,
+                         table=table_options(args))
     except BaggrError:
         discard(rd)
         raise
     # the run directory is the first line, printed once the job has started (a start that fails
     # removes the directory)
-    return launch(rd, run_mode(args), fresh=True, announce=str(rd.path))
+    return launch(rd, run_mode(args), fresh=True, announce=str(rd.path), cluster=cluster, debug=args.debug)
+
+
+def _comparison(path) -> bool:
+    from baggr.runs.comparison import is_comparison
+    return is_comparison(path)
+
+
+def cmd_compare(args) -> int:
+    from baggr.cli import compare
+    return compare.cmd_compare(args)
 
 
 def cmd_resume(args) -> int:
     from baggr import runs
+    cluster = _cluster(args)
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_resume(args)
     rd = runs.RunDir(args.dir).require()
     cfg = rd.read_config()
     st, status = rd.state()
@@ -76,19 +107,28 @@ def cmd_resume(args) -> int:
             f"(to grow it: baggr resume {rd.path} --members N)")
         return 0
     runs.check_data(cfg["data"])
-    return launch(rd, run_mode(args), fresh=False)
+    return launch(rd, run_mode(args), fresh=False, cluster=cluster, debug=args.debug)
 
 
 def cmd_job(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_job(args)
     from baggr.cli import progress as prog
     from baggr.runs import Job, RunDir
-    job = Job(RunDir(args.dir), prog.PlainProgress(sys.stdout), verify=args.verify)
+    if args.cluster is not None and not args.debug:
+        from baggr.backends.dask_connect import quiet_logs
+        quiet_logs()
+    job = Job(RunDir(args.dir), prog.PlainProgress(sys.stdout), verify=args.verify, cluster=args.cluster)
     out = job.run()
     say(out.message)
     return out.code
 
 
 def cmd_watch(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_watch(args)
     from baggr.runs import RunDir
     rd = RunDir(args.dir).require()
     code = attach(rd)
@@ -99,12 +139,16 @@ def cmd_watch(args) -> int:
 
 
 def cmd_stop(args) -> int:
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_stop(args)
     from baggr.runs import journal
     from baggr.runs import RunDir, RunDirError
+    from baggr.runs import status_words
     rd = RunDir(args.dir).require()
     st, status = rd.state()
     if status != "running":
-        raise RunDirError(f"no job is running in {rd.path} (it is {status})")
+        raise RunDirError(f"no job is running in {rd.path}: {status_words(status, st.members)}")
     journal.request_stop(rd.path)
     say(f"asked the job (pid {st.pid}) to stop after the member in hand")
     if args.wait:
@@ -116,50 +160,66 @@ def cmd_stop(args) -> int:
 
 
 def cmd_report(args) -> int:
-    from baggr.cli import report
+    if _comparison(args.dir):
+        from baggr.cli import compare
+        return compare.cmd_report(args)
+    from baggr.cli import outputs, report
+    keep = [c.strip() for c in args.keep.split(",") if c.strip()] if args.keep else None
+    if keep and not args.rows:
+        raise ConfigError("--keep goes with --rows (it names columns to copy into the per-row export)")
     r = report.load(args.dir)
+    if getattr(args, "measure", None):      # head the report by another measure than the run's own
+        r.config = r.config.replace(measure=args.measure)     # an unknown name: ConfigError
+        r.config.resolved_measure(r.task)                      # one that does not fit the task: ConfigError
+    d = report.figures(r)
+    files = []
+    if args.rows:
+        files.append(outputs.write_rows(r, Path(args.rows), keep, args.force))
+    if args.html:
+        files.append(outputs.write_html(r, d, Path(args.html), args.force))
+    if args.figures:
+        files.append(outputs.write_figures(r, d, Path(args.figures), args.force))
     if args.json:
-        say(json.dumps(report.figures(r), allow_nan=False))
-        return 0
-    from rich.console import Console
-    report.render(r, Console())
+        say(json.dumps(d, allow_nan=False))
+    elif not files:
+        from rich.console import Console
+        report.render(r, Console(), d)
+    for line in files:    # with --json, stdout holds the JSON alone
+        if args.json:
+            sys.stderr.write(line + "\n")
+        else:
+            say(line)
     return 0
 
 
-OUT_KINDS = {".csv": "csv", ".tsv": "tsv", ".parquet": "parquet", ".pq": "parquet"}
-
-
 def cmd_predict(args) -> int:
+    from baggr.cli.main import _joined
     from baggr.data.batches import Batches
     from baggr.model import ensemble as model
-    from baggr.errors import ModelFileError
-    from baggr.runs import MODEL, RunDir, RunDirError
-    src = Path(args.model)
-    path = src / MODEL if src.is_dir() else src
-    if src.is_dir() and not path.exists():
-        rd = RunDir(src).require()
-        st, status = rd.state()
-        raise RunDirError(f"{src} has no model yet (the run is {status} at {st.members} members): "
-                          "wait for it to finish, or stop it (baggr stop DIR) to save one")
-    if not path.exists():
-        raise ModelFileError(f"model file not found: {path}")
+    from baggr.runs import model_path
+    path = model_path(args.model)
+    from baggr.cli.outputs import check_new, table_kind
     out = Path(args.out)
-    kind = OUT_KINDS.get(out.suffix.lower())
-    if kind is None:
-        raise ConfigError(f"--out must end in .csv, .tsv, .parquet or .pq, got {out.name!r}")
-    if (out.exists() or out.is_symlink()) and not args.force:
-        raise BaggrError(f"{out} already exists (use --force to replace it)")
-    if not out.parent.resolve().is_dir():
-        raise BaggrError(f"cannot write {out}: folder {out.parent} does not exist")
+    kind = table_kind(out)
+    check_new(out, args.force)
     ens = model.load(path)
     if ens.forest is None or ens.forest.members == 0:
-        raise BaggrError("this model was trained estimate-only (keep_members=False): it has no trees to score new rows")
+        raise BaggrError(f"{path} was trained with --estimate-only: it has no trees to score new rows")
+    keep = _joined(args.keep)
+    made = ["prediction"] + ([f"share_{c}" for c in ens.classes] if ens.task == "classes" else [])
+    clash = [k for k in keep if k in made]
+    if clash:
+        raise BaggrError(f"--keep {clash[0]}: the output has its own column {clash[0]!r}")
+    batches = Batches(args.data, ens.schema.names, ens.schema.kinds, rows=BATCH_ROWS, dates=ens.schema.dates,
+                      keep=keep, delimiter=args.delimiter)
+    unseen: dict = {}
     members = getattr(args, "members", None)
     if members is not None and not 1 <= members <= ens.forest.members:
         raise ConfigError(f"--members must be from 1 to {ens.forest.members} (the members the model keeps), "
                           f"got {members}")
-    n = _predict_stream(ens, Batches(args.data, ens.schema.names, ens.schema.kinds, rows=BATCH_ROWS), out, kind,
-                        members)
+    n = _predict_stream(ens, batches, out, kind, keep, unseen, members)
+    if unseen:
+        sys.stderr.write(unseen_line(unseen) + "\n")
     say(f"wrote {n} predictions to {out}")
     return 0
 
@@ -167,14 +227,28 @@ def cmd_predict(args) -> int:
 BATCH_ROWS = 1 << 17   # rows scored at a time: a table larger than memory streams through
 
 
-def _predict_stream(ens, batches, out: Path, kind: str, members: int | None = None) -> int:
+def unseen_line(unseen: dict) -> str:
+    """One warning line: how many values were categories the model never saw, and per column."""
+    total = sum(k for k, _ in unseen.values())
+    per = ", ".join(f"{name} {k}" for name, (k, _) in sorted(unseen.items(), key=lambda kv: -kv[1][0])[:5])
+    more = ", ..." if len(unseen) > 5 else ""
+    pooled = [name for name, (_, p) in unseen.items() if p]
+    how = "scored as missing" if not pooled else \
+        "scored as missing (as '(other)' in " + ", ".join(pooled) + ", which pooled rare categories)"
+    what = "1 value was a category" if total == 1 else f"{total} values were categories"
+    return f"warning: {what} the model never saw ({per}{more}); {how}"
+
+
+def _predict_stream(ens, batches, out: Path, kind: str, keep=(), unseen=None, members: int | None = None) -> int:
     """Score batch after batch into a temp file beside out, renamed at the end (a failed run never
-    leaves half a file under the asked name); a progress bar on a terminal. Returns the rows written."""
+    leaves half a file under the asked name); a progress bar on a terminal. Returns the rows written.
+    keep: columns of the table copied first; unseen: a dict that adds up unseen_levels per batch."""
     import tempfile
 
     import numpy as np
     import pyarrow as pa
 
+    from baggr.data import unseen_levels
     classes = pa.array(list(ens.classes)) if ens.task == "classes" else None
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=out.suffix, dir=out.parent.resolve())
     os.close(fd)
@@ -182,7 +256,10 @@ def _predict_stream(ens, batches, out: Path, kind: str, members: int | None = No
     bar = _Bar(batches) if sys.stderr.isatty() else None
     try:
         for X in batches:
-            cols = {}
+            cols = {k: X.column(k) for k in keep}
+            if unseen is not None:
+                for name, (k, pooled) in unseen_levels(X, ens.schema).items():
+                    unseen[name] = (unseen.get(name, (0, pooled))[0] + k, pooled)
             if classes is not None:
                 shares = ens.vote_shares(X, members=members)
                 cols["prediction"] = classes.take(pa.array(np.argmax(shares, axis=1)))
@@ -255,7 +332,7 @@ def cmd_demo(args) -> int:
     rd = runs.create(args.run_dir or runs.default_run_dir("demo"), force=args.force)
     mode = run_mode(args)
     try:
-        say("\n".join(textwrap.wrap(scenario.DESCRIPTION, 88)))
+        say("\n".join(textwrap.wrap(scenario.DESCRIPTION, text_width())))
         say()
         say(str(rd.path))
         path = scenario.write(rd / "demo-data.csv", rows=args.rows, seed=args.data_seed)
@@ -271,6 +348,6 @@ def cmd_demo(args) -> int:
         say()
         report.render(report.load(rd.path), Console())
         say()
-        say(f"next: baggr report {rd.path} --json   |   "
-             f"baggr predict {rd.path} {rd / 'demo-data.csv'} --out scored.csv")
+        say(f"next: baggr report {rd.path} --json")
+        say(f"      baggr predict {rd.path} {rd / 'demo-data.csv'} --out scored.csv")
     return code

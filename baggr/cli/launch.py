@@ -46,27 +46,39 @@ class Announced:
     def __init__(self, inner, line: str):
         self.inner, self.line = inner, line
 
-    def begin(self, start: dict) -> None:
+    def _announce(self) -> None:
         if self.line is not None:
             say(self.line)
             self.line = None
+
+    def begin(self, start: dict) -> None:
+        self._announce()
         self.inner.begin(start)
+
+    def note(self, text: str) -> None:
+        """A note before the start (the data was read: the run will start) comes after the line."""
+        self._announce()
+        self.inner.note(text)
 
     def __getattr__(self, name):
         return getattr(self.inner, name)
 
 
-def launch(rd, mode: str, *, fresh: bool, announce: str | None = None) -> int:
+def launch(rd, mode: str, *, fresh: bool, announce: str | None = None, cluster: str | None = None,
+           debug: bool = False) -> int:
     """Run the job of rd in the chosen mode; returns the exit code. announce: a line to print
-    first, once the job has started."""
+    first, once the job has started; cluster: where the members grow (None: local threads)."""
     if mode == "detached":
-        return detached(rd, fresh=fresh, announce=announce)
+        return detached(rd, fresh=fresh, announce=announce, cluster=cluster)
     from baggr.cli import progress as prog
     from baggr.runs import Job
+    if cluster is not None and not debug:
+        from baggr.backends.dask_connect import quiet_logs
+        quiet_logs()     # the job says what matters in its own lines
     bar = prog.make(mode)
     if announce is not None:
         bar = Announced(bar, announce)
-    job = Job(rd, bar, verify=False)
+    job = Job(rd, bar, verify=False, cluster=cluster)
     try:
         out = job.run()
     except BaggrError:
@@ -79,18 +91,32 @@ def launch(rd, mode: str, *, fresh: bool, announce: str | None = None) -> int:
     return out.code
 
 
-def detached(rd, *, fresh: bool, announce: str | None = None) -> int:
+def detached(rd, *, fresh: bool, announce: str | None = None, cluster: str | None = None) -> int:
     from baggr import runs
     pid = rd.lock_holder()
     if pid:
         raise runs.RunDirError(f"{rd.path} is already running (pid {pid}); watch it with: baggr watch {rd.path}")
     st, _ = rd.state()
-    proc = runs.spawn(rd)
+    proc = runs.spawn(rd, cluster=cluster)
     from rich.console import Console
     console = Console()
+    said = []
+
+    def on_event(ev):
+        """The job's lines before its start: the compile note and warnings, printed as they come."""
+        if ev.get("event") in ("compiling", "warning") and ev.get("message"):
+            if announce is not None and not said:
+                console.print(announce, markup=False, highlight=False)
+            said.append(ev)
+            prefix = "warning: " if ev["event"] == "warning" else ""
+            console.print(prefix + str(ev["message"]), markup=False, highlight=False)
+            if ev["event"] == "compiling":
+                status.update(f"{ev['message']} (job pid {proc.pid}) ...")
+
     try:
-        with console.status(f"reading the data (job pid {proc.pid}) ..."):
-            code = runs.wait_started(rd, proc, st.starts)
+        doing = "reading the data" if cluster is None else f"connecting to the cluster ({cluster}) and reading the data"
+        with console.status(f"{doing} (job pid {proc.pid}) ...") as status:
+            code = runs.wait_started(rd, proc, st.starts, on_event=on_event)
     except KeyboardInterrupt:
         say(f"left the job starting in the background (pid {proc.pid}); reattach with: baggr watch {rd.path}")
         return 0
@@ -100,7 +126,7 @@ def detached(rd, *, fresh: bool, announce: str | None = None) -> int:
         if fresh and code == 2:
             discard(rd)
         return code if code else 2
-    if announce is not None:
+    if announce is not None and not said:
         say(announce)
     attach(rd)
     return after_watching(rd)

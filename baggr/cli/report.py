@@ -10,9 +10,10 @@ import numpy as np
 
 from baggr import data as _data
 from baggr import units
+from baggr.cli.settings_text import setting_rows, settings_json
 from baggr.config import Config
 from baggr.errors import ModelFileError
-from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, read_checkpoint
+from baggr.runs import CHECKPOINT, MODEL, RunDir, RunDirError, read_checkpoint, status_words
 
 EXPECTED_LEFT_OUT = math.exp(-1.0)   # share of members that leave a row out under a bootstrap draw (1 - 1/n)^n
 
@@ -36,6 +37,8 @@ class RunReport:
     # (latest_figures), shown as the headline, and which checkpoint the rest comes from.
     latest: dict | None = None
     checkpoint: dict | None = None            # {"member": next member of the checkpoint, "t": when it was written}
+    missing_target: int | None = None         # rows left out for a missing target (None: not recorded)
+    threads: int | None = None                # the job's threads (from its journal)
 
     @property
     def task(self) -> str:
@@ -49,7 +52,7 @@ def load(path) -> RunReport:
     if p.is_file():
         ens = load_model(p)
         return RunReport(p, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"),
-                         members_target=ens.config.members)
+                         members_target=ens.config.members, missing_target=_count(ens.stats.get("missing_target")))
     rd = RunDir(p).require()
     run = rd.read_config()
     for _ in range(3):     # a job finishing meanwhile removes its checkpoint after writing the model: look again
@@ -60,11 +63,12 @@ def load(path) -> RunReport:
             break
     ck_m = int(ck[0].get("next_member", 0)) if ck else None
     common = dict(status=status, reason=st.reason, members_target=st.members_target or run["config"].get("members"),
-                  journal_members=st.members, run=run)
+                  journal_members=st.members, run=run, threads=st.threads if isinstance(st.threads, int) else None,
+                  missing_target=_count((run.get("data") or {}).get("missing_target")))
     if ens is not None and (ck_m is None or ens.members >= ck_m):
         return RunReport(rd.path, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"), **common)
     if ck is None:
-        raise RunDirError(f"{rd.path} has no figures yet ({status}; the journal shows {st.members} members and no "
+        raise RunDirError(f"{rd.path} has no figures yet ({status_words(status)}; the journal shows {st.members} members and no "
                           f"checkpoint has been written): watch it with: baggr watch {rd.path}")
     header, arrays = ck
     common["checkpoint"] = {"member": ck_m, "t": _f(header.get("t"))}
@@ -89,6 +93,10 @@ def latest_figures(st) -> dict:
     return d
 
 
+def _count(v) -> int | None:
+    return int(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and v >= 0 else None
+
+
 def _from_checkpoint(path, header, arrays, common) -> RunReport:
     from baggr.model.file import _check_oob
     from baggr.oob.view import OOB
@@ -100,6 +108,7 @@ def _from_checkpoint(path, header, arrays, common) -> RunReport:
     except Exception as e:   # a damaged header: any shape of wrong
         raise ModelFileError(f"{path}: the header is damaged ({e})") from None
     a = {k[6:]: v for k, v in arrays.items() if k.startswith("tally_")}
+    a.update({k: v for k, v in arrays.items() if k == "target" or k.startswith("measure_")})
     if schema.task == "classes":
         a["class_rows"] = arrays.get("class_rows")
         if a["class_rows"] is None:
@@ -158,7 +167,7 @@ def cautions(r: RunReport) -> list[str]:
         "If one entity (a patient, a machine, a customer) gave several rows, or the data drift over time, "
         "the estimate is optimistic: rows of the same entity or period judge each other. Hold out whole "
         "entities or a later period to check.",
-        "Decisions that affect people need review beyond this estimate.",
+        "Decisions about people, money or safety need review beyond these figures.",
         f"Each row is judged only by the members that left it out: {judged:.1f} of the {m} members here, "
         "on average, so the textbook OOB error after b members is that of an ensemble of about 0.37 b "
         "members and reads high. The error, interval and curve here estimate the error of the kept "
@@ -199,7 +208,9 @@ def figures(r: RunReport) -> dict:
          "raw_curve_interval": [[_f(a), _f(b)] for a, b in oob.raw_curve_interval],
          "error_limit": _f(oob.error_limit), "error_limit_interval": _pair(oob.error_limit_interval),
          "members_needed": oob.members_needed, "tolerance": _f(oob.tolerance),
-         "config": r.config.to_dict(), "target": r.run.get("target") or r.schema.target,
+         "config": settings_json(r.config, r.schema.n_features, r.task, r.threads),
+         "missing_target": r.missing_target, "table": r.run.get("table"), "dates": r.schema.dates,
+         "target": r.run.get("target") or r.schema.target,
          "data": r.run.get("data"), "version": r.run.get("version"), "created": r.run.get("created"),
          "cautions": cautions(r), "checkpoint": r.checkpoint, "latest": r.latest}
     if r.task == "classes":
@@ -214,6 +225,9 @@ def figures(r: RunReport) -> dict:
         d["raw_class_curve"] = [[_f(v) for v in row] for row in oob.raw_class_curve]
     else:
         d["r2"] = _f(oob.r2)
+    from baggr.cli import report_measures
+    d.update(report_measures.figures(r))
+    d["cautions"] += report_measures.cautions(d)
     return d
 
 
@@ -230,18 +244,20 @@ def _interval(task, iv) -> str:
     return units.value_span(iv) if task == "regression" else units.percent_span(iv, 2)
 
 
-def _settings_text(key, value, r: RunReport) -> str:
-    """A setting as the report shows it: what None chose, in words."""
-    if value is not None:
-        return str(value)
-    task = r.task
-    auto = {"features_per_split": "sqrt" if task == "classes" else "1/3 of the features",
-            "depth_limit": "none", "criterion": "gini" if task == "classes" else "variance",
-            "task": f"{task} (from the target)", "threads": "all cores"}
-    return auto.get(key, "auto")
+def columns_text(d: dict) -> str:
+    """Which columns the run left out or kept, and its date columns, in one line ('' when none)."""
+    parts = []
+    table = d.get("table") or {}
+    if table.get("only"):
+        parts.append("only " + ", ".join(table["only"]))
+    if table.get("drop"):
+        parts.append("left out " + ", ".join(table["drop"]))
+    for x in d.get("dates") or []:
+        parts.append(f"{x['column']} as dates ({', '.join(p.replace('_', ' ') for p in x['parts'])})")
+    return "; ".join(parts)
 
 
-def render(r: RunReport, console) -> None:
+def render(r: RunReport, console, d: dict | None = None) -> None:
     """Print the report (baggr/cli/report_text.py: the look; plain text, no markup from the data)."""
     from baggr.cli.report_text import render_text
-    render_text(r, figures(r), console, settings_text=lambda k, v: _settings_text(k, v, r))
+    render_text(r, d or figures(r), console, settings=setting_rows(r.config, r.schema.n_features, r.task, r.threads))

@@ -14,6 +14,7 @@ from rich.cells import cell_len
 from rich.text import Text
 
 from baggr import units
+from baggr.cli import report_measures
 from baggr.cli.report import curve_sizes
 
 WIDEST = 100        # the text keeps to this many columns on a wide terminal
@@ -82,8 +83,9 @@ def clock(t) -> str:
     return "-" if t is None else datetime.fromtimestamp(t).strftime("%Y-%m-%d %H:%M:%S")
 
 
-def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
-    """Print the report of `r` from its figures `d` (baggr.cli.report.figures)."""
+def render_text(r, d: dict, console, settings=None) -> None:
+    """Print the report of `r` from its figures `d` (baggr.cli.report.figures); settings: (label, text)
+    pairs in the command's words (baggr.cli.settings_text), else the config's keys and values."""
     out = Lines(console)
     task = d["task"]
     what = "OOB error" if task == "classes" else "OOB MSE"
@@ -104,8 +106,13 @@ def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
                  if data.get("rows") else "")
         size = units.count(data.get("bytes")) if isinstance(data.get("bytes"), int) else data.get("bytes")
         rows += [("Data", f"{data.get('path')} ({size} bytes{shape})"), ("SHA-256", str(data.get("sha256")))]
+    from baggr.cli.report import columns_text
+    columns = columns_text(d)
+    if columns:
+        rows.append(("Columns", columns))
     kind = f"{len(d['classes'])} classes" if task == "classes" else "regression"
-    rows.append(("Target", f"{d['target'] or '-'} ({kind})"))
+    missing = f"; {units.count(d['missing_target'])} rows without it left out" if d.get("missing_target") else ""
+    rows.append(("Target", f"{d['target'] or '-'} ({kind}){missing}"))
     target = f" of {units.count(d['members_target'])}" if d["members_target"] else ""
     if latest:
         rows.append(("Members", f"{units.count(latest['members'])}{target} so far, "
@@ -130,6 +137,9 @@ def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
     est = [(what, headline)]
     if corrected:
         est += _estimate_rows(task, head)
+    chosen = report_measures.headline(d)
+    if chosen is not None:
+        est.insert(0, chosen)
     if task == "regression":
         est.append(("R2", "-" if head.get("r2") is None else f"{head['r2']:.3f}"))
     if latest:
@@ -137,6 +147,7 @@ def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
     else:
         est += _source_rows(d, n_rows)
     out.pairs(est)
+    report_measures.render_measures(out, d)
 
     if task == "classes":
         _classes(out, d, head)
@@ -146,9 +157,10 @@ def render_text(r, d: dict, console, settings_text=lambda k, v: str(v)) -> None:
         out.pairs([("Members", f"{units.count(d['members'])}, {units.duration(d['elapsed'])} of training"),
                    *_source_rows(d, n_rows)])
     _curve(out, d, task, what, "(checkpoint)" if latest else "")
+    report_measures.render_importance(out, d)
 
     out.rule("Settings")
-    out.pairs([(k, settings_text(k, v)) for k, v in d["config"].items()])
+    out.pairs(settings or [(k, str(v)) for k, v in d["config"].items()])
 
     out.rule("Read with care")
     for c in d["cautions"]:

@@ -1,10 +1,11 @@
-"""Tables in: reading (table), column kinds and levels (schema), bins and uint8 codes (binning).
+"""Tables in: reading (table), column kinds and levels (schema), dates as features (dates), bins and
+uint8 codes (binning).
 
 The names below load on first use, so `baggr.data.table` (no numba) can be read on its own.
 """
 _HOME = {
     "MISSING": "binning", "Binning": "binning", "encode": "binning", "fit_binning": "binning",
-    "numeric_edges": "binning", "OTHER": "schema", "Schema": "schema", "fit_schema": "schema",
+    "numeric_edges": "binning", "unseen_levels": "binning", "OTHER": "schema", "Schema": "schema", "fit_schema": "schema",
     "ArrayTable": "table", "read_table": "table",
 }
 

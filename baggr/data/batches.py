@@ -1,7 +1,9 @@
 """Reading a table file in batches of rows (CSV or Parquet), for scoring tables larger than memory.
 
 Only the model's columns are read, each as the kind the model knows it by (numbers as float64,
-categorical columns as text), so every batch has the same types whatever its rows hold.
+categorical columns as text; a date column, from which the model's date features are derived, and
+the columns kept beside the predictions as text in a CSV), so every batch has the same types
+whatever its rows hold.
 """
 from __future__ import annotations
 
@@ -10,19 +12,31 @@ from pathlib import Path
 
 import pyarrow as pa
 
+from baggr.data.dates import feature_names
 from baggr.data.table import (COMPRESSED, CSV_SUFFIXES, NULL_VALUES, PARQUET_SUFFIXES, _arrow_message,
-                              _first_line, _sniff_delimiter)
+                              _first_line, _sniff_delimiter, single_column_hint)
 from baggr.errors import DataError
 
 
 class Batches:
     """Batches of about `rows` rows of a table file's columns `names` (kinds: "numeric" or
     "categorical"); .done and .total measure progress (bytes of a plain CSV, else rows). A CSV is
-    parsed in blocks of block_bytes, so a batch holds at least one block's rows."""
+    parsed in blocks of block_bytes, so a batch holds at least one block's rows.
 
-    def __init__(self, path, names: list[str], kinds: list[str], rows: int = 65536, block_bytes: int = 1 << 22):
+    dates: the schema's date columns (each read in place of the features made from it); keep: more
+    columns to read as they are (copied beside the predictions); delimiter: of a text table.
+    """
+
+    def __init__(self, path, names: list[str], kinds: list[str], rows: int = 65536, block_bytes: int = 1 << 22,
+                 *, dates=(), keep=(), delimiter: str | None = None):
         self.path = Path(path).expanduser()
-        self.names, self.kinds, self.rows, self.block_bytes = list(names), list(kinds), int(rows), int(block_bytes)
+        self.rows, self.block_bytes, self.delimiter = int(rows), int(block_bytes), delimiter
+        made = {f: d["column"] for d in dates for f in feature_names(d["column"], d["parts"])}
+        self.model_columns = list(dict.fromkeys(made.get(n, n) for n in names))
+        self.keep = [k for k in keep if k not in self.model_columns]
+        self.names = self.model_columns + self.keep        # the columns read
+        kind_of = dict(zip(names, kinds))
+        self.kinds = ["numeric" if kind_of.get(n) == "numeric" else "text" for n in self.names]
         if not self.path.exists():
             raise DataError(f"file not found: {self.path}")
         if self.path.is_dir():
@@ -36,14 +50,21 @@ class Batches:
                             "use .csv, .tsv, .txt, .parquet or .pq")
         if self.path.stat().st_size == 0:
             raise DataError(f"{self.path} is empty")
+        if delimiter is not None and self.kind in PARQUET_SUFFIXES:
+            raise DataError(f"{self.path} is a Parquet file: a delimiter applies to text tables only")
         self.done, self.total = 0, None
 
     def _missing(self, columns) -> None:
         have = set(columns)
-        missing = [n for n in self.names if n not in have]
+        missing = [n for n in self.model_columns if n not in have]
         if missing:
             shown = ", ".join(repr(m) for m in missing[:8]) + (", ..." if len(missing) > 8 else "")
-            raise DataError(f"the table lacks {len(missing)} of the model's columns: {shown}")
+            raise DataError(f"the table lacks {len(missing)} of the model's columns: {shown}"
+                            f"{single_column_hint(list(columns))}")
+        lacking = [k for k in self.keep if k not in have]
+        if lacking:
+            raise DataError(f"--keep: {self.path} has no column {', '.join(map(repr, lacking))}"
+                            f"{single_column_hint(list(columns))}")
 
     def __iter__(self):
         try:
@@ -67,7 +88,7 @@ class Batches:
 
     def _csv(self):
         import pyarrow.csv as pacsv
-        delimiter = CSV_SUFFIXES[self.kind] or _sniff_delimiter(self.path)
+        delimiter = self.delimiter or CSV_SUFFIXES[self.kind] or _sniff_delimiter(self.path)
         parse = pacsv.ParseOptions(delimiter=delimiter)
         with pacsv.open_csv(self.path, parse_options=parse) as head:     # the header, from the first block
             self._missing(head.schema.names)

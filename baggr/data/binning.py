@@ -7,6 +7,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from baggr.data import dates
 from baggr.data.binning_kernels import bin_numeric
 from baggr.errors import ConfigError, DataError, ModelFileError
 from baggr.data.schema import MAX_LEVELS, OTHER, Schema
@@ -91,7 +92,7 @@ def fit_binning(X, schema: Schema, bins: int = 255) -> Binning:
     """
     if isinstance(bins, bool) or not isinstance(bins, (int, np.integer)) or not 2 <= bins <= 255:
         raise ConfigError(f"bins must be between 2 and 255, got {bins!r}")
-    frame = as_frame(X)
+    frame = dates.expand(as_frame(X), schema.dates)
     cols = match_columns(frame, schema)
     n = frame.num_rows
     sample = None if n <= SAMPLE else np.sort(np.random.default_rng(SAMPLE_SEED).choice(n, SAMPLE, replace=False))
@@ -153,10 +154,11 @@ def encode(X, schema: Schema, binning: Binning) -> np.ndarray:
     Works for training and for new data: columns are matched by name (numpy input by position and must
     have exactly p columns); extra columns are ignored; a column of the wrong kind is a DataError.
     A categorical level not seen in training is missing (255), except where the feature pooled rare
-    levels into "(other)": then it joins "(other)". +inf falls in the top bin, -inf in bin 0.
+    levels into "(other)": then it joins "(other)" (unseen_levels counts them). +inf falls in the top
+    bin, -inf in bin 0. Date columns are turned into their numeric parts as in training.
     """
     binning.check(schema)
-    frame = as_frame(X)
+    frame = dates.expand(as_frame(X), schema.dates)
     cols = match_columns(frame, schema)
     p, n = schema.n_features, frame.num_rows
     out = np.empty((p, n), dtype=np.uint8)
@@ -165,7 +167,7 @@ def encode(X, schema: Schema, binning: Binning) -> np.ndarray:
         return out
     for j, name in enumerate(schema.names):
         col = frame.column(cols[j])
-        kind = check_supported(name, col)
+        kind = check_supported(name, col, hint=False)
         if kind == "null":
             out[j] = MISSING
         elif schema.kinds[j] == "categorical":
@@ -217,6 +219,9 @@ def match_columns(frame, schema: Schema) -> list[int]:
     index = {name: i for i, name in enumerate(frame.column_names)}
     missing = [name for name in schema.names if name not in index]
     if missing:
+        # a date column is named once, not by the parts it would have become
+        made = {f: d["column"] for d in schema.dates for f in dates.feature_names(d["column"], d["parts"])}
+        missing = list(dict.fromkeys(made.get(m, m) for m in missing))
         shown = ", ".join(repr(m) for m in missing[:8]) + (", ..." if len(missing) > 8 else "")
         raise DataError(f"the table lacks {len(missing)} of the model's columns: {shown}")
     return [index[name] for name in schema.names]
@@ -225,11 +230,36 @@ def match_columns(frame, schema: Schema) -> list[int]:
 def numeric_column(frame: pa.Table, i: int, name: str) -> np.ndarray:
     """Column i of an Arrow table as float64 (NaN missing); DataError if it is not numeric."""
     col = frame.column(i)
-    kind = check_supported(name, col)
+    kind = check_supported(name, col, hint=False)
     if kind == "text":
         check_numeric_text(name, col)
         raise DataError(f"column {name!r} should be numeric but holds text")
     return as_float(col)
+
+
+def unseen_levels(X, schema: Schema) -> dict[str, tuple[int, bool]]:
+    """Per categorical feature with levels the model never saw: (how many such values, pooled).
+
+    pooled: the feature put them into "(other)"; otherwise they were scored as missing (see encode).
+    """
+    frame = as_frame(X)
+    if isinstance(frame, ArrayTable):
+        return {}
+    index = {name: i for i, name in enumerate(frame.column_names)}
+    out = {}
+    for j, name in enumerate(schema.names):
+        if schema.kinds[j] != "categorical" or name not in index:
+            continue
+        col = frame.column(index[name])
+        if check_supported(name, col, hint=False) != "text":
+            continue
+        col = as_text(col)
+        levels = pa.array(schema.levels[j], pa.string())
+        unseen = pc.and_(pc.is_valid(col), pc.invert(pc.is_in(col, value_set=levels)))
+        k = pc.sum(unseen).as_py() or 0
+        if k:
+            out[name] = (int(k), schema.pooled(j))
+    return out
 
 
 def _level_codes(col, levels: list[str], pooled: bool, out: np.ndarray) -> None:

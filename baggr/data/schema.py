@@ -2,25 +2,35 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
 from baggr.errors import ConfigError, DataError, ModelFileError
-from baggr.data.table import ArrayTable, as_float, as_frame, as_text, check_numeric_text, check_supported, column_kind
+from baggr.data import dates as _dates
+from baggr.data.table import (ArrayTable, as_float, as_frame, as_text, check_numeric_text, check_supported, column_kind,
+                              shell_word)
 
 KINDS = ("numeric", "categorical")
 TASKS = ("classes", "regression")
 OTHER = "(other)"   # the pooled level of a categorical feature with more than MAX_LEVELS levels
 MAX_LEVELS = 255    # codes 0..254 hold levels, 255 is missing
 MAX_CLASSES = 255
+# A whole-number target with more distinct values than both of these is not taken as classes
+# without being told (--task): more than MANY_VALUES values and more than MANY_SHARE of the rows.
+MANY_VALUES = 20
+MANY_SHARE = 0.05
 
 
 @dataclass
 class Schema:
-    """Feature names, kinds and levels, and the target's name, task and classes, fixed at training."""
+    """Feature names, kinds and levels, and the target's name, task and classes, fixed at training.
+
+    dates: the date columns of the table, [{"column": name, "parts": [...]}]; each became the
+    numeric features "<column>.<part>" (baggr.data.dates).
+    """
 
     names: list[str]
     kinds: list[str]
@@ -28,6 +38,7 @@ class Schema:
     target: str | None
     task: str
     classes: list
+    dates: list = field(default_factory=list)
 
     @property
     def n_features(self) -> int:
@@ -39,9 +50,12 @@ class Schema:
         return lv is not None and len(lv) == MAX_LEVELS and lv[-1] == OTHER
 
     def to_json(self) -> dict:
-        return {"names": list(self.names), "kinds": list(self.kinds),
-                "levels": [None if lv is None else list(lv) for lv in self.levels],
-                "target": self.target, "task": self.task, "classes": list(self.classes)}
+        d = {"names": list(self.names), "kinds": list(self.kinds),
+             "levels": [None if lv is None else list(lv) for lv in self.levels],
+             "target": self.target, "task": self.task, "classes": list(self.classes)}
+        if self.dates:   # absent without dates: such files read as before
+            d["dates"] = [{"column": x["column"], "parts": list(x["parts"])} for x in self.dates]
+        return d
 
     @classmethod
     def from_json(cls, d) -> "Schema":
@@ -52,7 +66,7 @@ class Schema:
 
         need(isinstance(d, dict), "not an object")
         keys = {"names", "kinds", "levels", "target", "task", "classes"}
-        need(set(d) == keys, f"keys {sorted(map(str, d))} instead of {sorted(keys)}")
+        need(keys <= set(d) <= keys | {"dates"}, f"keys {sorted(map(str, d))} instead of {sorted(keys)}")
         names, kinds, levels = d["names"], d["kinds"], d["levels"]
         need(isinstance(names, list) and names and all(isinstance(n, str) for n in names),
              "names must be a non-empty list of text")
@@ -79,8 +93,11 @@ class Schema:
                  "all whole numbers, all numbers or all true/false")
             need(all(math.isfinite(c) for c in classes) if float in types else True, "a class label is not finite")
             need(all(a < b for a, b in zip(classes, classes[1:])), "class labels must be distinct and sorted")
+        dates = d.get("dates", [])
+        _dates.check_dates(dates, names, kinds, need)
         return cls(list(names), list(kinds), [None if lv is None else list(lv) for lv in levels],
-                   d["target"], d["task"], list(classes))
+                   d["target"], d["task"], list(classes),
+                   [{"column": x["column"], "parts": list(x["parts"])} for x in dates])
 
 
 def fit_schema(X, y, task: str | None = None, target: str | None = None) -> tuple[Schema, np.ndarray]:
@@ -88,10 +105,20 @@ def fit_schema(X, y, task: str | None = None, target: str | None = None) -> tupl
 
     targets: int32 class index per row for task "classes" (classes sorted: numbers numerically, text by
     code point, False < True), float64 for "regression". task None: text, whole numbers and bools are
-    classes, floats regression. target: the target's name, recorded in the schema.
+    classes, floats regression; a whole-number target with more than MANY_VALUES distinct values, and
+    more than MANY_SHARE of the rows, is refused (the task must be given). target: the target's name, recorded in the schema. Date columns
+    become numeric features (baggr.data.dates), recorded in the schema's dates.
     """
+    schema, targets, _ = fit_schema_frame(X, y, task, target)
+    return schema, targets
+
+
+def fit_schema_frame(X, y, task: str | None = None, target: str | None = None):
+    """fit_schema, and the table with its date columns expanded (what binning and encoding take)."""
     frame = as_frame(X)
     n = frame.num_rows
+    found = [] if isinstance(frame, ArrayTable) else _dates.find_dates(frame)
+    frame = _dates.expand(frame, found)
     names = list(frame.column_names)
     if not names:
         raise DataError("the table has no feature columns")
@@ -109,7 +136,7 @@ def fit_schema(X, y, task: str | None = None, target: str | None = None) -> tupl
             kinds.append("numeric")
             levels.append(None)
     task, classes, targets = fit_target(y, n, task, target or "target")
-    return Schema(names, kinds, levels, target, task, classes), targets
+    return Schema(names, kinds, levels, target, task, classes, found), targets, frame
 
 
 def fit_levels(name: str, col) -> list[str]:
@@ -122,7 +149,7 @@ def fit_levels(name: str, col) -> list[str]:
     present = len(col) - col.null_count
     if t.num_rows > 0.5 * present:
         raise DataError(f"column {name!r} looks like an identifier ({t.num_rows} distinct values in {present} "
-                        "rows); drop it, or it would only memorize rows")
+                        f"rows); leave it out with --drop {shell_word(name)}, or it would only memorize rows")
     # Most frequent first, ties by text order, so the kept levels do not depend on row order.
     t = t.filter(pc.not_equal(t.column("v"), OTHER)).sort_by([("c", "descending"), ("v", "ascending")])
     return sorted(t.column("v").slice(0, MAX_LEVELS - 1).to_pylist()) + [OTHER]
@@ -139,18 +166,19 @@ def fit_target(y, n: int, task: str | None, name: str = "target") -> tuple[str, 
     if kind == "unsupported":
         raise DataError(f"target {name!r} has type {y.type}, which baggr cannot use")
     is_float = pa.types.is_floating(y.type) or pa.types.is_decimal(y.type)
-    missing = y.null_count
-    if pa.types.is_floating(y.type):
-        missing += pc.sum(pc.is_nan(y)).as_py() or 0
+    missing = int(np.count_nonzero(missing_targets(y)))
     if missing:
-        raise DataError(f"target {name!r} has {missing} missing values (of {n}); drop those rows or fill them in")
+        raise DataError(f"target {name!r} has {missing} missing values (of {n}); fill them in, or leave those "
+                        "rows out (--missing-target drop)")
     if task is None:
         task = "regression" if is_float else "classes"
+        if pa.types.is_integer(y.type):
+            _check_many_values(y, n, name)
     if task not in TASKS:
         raise ConfigError(f"task must be one of {', '.join(TASKS)}, got {task!r}")
     if task == "regression":
         if kind == "text":
-            raise DataError(f"target {name!r} holds text; regression needs numbers (or use task 'classes')")
+            raise DataError(f"target {name!r} holds text; regression needs numbers (or give --task classes)")
         v = as_float(y)
         _check_finite(v, name)
         return task, [], np.ascontiguousarray(v, dtype=np.float64)
@@ -170,6 +198,23 @@ def fit_target(y, n: int, task: str | None, name: str = "target") -> tuple[str, 
     u = np.unique(v)
     _check_classes(u, name)
     return task, [cast(c) for c in u], np.searchsorted(u, v).astype(np.int32)
+
+
+def missing_targets(y) -> np.ndarray:
+    """bool per row: the target is missing (null, or NaN in a float column)."""
+    y = _target_array(y, "target")
+    if pa.types.is_dictionary(y.type):
+        y = y.cast(y.type.value_type)
+    miss = pc.is_null(y, nan_is_null=pa.types.is_floating(y.type))
+    return miss.to_numpy(zero_copy_only=False).astype(bool, copy=False) if len(y) else np.zeros(0, bool)
+
+
+def _check_many_values(y, n: int, name: str) -> None:
+    """Refuse to guess classes for a whole-number target with many distinct values (see MANY_VALUES)."""
+    distinct = len(pc.unique(y))
+    if distinct > MANY_VALUES and distinct > MANY_SHARE * n:
+        raise DataError(f"target {name!r} holds {distinct} distinct whole numbers in {n} rows: give --task "
+                        "regression to predict the number, or --task classes to treat each value as a class")
 
 
 def _target_array(y, name: str) -> pa.ChunkedArray:
@@ -198,4 +243,4 @@ def _check_classes(classes, name: str) -> None:
         raise DataError(f"target {name!r} has only one class{only}; at least two are needed")
     if len(classes) > MAX_CLASSES:
         raise DataError(f"target {name!r} has {len(classes)} distinct values, more than {MAX_CLASSES} classes; "
-                        "for a numeric target use task 'regression'")
+                        "for a numeric target give --task regression")

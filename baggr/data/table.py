@@ -54,14 +54,17 @@ class ArrayTable:
         return pa.table({n: self.column(i) for i, n in enumerate(self.column_names)})
 
 
-def read_table(source, target: str | None = None):
+def read_table(source, target: str | None = None, *, drop=None, only=None, delimiter: str | None = None):
     """Read a table; with target, split it into (X, y) with y a pyarrow ChunkedArray.
 
     source: a path (.csv/.tsv/.txt, .parquet/.pq, optionally compressed .gz/.bz2/...), a pyarrow
     Table or RecordBatch, a numeric numpy 2-D array (NaN = missing; columns x0, x1, ...; wrapped in
     an ArrayTable without copying), a dict of column name -> 1-D array, or an ArrayTable.
+    drop: column names to leave out; only: the feature columns to keep (the target is always kept);
+    both may be given (only, then drop). The command's --drop and --only.
+    delimiter: the field delimiter of a text table (default: from the suffix; sniffed for .txt).
     """
-    table = _as_table(source)
+    table = _as_table(source, delimiter)
     if table.num_rows == 0:
         raise DataError(f"{_label(source)} has no rows")
     if table.num_columns == 0:
@@ -71,13 +74,47 @@ def read_table(source, target: str | None = None):
     dup = sorted({n for n in names if n in seen or seen.add(n)})
     if dup:
         raise DataError(f"{_label(source)} has duplicate column names: {', '.join(map(repr, dup))}")
+    if target is not None and target not in names:
+        raise DataError(_unknown_target(source, target, names))
+    if drop or only:
+        table = select_columns(table, drop=drop, only=only, target=target, label=_label(source))
     if target is None:
         return table
-    if target not in names:
-        raise DataError(_unknown_target(source, target, names))
     y = table.column(target)
     X = table.drop(target) if isinstance(table, ArrayTable) else table.drop_columns([target])
     return X, y
+
+
+def column_list(names) -> list[str]:
+    """Column names from "a,b,c", a list of such texts, or None (no names)."""
+    if names is None:
+        return []
+    if isinstance(names, str):
+        names = [names]
+    out = []
+    for item in names:
+        if not isinstance(item, str):
+            raise DataError(f"column names must be text, got {item!r}")
+        out.extend(n for n in item.split(",") if n != "")
+    return out
+
+
+def select_columns(table, *, drop=None, only=None, target: str | None = None, label: str = "the table"):
+    """The table without the `drop` columns and, given `only`, with only those (and the target)."""
+    names = list(table.column_names)
+    drop, only = column_list(drop), column_list(only)
+    unknown = [n for n in only + drop if n not in names]
+    if unknown:
+        shown = ", ".join(repr(n) for n in dict.fromkeys(unknown))
+        raise DataError(f"{label} has no column {shown}; columns are {_names_text(names)}{single_column_hint(names)}")
+    if target is not None and target in drop:
+        raise DataError(f"column {target!r} is the target; it cannot be dropped")
+    keep = [n for n in names if (not only or n in only or n == target) and n not in drop]
+    if not [n for n in keep if n != target]:
+        raise DataError(f"no feature columns are left in {label} after choosing columns")
+    if isinstance(table, ArrayTable):
+        return ArrayTable(table.array, [table.columns[names.index(n)] for n in keep])
+    return table.select(keep)
 
 
 def as_frame(X):
@@ -87,13 +124,15 @@ def as_frame(X):
     return read_table(X)
 
 
-def _as_table(source):
+def _as_table(source, delimiter: str | None = None):
+    if delimiter is not None and not isinstance(source, (str, Path)):
+        raise DataError("a delimiter applies to text table files only")
     if isinstance(source, (ArrayTable, pa.Table)):
         return source
     if isinstance(source, pa.RecordBatch):
         return pa.Table.from_batches([source])
     if isinstance(source, (str, Path)):
-        return _read_file(Path(source).expanduser())
+        return _read_file(Path(source).expanduser(), delimiter)
     if isinstance(source, np.ndarray):
         return _wrap_array(source)
     if isinstance(source, dict):
@@ -134,7 +173,7 @@ def _from_dict(d: dict) -> pa.Table:
     return pa.table(cols)
 
 
-def _read_file(path: Path) -> pa.Table:
+def _read_file(path: Path, delimiter: str | None = None) -> pa.Table:
     if not path.exists():
         raise DataError(f"file not found: {path}")
     if path.is_dir():
@@ -147,10 +186,12 @@ def _read_file(path: Path) -> pa.Table:
         if path.stat().st_size == 0:
             raise DataError(f"{path} is empty")
         if kind in PARQUET_SUFFIXES:
+            if delimiter is not None:
+                raise DataError(f"{path} is a Parquet file: a delimiter applies to text tables only")
             import pyarrow.parquet as pq
             return pq.read_table(path)
         if kind in CSV_SUFFIXES:
-            return _read_csv(path, CSV_SUFFIXES[kind])
+            return _read_csv(path, delimiter or CSV_SUFFIXES[kind])
     except pa.ArrowInvalid as e:
         raise DataError(_arrow_message(path, e)) from None
     except OSError as e:
@@ -186,20 +227,36 @@ def _arrow_message(path: Path, e: Exception) -> str:
         line = m.group(3)
         line = line if len(line) <= 60 else line[:57] + "..."
         return (f"{path}: a row has {m.group(2)} fields where the header has {m.group(1)} "
-                f"({line!r}); ragged rows or the wrong delimiter?")
+                f"({line!r}); ragged rows or the wrong delimiter (--delimiter)?")
     if "magic bytes" in msg or "Parquet" in msg:
         return f"{path} is not a readable Parquet file: {msg}"
     return f"cannot read {path}: {msg}"
 
 
 def _unknown_target(source, target: str, names: list[str]) -> str:
-    shown = ", ".join(repr(n) for n in names[:8]) + (f", ... ({len(names)} in all)" if len(names) > 8 else "")
-    msg = f"target column {target!r} not found in {_label(source)}; columns are {shown}"
-    if len(names) == 1:
-        delims = [d for d in (";", "\t", "|", ",", " ") if d in names[0]]
-        hint = f"is the delimiter {delims[0]!r}?" if delims else "is the delimiter right?"
-        msg += f"; the file was read as a single column: {hint}"
-    return msg
+    return f"target column {target!r} not found in {_label(source)}; columns are {_names_text(names)}" + \
+        single_column_hint(names)
+
+
+def _names_text(names: list[str]) -> str:
+    return ", ".join(repr(n) for n in names[:8]) + (f", ... ({len(names)} in all)" if len(names) > 8 else "")
+
+
+def single_column_hint(names: list[str]) -> str:
+    """When a file was read as one column: which delimiter it seems to use, and the option to give it."""
+    if len(names) != 1:
+        return ""
+    delims = [d for d in (";", "\t", "|", ",", " ") if d in names[0]]
+    if not delims:
+        return "; the file was read as a single column: is the delimiter right? (--delimiter)"
+    shown = "tab" if delims[0] == "\t" else repr(delims[0])
+    return f"; the file was read as a single column: is the delimiter {shown}? (--delimiter {shown})"
+
+
+def shell_word(name: str) -> str:
+    """A column name as it is typed in a command (quoted when the shell needs it)."""
+    import shlex
+    return shlex.quote(name)
 
 
 def _label(source) -> str:
@@ -227,12 +284,14 @@ def column_kind(col) -> str:
     return "unsupported"
 
 
-def check_supported(name: str, col) -> str:
-    """column_kind, raising DataError naming the column and its type when baggr cannot use it."""
+def check_supported(name: str, col, hint: bool = True) -> str:
+    """column_kind, raising DataError naming the column and its type when baggr cannot use it.
+
+    hint: say how to leave the column out (training; a model's own column cannot be left out)."""
     kind = column_kind(col)
     if kind == "unsupported":
-        raise DataError(f"column {name!r} has type {col.type}, which baggr cannot use; "
-                        "drop it or convert it to numbers or text")
+        how = f"leave it out (--drop {shell_word(name)}) or convert it" if hint else "convert it"
+        raise DataError(f"column {name!r} has type {col.type}, which baggr cannot use; {how} to numbers or text")
     return kind
 
 

@@ -10,6 +10,7 @@ from baggr.jit import kernel
 
 STREAM_DRAW = 0     # bootstrap counts
 STREAM_TREE = 1     # features tried at each node
+STREAM_IMPORTANCE = 2  # permutations of the OOB permutation importance
 
 
 def stream_state(seed: int, member: int, stream: int) -> np.ndarray:

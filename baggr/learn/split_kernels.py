@@ -22,8 +22,8 @@ from baggr.jit import KERNEL, kernel
 
 # Helpers called once per (node, feature) are inlined into the tree kernel at numba's IR level:
 # as separate functions each call increfs and decrefs every array argument (two atomic operations
-# per array), which cost more than the work of a small node. (numba's cache of the tree kernel
-# keys on tree_kernels.py alone; tree_kernels drops it when this file or hist_kernels changes.)
+# per array), which cost more than the work of a small node. (numba's cache of the tree kernels
+# keys on tree_kernels.py alone; tree_kernels drops it when this file or another it uses changes.)
 inline = numba.njit(inline="always", **KERNEL)
 
 GINI = 0

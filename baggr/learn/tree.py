@@ -9,7 +9,7 @@ import numpy as np
 
 from baggr.errors import ConfigError, DataError
 from baggr.learn.split_kernels import ENTROPY, GINI, VARIANCE
-from baggr.learn.tree_kernels import NO_ROWS, OOB_CLASS, OOB_LEAF, OOB_VALUE, TOO_HEAVY, grow_kernel
+from baggr.learn.tree_kernels import NO_ROWS, OOB_CLASS, OOB_LEAF, OOB_VALUE, TOO_HEAVY, Work, grow_kernel
 
 CRITERIA = {"gini": GINI, "entropy": ENTROPY, "variance": VARIANCE}
 
@@ -94,6 +94,7 @@ class Scratch:
         self.nf = _pages((cap, n_out + 1), np.float64)
         self.stk = _pages((n + 1, 6), np.int32)
         self.stkc = _pages((n + 1, 1 if regression else n_out), np.float64)
+        self.work = Work(self.idx, self.lw, self.yv, self.ws, self.ni, self.nf, self.stk, self.stkc)
 
     @property
     def weights(self) -> np.ndarray:
@@ -108,6 +109,7 @@ def _no_scratch() -> Scratch:
     s.yv, s.ws = np.empty((2, 0), np.float64), np.empty(0, np.float64)
     s.ni, s.nf = np.empty((0, 8), np.int32), np.empty((0, 2), np.float64)
     s.stk, s.stkc = np.empty((0, 6), np.int32), np.empty((0, 1), np.float64)
+    s.work = Work(s.idx, s.lw, s.yv, s.ws, s.ni, s.nf, s.stk, s.stkc)
     return s
 
 
@@ -190,10 +192,9 @@ class Learner:
         leaf's most frequent class, ties to the lowest) or "value" (the leaf's values).
         """
         s = scratch or _no_scratch()
-        out = grow_kernel(self.codes, self.n_bins, self.is_cat, self.y_class, self.y_value, weights,
+        out = grow_kernel(self.codes, self.n_bins, self.is_cat, self.y_class, self.y_value, weights, rng_state,
                           int(self.regression), self.n_classes, self.crit, self.features_per_split, self.min_leaf,
-                          self.depth_limit, rng_state, self.exact_below, int(bool(keep)), OOB_MODES[oob],
-                          s.idx, s.lw, s.yv, s.ws, s.ni, s.nf, s.stk, s.stkc)
+                          self.depth_limit, self.exact_below, int(bool(keep)), OOB_MODES[oob], s.work)
         (left, right, feature, threshold, node_cat, missing_left, value, n_rows, weight, impurity, candidates,
          cat_masks, n_nodes, visits, oob_rows, oob_int, oob_value, status) = out
         if status == NO_ROWS:

@@ -10,6 +10,7 @@ impurity: training figures that scoring never reads).
 """
 from __future__ import annotations
 
+import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
@@ -89,7 +90,7 @@ class Compact:
         return cls({"nodes": nodes, "offset": offset, "leaf_offset": leaf_offset, "leaves": leaf, "shares": shares},
                    kind, n_out, int(a["cat_masks"].shape[0]))
 
-    def validate(self, feature_is_cat: np.ndarray, n_out: int, threads: int = 2) -> None:
+    def validate(self, feature_is_cat: np.ndarray, n_out: int, threads: int | None = None) -> None:
         """Check every array and every slot a walk could follow.
         A fault raises ModelFileError naming it (and the member and slot where it lies)."""
         a = self.arrays
@@ -116,6 +117,7 @@ class Compact:
         m = off.shape[0] - 1
         # trees in spans over threads (the check releases the GIL): a large model checks in a fraction
         spans = [(lo, min(m, lo + CHECK_SPAN)) for lo in range(0, m, CHECK_SPAN)]
+        threads = threads or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
 
         def run(span):
             lo, hi = span

@@ -23,6 +23,7 @@ class Ensemble:
     def __init__(self, schema, binning, config: Config, forest: Forest | Compact | None, oob: OOB, stats: dict):
         self.schema, self.binning, self.config = schema, binning, config
         self.forest, self.oob, self.stats = forest, oob, stats
+        oob.features = list(schema.names)
         self._compact = forest if isinstance(forest, Compact) else None
 
     @property

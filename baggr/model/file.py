@@ -17,6 +17,8 @@ from baggr.config import Config
 from baggr.errors import BaggrError, ModelFileError
 from baggr.model.compact import Compact, kind_for
 from baggr.model.forest import Forest
+from baggr.oob.importance import check_arrays as _check_importance
+from baggr.oob.measure_curve import check_arrays as _check_measures
 from baggr.oob.view import OOB
 
 FORMAT = "baggr-model"
@@ -126,6 +128,8 @@ def _check_oob(a: dict, schema, path) -> None:
         if x.ndim != ndim or (dtype is not None and x.dtype != np.dtype(dtype)):
             raise ModelFileError(f"{os.fspath(path)}: OOB array '{name}' has the wrong type or shape")
     n = a["left_out"].shape[0]
+    _check_measures(a, os.fspath(path), n)
+    _check_importance(a, os.fspath(path))
     m = int(a["members"][0]) if a["members"].shape[0] == 1 else -1
     if m < 0 or a["curve"].shape[0] != m or a["curve_interval"].shape != (m, 2):
         raise ModelFileError(f"{os.fspath(path)}: the OOB curve does not match the member count")

@@ -136,57 +136,6 @@ def _shaped(a, shape, fortran, dtype):
     return np.ascontiguousarray(a)
 
 
-def _gf2_times(mat: list, vec: int) -> int:
-    out, i = 0, 0
-    while vec:
-        if vec & 1:
-            out ^= mat[i]
-        vec >>= 1
-        i += 1
-    return out
-
-
-def crc32_combine(crc1: int, crc2: int, len2: int) -> int:
-    """The CRC-32 of A + B from crc32(A), crc32(B) and len(B): crc1 is carried through len2 zero
-    bytes by squaring the one-zero-bit operator in GF(2) (the method of zlib's crc32_combine)."""
-    if len2 <= 0:
-        return crc1
-    odd = [0xEDB88320] + [1 << n for n in range(31)]       # one zero bit
-    even = [_gf2_times(odd, odd[n]) for n in range(32)]     # two
-    odd = [_gf2_times(even, even[n]) for n in range(32)]    # four
-    while True:
-        even = [_gf2_times(odd, odd[n]) for n in range(32)]
-        if len2 & 1:
-            crc1 = _gf2_times(even, crc1)
-        len2 >>= 1
-        if not len2:
-            break
-        odd = [_gf2_times(even, even[n]) for n in range(32)]
-        if len2 & 1:
-            crc1 = _gf2_times(odd, crc1)
-        len2 >>= 1
-        if not len2:
-            break
-    return crc1 ^ crc2
-
-
-def crc32(view) -> int:
-    """zlib.crc32 of a large buffer, its pieces on all cores (zlib releases the GIL) and combined."""
-    n = len(view)
-    threads = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1
-    if n < 2 * _CRC_CHUNK or threads < 2:
-        return zlib.crc32(view)
-    step = -(-n // (threads * 2))
-    pieces = [view[i:i + step] for i in range(0, n, step)]
-    from concurrent.futures import ThreadPoolExecutor
-    with ThreadPoolExecutor(max_workers=threads) as pool:
-        crcs = list(pool.map(zlib.crc32, pieces))
-    crc = crcs[0]
-    for c, piece in zip(crcs[1:], pieces[1:]):
-        crc = crc32_combine(crc, c, len(piece))
-    return crc
-
-
 def _map(raw, size, info, header_len, nbytes, path):
     """The bytes of a stored entry's array, mapped copy-on-write, after checking the entry's CRC;
     None where the entry cannot be mapped aligned (then it is read)."""
@@ -207,6 +156,9 @@ def _map(raw, size, info, header_len, nbytes, path):
     base = (start // page) * page
     m = mmap.mmap(raw.fileno(), start + info.file_size - base, access=mmap.ACCESS_COPY, offset=base)
     view = memoryview(m)
-    if crc32(view[start - base:start - base + info.file_size]) != info.CRC:
+    crc = 0
+    for i in range(start - base, start - base + info.file_size, _CRC_CHUNK):
+        crc = zlib.crc32(view[i:min(i + _CRC_CHUNK, start - base + info.file_size)], crc)
+    if crc != info.CRC:
         raise ModelFileError(f"{path}: array {info.filename!r} fails its checksum (the file is damaged)")
     return view[data - base:data - base + nbytes]

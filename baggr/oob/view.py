@@ -257,6 +257,26 @@ class OOB:
         with np.errstate(invalid="ignore", divide="ignore"):
             return np.where(total > 0, v / np.where(total > 0, total, 1), np.nan)
 
+    # -- measures and importance (baggr.oob.measures, baggr.oob.importance) ------------------------
+    def measures(self) -> dict:
+        """Every measure of the OOB predictions with its 95% interval, {name: (value, (lo, hi) or None)},
+        named as --measure spells them; the error (MSE) is this view's own `error` and `interval`."""
+        from baggr.oob.measure_curve import follow_estimate
+        from baggr.oob.measures import of_oob
+        return follow_estimate(of_oob(self), self.task, self.error, self.interval)
+
+    @property
+    def importance(self) -> dict | None:
+        """Feature importance of a run trained with importance=True (None otherwise): {"permutation":
+        [{feature, mean, se}], "class_permutation": {class: [...]}, "impurity": [...], "members": M}."""
+        from baggr.oob.importance import summary
+        if "imp_sum" not in self._a:
+            return None
+        names = self.features or [f"x{j}" for j in range(self._a["imp_sum"].shape[0])]
+        return summary(self._a, names, self.classes if self.task == "classes" else None)
+
+    features: list | None = None   # the feature names, set by the Ensemble
+
     def _need_classes(self):
         if self.task != "classes":
             raise AttributeError("this is a regression ensemble: it has no classes")

@@ -6,6 +6,8 @@ rundir      a run directory, its settings (config.json), the data file's fingerp
 checkpoint  checkpoints and kept-tree chunk files, written in the background; the fault hooks
 job         the training job: resume, train, stop on a signal or a settled curve, save
 detach      the job as its own process, and waiting for it to start
+comparison  a comparison directory: its candidates (one run directory each) and comparison.json
+compare_job the comparison's job: the data binned once, the candidates' jobs grown in interleaved blocks
 journal     the journal's names, gathered for the dashboard (the one module of baggr.runs it imports);
             its parts: journal_lines (the line format), journal_writer, journal_reader (tailing),
             run_state (the folded state; downsample cuts its curve for a plot), job_status (the
@@ -20,20 +22,24 @@ _HOMES = {
     "files": ("CHECKPOINT", "CHECKPOINT_INFO", "CONFIG", "JOB_LOG", "JOURNAL", "LOCK", "MEMBERS", "MODEL",
               "RUN_FILES", "STOP", "DiskFullError", "write_json_atomic"),
     "lock": ("Lock",),
-    "rundir": ("RunDir", "RunSettings", "check_data", "create", "default_run_dir", "fingerprint", "init_config"),
+    "rundir": ("RunDir", "RunSettings", "TABLE_OPTIONS", "check_data", "create", "default_run_dir", "fingerprint",
+               "init_config", "model_path", "status_words", "table_options"),
     "checkpoint": ("CHECKPOINT_FORMAT", "CHECKPOINT_VERSION", "CHUNK_FORMAT", "FAULT_CHECKPOINT", "FAULT_KILL",
                    "Checkpointer", "check_checkpoint_header", "read_checkpoint", "remove_checkpoint"),
     "job": ("Job", "Outcome", "fmt_seconds", "stable_now"),
     "detach": ("job_error_line", "spawn", "wait_started"),
+    "comparison": ("COMPARISON", "Comparison", "is_comparison"),
     "baggr.errors": ("RunDirError",),
 }
 _HOME = {name: module for module, names in _HOMES.items() for name in names}
 
 __all__ = ["CHECKPOINT", "CHECKPOINT_FORMAT", "CHECKPOINT_INFO", "CHECKPOINT_VERSION", "CHUNK_FORMAT", "CONFIG",
            "FAULT_CHECKPOINT", "FAULT_KILL", "JOB_LOG", "JOURNAL", "LOCK", "MEMBERS", "MODEL", "RUN_FILES", "STOP",
-           "Checkpointer", "DiskFullError", "Job", "Lock", "Outcome", "RunDir", "RunDirError", "RunSettings",
-           "check_checkpoint_header", "check_data", "create", "default_run_dir", "fingerprint", "fmt_seconds",
-           "init_config", "job_error_line", "read_checkpoint", "remove_checkpoint", "spawn", "stable_now",
+           "TABLE_OPTIONS", "COMPARISON",
+           "Checkpointer", "Comparison", "DiskFullError", "Job", "Lock", "Outcome", "RunDir", "RunDirError",
+           "RunSettings", "check_checkpoint_header", "check_data", "create", "default_run_dir", "fingerprint",
+           "fmt_seconds", "init_config", "is_comparison", "job_error_line", "model_path", "read_checkpoint",
+           "remove_checkpoint", "spawn", "stable_now", "status_words", "table_options",
            "wait_started", "write_json_atomic"]
 
 

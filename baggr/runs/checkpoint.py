@@ -14,7 +14,8 @@ from pathlib import Path
 import numpy as np
 
 from baggr.version import __version__
-from baggr.errors import ModelFileError
+from baggr.config import Config
+from baggr.errors import BaggrError, ModelFileError
 from baggr.model import npzfile
 from baggr.runs.files import CHECKPOINT, CHECKPOINT_INFO, CONFIG, MEMBERS, MODEL, write_error, write_json_atomic
 from baggr.runs.rundir import RunDir, RunSettings
@@ -98,7 +99,10 @@ class Checkpointer:
         self.writes += 1
         self.last_started = m
         kept = self.chunks[-1][1] if self.chunks else 0
-        trees = list(tr.trees[kept:m]) if tr.config.keep_members and m > kept else []
+        base = tr.trees_base          # trees before it were set aside: they are in chunk files already
+        if tr.config.keep_members and kept < base:
+            raise ValueError(f"trees from member {kept} on were set aside before a checkpoint stored them")
+        trees = list(tr.trees[kept - base:m - base]) if tr.config.keep_members and m > kept else []
         arrays, header = tr.checkpoint()
         arrays = {k: np.array(v, copy=True) for k, v in arrays.items()}   # the tallies move on meanwhile
         if tr.prep.task == "classes":
@@ -207,7 +211,7 @@ class Checkpointer:
         check_checkpoint_header(path, header, "resume")
         tr = self.training
         # members may have grown since (resume --members N): every other setting must be the same
-        if dict(header.get("config") or {}, members=None) != dict(tr.config.to_dict(), members=None):
+        if not _same_settings(header.get("config"), tr.config, but_members=True):
             raise ModelFileError(f"{path} belongs to other settings than {CONFIG}; it cannot be resumed")
         if header.get("sha256") not in (None, self.header_extra.get("sha256")):
             raise ModelFileError(f"{path} was made from other data than the run's data file")
@@ -216,8 +220,7 @@ class Checkpointer:
         if tr.config.keep_members:
             trees = self._load_chunks(chunks, tr.prep.codes.shape[0])
             expect = len(trees)
-        tally = {k: v for k, v in arrays.items() if k.startswith("tally_")}
-        tr.restore(tally, header, trees if tr.config.keep_members else None)
+        tr.restore(arrays, header, trees if tr.config.keep_members else None)
         if tr.config.keep_members and expect != tr.next_member:
             raise ModelFileError(f"{path}: chunk files hold {expect} members, the tallies {tr.next_member}")
         self.chunks, self.member = [list(c) for c in chunks], tr.next_member
@@ -232,30 +235,48 @@ class Checkpointer:
         self.chunks = [[0, m, model_name]] if self.training.config.keep_members and m else []
         self.member = self.last_started = m
 
+    def stored_trees(self, upto: int):
+        """The kept trees of members 0..upto-1, read back from the latest checkpoint's chunk files one
+        file at a time (a generator: a file's trees are let go once the caller has copied them)."""
+        n = 0
+        for c in self.chunks:
+            if n >= upto:
+                break
+            for t in self._chunk_trees(c, n, self.training.prep.codes.shape[0]):
+                if n >= upto:
+                    break
+                yield t
+                n += 1
+        if n < upto:
+            raise ModelFileError(f"{self.rd.path}: the chunk files hold fewer than {upto} members")
+
     def _load_chunks(self, chunks, n_features: int) -> list:
-        from baggr.model.forest import Forest
         trees, at = [], 0
         for c in chunks:
-            if not (isinstance(c, list) and len(c) == 3 and c[0] == at and c[1] > c[0] and isinstance(c[2], str)
-                    and (c[2] == _chunk_name(c[0], c[1]) or (c[2] == MODEL and c[0] == 0))):
-                raise ModelFileError(f"{self.rd / CHECKPOINT}: its list of member files is damaged")
-            if c[2] == MODEL:   # the first c[1] members of the model a stop saved (fold_into_model)
-                trees.extend(self._model_members(c[1]))
-                at = c[1]
-                continue
-            h, a = npzfile.read(self.rd / c[2], "members file")
-            if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
-                raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
-            if h.get("format_version") == 1:
-                forest = Forest(a)
-                forest.validate(n_features, self.training.n_out)
-            else:
-                forest = self._compact_chunk(c[2], h, a)
-            if forest.members != c[1] - c[0]:
-                raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
-            trees.extend(forest.unpack())
+            trees.extend(self._chunk_trees(c, at, n_features))
             at = c[1]
         return trees
+
+    def _chunk_trees(self, c, at: int, n_features: int) -> list:
+        """The trees of one entry of the checkpoint's list (a chunk file, or the first members of
+        the model a stop saved), checked against the list (the entry must start at member `at`)."""
+        from baggr.model.forest import Forest
+        if not (isinstance(c, list) and len(c) == 3 and c[0] == at and c[1] > c[0] and isinstance(c[2], str)
+                and (c[2] == _chunk_name(c[0], c[1]) or (c[2] == MODEL and c[0] == 0))):
+            raise ModelFileError(f"{self.rd / CHECKPOINT}: its list of member files is damaged")
+        if c[2] == MODEL:   # the first c[1] members of the model a stop saved (fold_into_model)
+            return self._model_members(c[1])
+        h, a = npzfile.read(self.rd / c[2], "members file")
+        if h.get("format") != CHUNK_FORMAT or h.get("first") != c[0] or h.get("last") != c[1]:
+            raise ModelFileError(f"{self.rd / c[2]} is not the members file the checkpoint names")
+        if h.get("format_version") == 1:
+            forest = Forest(a)
+            forest.validate(n_features, self.training.n_out)
+        else:
+            forest = self._compact_chunk(c[2], h, a)
+        if forest.members != c[1] - c[0]:
+            raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
+        return forest.unpack()
 
     def _model_members(self, k: int) -> list:
         h, a = npzfile.read(self.rd / MODEL, "model file")
@@ -329,3 +350,18 @@ def check_checkpoint_header(path, header: dict, to: str) -> None:
     if not isinstance(v, int) or v > CHECKPOINT_VERSION:
         raise ModelFileError(f"{path} was written by a newer baggr (checkpoint format {v!r}; this baggr "
                              f"{__version__} reads up to {CHECKPOINT_VERSION}): upgrade baggr to {to} it")
+
+
+def _same_settings(stored, config: Config, but_members: bool = False) -> bool:
+    """Whether a checkpoint's settings are the run's: compared as Configs, so that a setting added
+    since the checkpoint was written (at its default) does not count as a difference. but_members:
+    the member count may differ (a run grown with resume --members N)."""
+    if not isinstance(stored, dict):
+        return False
+    try:
+        got = Config.from_dict(stored)
+    except BaggrError:
+        return False
+    if but_members:
+        got = got.replace(members=config.members)
+    return got.to_dict() == config.to_dict()

@@ -14,14 +14,17 @@ from baggr.runs.journal_reader import JournalReader
 from baggr.runs.rundir import RunDir
 
 
-def spawn(rd: RunDir, *, verify: bool = False) -> subprocess.Popen:
-    """Start the job as its own process in its own session (a dropped SSH link does not end it)."""
+def spawn(rd: RunDir, *, verify: bool = False, cluster: str | None = None) -> subprocess.Popen:
+    """Start the job as its own process in its own session (a dropped SSH link does not end it);
+    cluster: grow its members there (an address or local:N)."""
     pkg_root = str(Path(__file__).resolve().parents[2])   # the folder holding baggr/
     env = dict(os.environ)
     env["PYTHONPATH"] = pkg_root + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
     args = [sys.executable, "-m", "baggr.cli", "_job", str(rd.path)]
     if verify:
         args.append("--verify")
+    if cluster is not None:
+        args += ["--cluster", cluster]
     try:
         log = open(rd / JOB_LOG, "ab")
     except OSError as e:
@@ -31,14 +34,21 @@ def spawn(rd: RunDir, *, verify: bool = False) -> subprocess.Popen:
                                 stderr=subprocess.STDOUT, env=env, close_fds=True)
 
 
-def wait_started(rd: RunDir, proc: subprocess.Popen, starts_before: int, poll=0.1, on_wait=None) -> int | None:
-    """Wait until the job writes a new start line (None) or exits first (its return code)."""
+def wait_started(rd: RunDir, proc: subprocess.Popen, starts_before: int, poll=0.1, on_wait=None,
+                 on_event=None) -> int | None:
+    """Wait until the job writes a new start line (None) or exits first (its return code).
+
+    on_event(event): called with each line of the job's before its start line (a warning, the
+    note that kernels compile).
+    """
     reader = JournalReader(rd / JOURNAL)
     starts = 0
     while True:
         for ev in reader.read_new():
             if ev.get("event") == "start":
                 starts += 1
+            elif on_event is not None and starts == starts_before:
+                on_event(ev)
         if starts > starts_before:
             return None
         code = proc.poll()

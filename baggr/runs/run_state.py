@@ -14,6 +14,7 @@ from baggr.runs.downsample import downsample
 from baggr.runs.files import JOURNAL
 from baggr.runs.journal_lines import END_STATUSES
 from baggr.runs.journal_reader import JournalReader
+from baggr.runs.measure_points import MeasurePoints
 
 
 def class_interval(error: float | None, n: int) -> tuple[float, float] | None:
@@ -58,6 +59,7 @@ class RunState:
         self.host = None
         self.threads = None
         self.config = None
+        self.resolved = None       # the settings the data chose (the start line's "resolved")
         self.version = None
         self.status = "waiting"
         self.reason = None
@@ -80,6 +82,8 @@ class RunState:
         # {"member": m, "b": [...], "error": [...], "lo": [...], "hi": [...], "class_error": [[...], ...]}
         self.fit: dict | None = None
         self._drawn: dict = {}     # per series: extremes of complete buckets (see downsample)
+        self.measures = MeasurePoints()   # the measures at the sizes the job computed them, and importance
+        self.feature_names: list[str] = []
 
     # -- folding
 
@@ -123,7 +127,9 @@ class RunState:
         self.host = ev.get("host")
         self.threads = ev.get("threads")
         self.config = ev.get("config", self.config)
+        self.resolved = ev.get("resolved", self.resolved)
         self.version = ev.get("version", self.version)
+        self.feature_names = [str(f) for f in ev.get("feature_names") or self.feature_names]
         self.resumed = bool(ev.get("resumed", self.starts > 1))
         self.first_member = first
         if self.started_t is None:
@@ -145,6 +151,7 @@ class RunState:
                     self.curve_raw, *self.curve_class):
             del arr[cut:]
         self._drawn.clear()
+        self.measures.truncate(member)
         self.members = member
         if self.fit is not None and self.fit["member"] > member:
             self.fit = None     # the member lines that follow bring the fit again
@@ -202,6 +209,7 @@ class RunState:
         if el is not None:
             self.elapsed = float(el)
         self._last = ev
+        self.measures.fold(m, ev.get("measures"), ev.get("importance"))
 
     def _end(self, ev: dict) -> None:
         status = ev.get("status")

@@ -17,7 +17,7 @@ from pathlib import Path
 from baggr.version import __version__
 from baggr.config import Config
 from baggr.errors import DataError, RunDirError
-from baggr.runs.files import CONFIG, JOURNAL, LOCK, RUN_FILES, write_error, write_json_atomic
+from baggr.runs.files import CONFIG, JOURNAL, LOCK, MODEL, RUN_FILES, write_error, write_json_atomic
 from baggr.runs.job_status import job_status
 from baggr.runs.lock import Lock, lock_holder
 from baggr.runs.run_state import read_state
@@ -41,6 +41,9 @@ class RunSettings:
     stable_refits: int = 3           # ... the last this many of them
     stable_spread: float = 0.1       # ... agree on members_needed to within this share of the latest
     stable_slack: int = 16           # ... or within this many members, whichever is more
+    # measures other than the error (--measure): their curve settles over a window (job.Job.advance)
+    stable_window: int = 25          # the window is max(stable_window, members // stable_window_part)
+    stable_window_part: int = 5
 
     @classmethod
     def from_dict(cls, d: dict | None) -> "RunSettings":
@@ -65,13 +68,19 @@ def fingerprint(path) -> dict:
     return {"path": str(p.resolve()), "bytes": size, "sha256": digest}
 
 
-def default_run_dir(data_path, root="runs") -> Path:
-    """runs/<data-name>-<YYYYmmdd-HHMMSS>, with -2, -3, ... if that exists already."""
+def data_stem(data_path) -> str:
+    """The data file's name without folders and extensions (firings.csv.gz -> firings)."""
     name = Path(data_path).name
     for suffix in (".gz", ".bz2", ".zst", ".lz4"):
         if name.lower().endswith(suffix):
             name = name[: -len(suffix)]
-    name = Path(name).stem or "run"
+    return Path(name).stem or "run"
+
+
+def default_run_dir(data_path, root="runs", kind: str = "") -> Path:
+    """runs/<data-name>-<YYYYmmdd-HHMMSS> (kind "compare": runs/<data-name>-compare-<...>), with -2,
+    -3, ... if that exists already."""
+    name = data_stem(data_path) + (f"-{kind}" if kind else "")
     base = Path(root) / f"{name}-{time.strftime('%Y%m%d-%H%M%S')}"
     path, k = base, 2
     while path.exists():
@@ -164,12 +173,57 @@ def create(path, *, force: bool = False) -> RunDir:
     return rd
 
 
-def init_config(rd: RunDir, *, data: dict, target: str, config: Config, settings: RunSettings) -> dict:
-    """Write config.json of a new run (rows and features are filled in by the job once it has read the data)."""
+def init_config(rd: RunDir, *, data: dict, target: str, config: Config, settings: RunSettings,
+                table: dict | None = None) -> dict:
+    """Write config.json of a new run (rows and features are filled in by the job once it has read the data).
+
+    table: how the data file is read (TABLE_OPTIONS: drop, only, delimiter, missing_target).
+    """
     d = {"config": config.to_dict(), "data": dict(data, rows=None, features=None), "target": target,
-         "version": __version__, "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "run": asdict(settings)}
+         "version": __version__, "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "run": asdict(settings),
+         "table": table_options({"table": table or {}})}
     rd.write_config(d)
     return d
+
+
+# How a run reads its data file, as config.json's "table" holds it (a run written before it had none).
+TABLE_OPTIONS = {"drop": [], "only": [], "delimiter": None, "missing_target": "drop"}
+
+
+def table_options(cfg: dict) -> dict:
+    """The "table" section of a run's config.json, with the defaults filled in."""
+    t = cfg.get("table") if isinstance(cfg.get("table"), dict) else {}
+    out = dict(TABLE_OPTIONS)
+    out.update({k: v for k, v in t.items() if k in TABLE_OPTIONS and v is not None})
+    out["drop"], out["only"] = list(out["drop"]), list(out["only"])
+    return out
+
+
+def model_path(path) -> Path:
+    """The model file of a run directory, or the path itself when it is a file; RunDirError (or
+    ModelFileError) in words when there is no model to read."""
+    from baggr.errors import ModelFileError
+    src = Path(path).expanduser()
+    if src.is_dir():
+        rd = RunDir(src).require()
+        if not (rd / MODEL).exists():
+            st, status = rd.state()
+            raise RunDirError(f"{src} has no model yet ({status_words(status, st.members)}): wait for it to "
+                              "finish, or stop it (baggr stop DIR) to save one")
+        return rd / MODEL
+    if not src.exists():
+        raise ModelFileError(f"model file not found: {src}")
+    return src
+
+
+def status_words(status: str, members: int | None = None) -> str:
+    """A job's status in a sentence's words: "the job crashed at 350 members", "the job has not started"."""
+    at = f" at {members} members" if members else ""
+    if status == "waiting":
+        return "the job has not started"
+    if status == "running":
+        return f"the job is running{at}"
+    return f"the job {status}{at}"
 
 
 def check_data(info: dict) -> dict:

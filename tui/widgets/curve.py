@@ -82,7 +82,7 @@ class CurvePlot(Painted):
     def draw(self, v: View, mono: bool) -> None:
         """Plot the view's curves unless they are drawn already (the app decides how often to ask)."""
         self._last_args = (v, mono)
-        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes), v.show_raw)
+        key = (v.version, v.log_x, v.highlight, mono, v.task, tuple(v.classes), v.measure, v.show_raw)
         if key == self._drawn:
             return
         self._drawn = key
@@ -143,6 +143,16 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
 
     if not v.curves or not len(v.curves.get("error", ((), ()))[0]):
         return [[("no members yet", Style(italic=True))]]
+    if not v.per_member:
+        # a measure: its points at the sizes where the job computed it, over the same members axis
+        scale = 1.0
+        if not len(v.curves.get("m", ((), ()))[0]):
+            return [[(f"no {v.measure_label} yet", Style(italic=True))]]
+        put("m_lo", BAND, MONO_BAND)
+        put("m_hi", BAND, MONO_BAND)
+        put("m", OVERALL, MONO_OVERALL)
+        xs = v.curves["error"][0]
+        return _plot(series, v, xs[0], xs[-1], width, height)
     top = x_top(v)
     fit = v.fit
     if v.show_raw:
@@ -177,18 +187,6 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
         if lim is not None:
             x, y = _dashed(np.array([1.0, top]), np.array([lim, lim]))
             add(x, y, LIMIT, MONO_LIMIT)
-    # x range first: the members_needed marker spans the y range of what is drawn
-    xs = v.curves["error"][0]
-    lo = xs[0]
-    if log:
-        x_range = (math.log10(max(lo, 1)), math.log10(max(top, 1)))
-        ticks = log_ticks(lo, top, width)
-    else:
-        x_range = (float(lo), float(top))
-        t = nice_ticks(lo, top, most=max(2, width // 10))
-        ticks = (t, [f"{x:,}" for x in t])
-    if x_range[1] <= x_range[0]:
-        x_range = (x_range[0] - 0.5, x_range[0] + 0.5)
     need = v.members_needed
     if fit is not None and need and need <= top:
         ys = [s.ys[np.isfinite(s.ys)] for s in series]
@@ -197,15 +195,32 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
             y0, y1 = min(float(y.min()) for y in ys), max(float(y.max()) for y in ys)
             x, y = _dashed(np.array([need, need], float), np.array([y0, y1]) / scale, pieces=max(3, height))
             add(x, y, LIMIT, MONO_LIMIT)
+    return _plot(series, v, v.curves["error"][0][0], top, width, height)
+
+
+def _plot(series: list, v: View, lo: float, hi: float, width: int, height: int) -> list:
+    """The series over a members axis from lo to hi (ticks laid out for the width)."""
+    if v.log_x:
+        x_range = (math.log10(max(lo, 1)), math.log10(max(hi, 1)))
+        ticks = log_ticks(lo, hi, width)
+    else:
+        x_range = (float(lo), float(hi))
+        t = nice_ticks(lo, hi, most=max(2, width // 10))
+        ticks = (t, [f"{x:,}" for x in t])
+    if x_range[1] <= x_range[0]:
+        x_range = (x_range[0] - 0.5, x_range[0] + 0.5)
     return plot_lines(series, width, height, x_range=x_range, x_ticks=ticks)
 
 
 def curve_key(v: View, mono: bool) -> Text:
     """One line saying which line is which, with the error limit and the members needed."""
     t = Text(no_wrap=True, overflow="ellipsis")
-    t.append((MONO_OVERALL if mono else "━") + " all", style="" if mono else rgb(OVERALL))
+    t.append((MONO_OVERALL if mono else "━") + (" all" if v.per_member else " " + v.measure_label),
+             style="" if mono else rgb(OVERALL))
     t.append("  ")
     t.append((MONO_BAND if mono else "─") + " 95%", style="" if mono else rgb(BAND))
+    if not v.per_member:
+        return t
     if v.show_raw:
         t.append("  ")
         t.append((MONO_RAW if mono else "━") + " textbook", style="" if mono else rgb(RAW))
@@ -253,8 +268,8 @@ class CurveKey(Panel):
     """
 
     def show(self, v: View, mono: bool) -> None:
-        self.put((tuple(v.classes), v.highlight, mono, v.task, v.show_raw, v.error_limit, v.members_needed,
-                  v.fit is not None), lambda: curve_key(v, mono), lines=1)
+        self.put((tuple(v.classes), v.highlight, mono, v.task, v.measure, v.show_raw, v.error_limit,
+                  v.members_needed, v.fit is not None), lambda: curve_key(v, mono), lines=1)
 
 
 class CurvePanel(Column):
@@ -297,6 +312,8 @@ class CurvePanel(Column):
         mono = self.app.no_color
         what = "% of rows" if v.is_classes else "MSE"
         title = f"Error of the kept ensemble by size ({what})"
+        if not v.per_member:
+            title = f"{v.measure_label} by ensemble size"
         if title != self.border_title:      # setting it repaints (the keys' captions: the app, tui/keys.py)
             self.border_title = title
         if self._plot() is None:

@@ -31,6 +31,11 @@ def wrap(words: str, width: int, most: int = 3) -> list[str]:
     return lines[: most - 1] + [last + " " + ELLIPSIS]
 
 
+# the measures' names short enough for the panel's label column
+SHORT = {"error": "error", "balanced-error": "bal.err", "log-loss": "log loss", "brier": "Brier", "auc": "AUC",
+         "mse": "MSE", "rmse": "RMSE", "mae": "MAE", "r2": "R2"}
+
+
 def fit_parts(parts: list[str], width: int, sep: str = " · ") -> str:
     """As many of `parts` (most telling first) as fit in `width`, joined."""
     out = ""
@@ -96,6 +101,13 @@ def progress_lines(v: View, proc: ProcessFigures | None = None, width: int = WID
     elif v.status != "waiting":
         rows.append(("saved", saved_words(v)))
     rows.append(("covered", "-" if v.coverage is None else f"{fmt.pct(v.coverage)} of rows"))
+    if v.measure and v.measure_value is not None and v.measure_value[0] == v.measure_value[0]:
+        val, lo, hi = v.measure_value
+        rate = v.measure in ("error", "balanced-error")      # shares of rows: as percentages, like the error
+        text = Text(fmt.pct(val) if rate else f"{val:.4g}", style="bold" if v.measure == v.chosen_measure else "")
+        if lo == lo and hi == hi:
+            text.append(f" ({fmt.pct(lo)}-{fmt.pct(hi)})" if rate else f" ({lo:.3g}-{hi:.3g})")
+        rows.append((SHORT.get(v.measure, v.measure), text))
     return rows
 
 

@@ -7,17 +7,31 @@ from ..view import View
 from .base import Panel
 from .texttable import pairs
 
-SHOWN = ("members", "features_per_split", "min_leaf", "depth_limit", "draw", "bins", "seed", "threads",
-         "keep_members")
+# The settings as `baggr train` names them.
+SHOWN = (("members", "members"), ("features_per_split", "features/split"), ("min_leaf", "min leaf"),
+         ("depth_limit", "depth limit"), ("draw", "draw"), ("bins", "bins"), ("seed", "seed"),
+         ("threads", "threads"), ("keep_members", "trees kept"))
 
 
-# What None means for each setting (Config's docs), so the panel never shows a bare dash.
-UNSET = {"features_per_split": "auto", "depth_limit": "none", "threads": "all cores"}
+def _text(key: str, value, res: dict) -> str:
+    """A setting's value in words, with what the data chose for an unset one (the start line's resolved)."""
+    if key == "features_per_split":
+        k, n, rule = res.get("features_per_split"), res.get("features"), res.get("features_rule")
+        if k is not None and n is not None:
+            return f"{k} of {n} ({rule})" if rule else f"{k} of {n}"
+        return "sqrt or 1/3 (by task)" if value is None else str(value)
+    if key == "keep_members":
+        return "no (--estimate-only)" if value is False else "yes"
+    if key == "threads" and value is None:
+        return f"all cores ({res['threads']})" if res.get("threads") else "all cores"
+    if key == "depth_limit" and value is None:
+        return "none"
+    return "-" if value is None else str(value)
 
 
 def settings_rows(v: View) -> list[tuple[str, str]]:
-    cfg = v.config or {}
-    return [(k, UNSET.get(k, "-") if cfg.get(k) is None else str(cfg[k])) for k in SHOWN if k in cfg]
+    cfg, res = v.config or {}, v.resolved or {}
+    return [(label, _text(k, cfg.get(k), res)) for k, label in SHOWN if k in cfg]
 
 
 class SettingsPanel(Panel):

@@ -4,6 +4,7 @@ from __future__ import annotations
 from textual.app import ComposeResult
 
 from .base import Column
+from .importance import ImportancePanel
 from .progress import ProgressPanel
 from .settings import SettingsPanel
 
@@ -23,6 +24,7 @@ class SidePanel(Column):
 
     def compose(self) -> ComposeResult:
         yield ProgressPanel(id="progress")
+        yield ImportancePanel(id="importance")
         yield SettingsPanel(id="settings")
 
     def on_mount(self) -> None:

@@ -1,0 +1,305 @@
+"""Members grown on a Dask cluster (the optional extra: pip install 'baggr[cluster]').
+
+The driver connects to a scheduler (an address; `local:N`, a process cluster of N workers on this
+machine's loopback; or a Client the caller made), scatters the binned codes and targets once to every
+worker (broadcast), submits chunks of members, keeps a bounded number of chunks in flight and hands
+the results back in member order. Workers build the run's Grower once (dask_worker.py) and send back
+each member's tree and OOB delta. A member is a pure function of m, so a chunk lost with its worker
+is grown again elsewhere, and the fold, in member order, is the same as with local threads.
+
+Chunk size: after every chunk, k = ceil(o / (OVERHEAD_SHARE * t)), t the mean CPU time of a member in
+its worker and o the cost of one chunk to the cluster: the larger of TASK_COST, the median wait of a
+worker thread between two chunks, and the driver's time to submit one. Bounded by the members left per
+worker thread (the last chunks spread over all workers) and by MAX_CHUNK_BYTES of results.
+"""
+from __future__ import annotations
+
+import collections
+import math
+import statistics
+import time
+import uuid
+from dataclasses import dataclass, field
+
+from baggr.backends import dask_connect, dask_worker
+from baggr.backends.base import Backend
+from baggr.backends.dask_connect import one_line, parse_address, timeout_default  # noqa: F401
+from baggr.backends.member import Grower
+from baggr.errors import ClusterError, ClusterLostError
+
+NO_WORKERS = 60.0                 # a run with no worker for this long (and at least TIMEOUT) stops
+OVERHEAD_SHARE = 0.05             # the cluster's cost per chunk, as a share of the chunk's member time
+TASK_COST = 0.005                 # s: least CPU cost of one task, driver and worker (measured: bench/README.md)
+MAX_CHUNK = 1024
+MAX_CHUNK_BYTES = 64 << 20        # results of one chunk (trees and deltas) wait in a worker's memory
+IN_FLIGHT_PER_THREAD = 2          # chunks submitted and not yet handed on, per worker thread
+RESUBMITS = 3                     # a chunk whose future is cancelled (its data lost) is sent again
+POLL = 1.0                        # s between checks of the connection while a chunk is awaited
+
+
+@dataclass
+class ClusterStats:
+    """What the cluster did for one run (read by bench/cluster.py and the job's notes)."""
+
+    address: str = ""
+    threads: int = 0                  # worker threads when the run started
+    ship_seconds: float = 0.0         # scattering the codes and targets to every worker
+    ship_bytes: int = 0
+    chunks: int = 0
+    members: int = 0
+    resubmitted: int = 0
+    task_seconds: float = 0.0         # chunks' wall time in the workers
+    task_cpu: float = 0.0             # chunks' CPU time in the workers' threads
+    member_seconds: float = 0.0       # members' own time (inside task_seconds)
+    submit_seconds: float = 0.0       # the driver submitting chunks
+    receive_seconds: float = 0.0      # the driver receiving chunks that were done (transfer, unpickling)
+    receives: int = 0                 # chunks received done
+    wall_seconds: float = 0.0         # first submit to last chunk received
+    sizes: list = field(default_factory=list)      # members per chunk, in order
+    gaps: list = field(default_factory=list)       # worker threads' waits between chunks of the run
+    setup: dict = field(default_factory=dict)      # worker -> seconds building the Grower
+    first: dict = field(default_factory=dict)      # worker -> its process's first member (kernels loaded)
+
+    @property
+    def efficiency(self) -> float:
+        """Member time over worker-thread time: 1.0 when the workers never waited."""
+        return self.member_seconds / (self.threads * self.wall_seconds) if self.threads and self.wall_seconds else 0.0
+
+
+@dataclass
+class _Chunk:
+    a: int
+    b: int
+    future: object
+    attempt: int = 0
+
+
+class Dask(Backend):
+    """Members grown by the workers of a Dask scheduler, handed back in member order.
+
+    cluster: a scheduler address ("tcp://host:8786", "tls://..."), "local:N" (N worker processes on
+    127.0.0.1, started here and stopped by shutdown()), or a distributed.Client the caller owns.
+    timeout: seconds to reach the scheduler and see a first worker (default TIMEOUT or $BAGGR_CLUSTER_TIMEOUT).
+    on_note: called with a line of text when something the user should know happens (workers lost...).
+    """
+
+    def __init__(self, cluster, *, timeout: float | None = None, on_note=None):
+        self.timeout = timeout_default() if timeout is None else float(timeout)
+        self.on_note = on_note
+        self._inflight: collections.deque[_Chunk] = collections.deque()
+        self._data = None
+        self._token = None
+        self._grower: Grower | None = None
+        self._bytes: int | None = None       # one member's results on the wire
+        self.stats = ClusterStats()
+        self.client, self._local, self._own_client = dask_connect.connect(cluster, self.timeout)
+        self.address = self.client.scheduler.address
+        self.threads = self._threads()
+        self._threads_at = time.monotonic()
+        self._no_workers_since = None
+
+    # -- connecting
+    def _threads(self) -> int:
+        return int(sum(self.client.nthreads().values()))
+
+    def _note(self, text: str) -> None:
+        if self.on_note is not None:
+            self.on_note(text)
+
+    # -- growing
+    def members(self, grower: Grower, start: int, stop: int):
+        if start >= stop:
+            return
+        self._grower, self._token = grower, uuid.uuid4().hex[:16]
+        st = self.stats = ClusterStats(address=self.address, threads=self.threads)
+        self._bytes = None
+        try:
+            self._ship()
+            t_first = time.perf_counter()
+            inflight, nxt = self._inflight, start
+            while nxt < stop or inflight:
+                self._check_threads()
+                while nxt < stop and len(inflight) < IN_FLIGHT_PER_THREAD * max(self.threads, 1):
+                    b = min(stop, nxt + self._chunk_size(stop - nxt))
+                    inflight.append(self._submit(nxt, b))
+                    nxt = b
+                ch = inflight[0]
+                done = self._receive(ch)
+                inflight.popleft()
+                st.wall_seconds = time.perf_counter() - t_first
+                self._learn(ch, done)
+                results, done.results = done.results, None
+                for i, r in enumerate(results):
+                    results[i] = None      # the driver holds the member being folded, not the chunk
+                    if isinstance(r.delta, dask_worker.PackedDelta):
+                        r.delta = r.delta.unpack()
+                    yield r
+        except ClusterError:
+            raise
+        except OSError as e:     # TimeoutError is one: the run cannot go on here, but what it has is intact
+            if self._lost(e):
+                raise self._lost_error(e) from None
+            raise ClusterLostError(f"the cluster at {self.address} failed ({type(e).__name__}: {one_line(e)})") from None
+
+    def _ship(self) -> None:
+        """Scatter the codes and targets (no names, labels, levels or edges) to every worker."""
+        t0 = time.perf_counter()
+        prep = self._grower.prep.for_workers()
+        self._data = self.client.scatter(prep, broadcast=True, hash=False)
+        self.stats.ship_seconds += time.perf_counter() - t0
+        self.stats.ship_bytes = int(prep.codes.nbytes + prep.y_class.nbytes + prep.y_value.nbytes)
+
+    def _submit(self, a: int, b: int, attempt: int = 0) -> _Chunk:
+        t0 = time.perf_counter()
+        fut = self.client.submit(dask_worker.grow_chunk, self._token, self._data, self._grower.config, a, b,
+                                 key=f"baggr-members-{a}-{b}-{self._token}-{attempt}", retries=0,
+                                 priority=1 if attempt else 0)
+        self.stats.submit_seconds += time.perf_counter() - t0
+        return _Chunk(a, b, fut, attempt)
+
+    def _receive(self, ch: _Chunk):
+        """The chunk's results; a chunk cancelled while the scheduler lives is sent again."""
+        from asyncio import CancelledError as LoopCancelled
+        from concurrent.futures import CancelledError    # a cancelled future's (distributed's is one)
+
+        from distributed.scheduler import KilledWorker
+        while True:
+            try:
+                while True:
+                    ready = ch.future.done()
+                    t0 = time.perf_counter()
+                    try:
+                        done = ch.future.result(timeout=None if ready else POLL)   # the results travel now
+                    except TimeoutError:
+                        if ready:
+                            raise
+                        self._check_threads()
+                        continue
+                    if ready:      # the driver's own time to receive a chunk (not waiting for it)
+                        self.stats.receive_seconds += time.perf_counter() - t0
+                        self.stats.receives += 1
+                    return done
+            except KilledWorker as e:
+                raise ClusterError(f"members {ch.a}..{ch.b - 1} were in hand on workers that died "
+                                   f"({one_line(e)}); out of memory? see the workers' logs") from None
+            except (Exception, LoopCancelled) as e:   # noqa: BLE001 - a grower's own error goes up as it is
+                if self._lost(e):
+                    raise self._lost_error(e) from None
+                if not isinstance(e, (CancelledError, LoopCancelled)) or ch.attempt >= RESUBMITS:
+                    raise
+                # the chunk's future was dropped (e.g. every copy of the scattered data died with its workers)
+                self.stats.resubmitted += 1
+                self._note(f"members {ch.a}..{ch.b - 1} are grown again (lost with the workers that held "
+                           f"them{' and the table' if self._data.status != 'finished' else ''})")
+                if self._data.status != "finished":
+                    self._ship()
+                new = self._submit(ch.a, ch.b, ch.attempt + 1)
+                ch.future, ch.attempt = new.future, new.attempt
+
+    def _learn(self, ch: _Chunk, done) -> None:
+        st = self.stats
+        st.chunks += 1
+        st.members += ch.b - ch.a
+        st.sizes.append(ch.b - ch.a)
+        st.task_seconds += done.seconds
+        st.task_cpu += done.cpu
+        st.member_seconds += sum(r.seconds for r in done.results)
+        if done.gap is not None:
+            st.gaps.append(done.gap)
+        if done.setup is not None:
+            st.setup[done.worker] = done.setup
+        if done.first is not None:
+            st.first[done.worker] = done.first
+        if self._bytes is None:
+            self._bytes = max(1, _result_bytes(done.results[0]))
+
+    def _chunk_size(self, left: int) -> int:
+        st = self.stats
+        if not st.members:
+            return 1
+        # CPU time, not wall time: on a busy host a member's wall time grows with the wait for a core,
+        # and so would the share the cluster's own work is allowed
+        t = st.task_cpu / st.members
+        recent = st.gaps[-32:]
+        o = max(TASK_COST, statistics.median(recent) if recent else 0.0, st.submit_seconds / max(st.chunks, 1))
+        k = math.ceil(o / (OVERHEAD_SHARE * max(t, 1e-6)))
+        per_thread = math.ceil(left / max(self.threads, 1))
+        return max(1, min(k, MAX_CHUNK, MAX_CHUNK_BYTES // self._bytes, per_thread))
+
+    # -- the cluster's health
+    def _check_threads(self) -> None:
+        """Refresh the worker threads now and then; a cluster without workers for long stops the run."""
+        now = time.monotonic()
+        if now - self._threads_at < POLL:
+            return
+        self._threads_at = now
+        if self.client.status != "running":
+            raise self._lost_error(None)
+        try:
+            n = self._threads()
+        except OSError as e:
+            raise self._lost_error(e) from None
+        if n != self.threads:
+            self._note(f"the cluster has {n} worker threads (was {self.threads})"
+                       + ("; members in hand on the lost workers are grown again" if n < self.threads else ""))
+            self.threads = n
+        if n:
+            self._no_workers_since = None
+        elif self._no_workers_since is None:
+            self._no_workers_since = now
+        elif now - self._no_workers_since > max(NO_WORKERS, self.timeout):
+            raise ClusterLostError(f"the Dask scheduler at {self.address} has had no workers for "
+                                   f"{now - self._no_workers_since:.0f} s")
+
+    def _lost(self, e: BaseException | None) -> bool:
+        """Whether e says the scheduler is gone: the client noticed, the futures were cancelled for it, or a
+        connection closed under a call (before the client noticed: its status changes a moment later)."""
+        from distributed.comm.core import CommClosedError
+        return self.client.status != "running" or getattr(e, "reason", None) == "scheduler-connection-lost" \
+            or isinstance(e, CommClosedError)
+
+    def _lost_error(self, e: BaseException | None) -> ClusterLostError:
+        what = "the connection closed" if e is None or isinstance(e, OSError) \
+            or getattr(e, "reason", None) == "scheduler-connection-lost" else one_line(e)
+        return ClusterLostError(f"lost the Dask scheduler at {self.address} ({what})")
+
+    # -- ending
+    def close(self) -> None:
+        """Cancel the chunks in flight, drop the scattered data and the workers' Growers of this run."""
+        futures = [ch.future for ch in self._inflight]
+        self._inflight.clear()
+        data, token = self._data, self._token
+        self._data = self._grower = None
+        if self.client is None or self.client.status != "running":
+            return
+        try:
+            if futures:
+                self.client.cancel(futures)
+            if data is not None:
+                data.release()
+            if token is not None:
+                self.client.run(dask_worker.forget, token, on_error="ignore")
+        except (OSError, TimeoutError):
+            pass   # the scheduler is going or gone: its workers drop the run with it
+
+    def shutdown(self) -> None:
+        """close(), then close the client and the local cluster this backend started (not a caller's client)."""
+        self.close()
+        dask_connect.close(self.client if self._own_client else None, self._local, self.timeout)
+        self._own_client, self._local = False, None
+
+    def __enter__(self) -> "Dask":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.shutdown()
+
+
+def _result_bytes(r) -> int:
+    """Bytes of one member's result on the wire: its tree's arrays and its OOB delta."""
+    import numpy as np
+    d = r.delta
+    n = d.bits.nbytes + d.votes.nbytes if isinstance(d, dask_worker.PackedDelta) else d.rows.nbytes + d.votes.nbytes
+    if r.tree is not None:
+        n += sum(v.nbytes for v in vars(r.tree).values() if isinstance(v, np.ndarray))
+    return n

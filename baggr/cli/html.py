@@ -1,0 +1,242 @@
+"""`baggr report DIR --html FILE`: the report as one self-contained HTML file.
+
+Everything is inside the file: the style sheet, and the figures as data: URIs (SVG; PNG for
+scatter plots of many points). It loads nothing from anywhere, runs no script, and opens
+offline in any browser; it prints on paper as it shows on screen.
+"""
+from __future__ import annotations
+
+import base64
+import html
+import math
+
+from baggr.cli import figures as F
+
+STYLE = """
+:root { --ink: #2b3038; --slate: #76808c; --paper: #fbfaf7; --rule: #e6e2d8; --teal: #3f9c8f; --ochre: #c98f3c; }
+* { box-sizing: border-box; }
+body { margin: 0; background: var(--paper); color: var(--ink);
+       font: 15px/1.5 "DejaVu Sans", "Segoe UI", Helvetica, Arial, sans-serif; }
+main { max-width: 60rem; margin: 0 auto; padding: 2rem 1.5rem 4rem; }
+header { border-bottom: 3px solid var(--teal); padding-bottom: 0.8rem; margin-bottom: 1.2rem; }
+h1 { font-size: 1.55rem; margin: 0 0 0.2rem; letter-spacing: 0.01em; }
+h1 .mark { color: var(--teal); }
+h2 { font-size: 1.15rem; margin: 2.2rem 0 0.6rem; padding-bottom: 0.2rem; border-bottom: 1px solid var(--rule); }
+.sub { color: var(--slate); margin: 0; }
+.headline { display: flex; flex-wrap: wrap; gap: 0.8rem; margin: 1rem 0; }
+.tile { border: 1px solid var(--rule); border-left: 4px solid var(--teal); background: #fff; padding: 0.6rem 0.9rem;
+        min-width: 11rem; }
+.tile .k { color: var(--slate); font-size: 0.8rem; text-transform: uppercase; letter-spacing: 0.06em; }
+.tile .v { font-size: 1.35rem; font-weight: bold; }
+.tile .iv { color: var(--slate); font-size: 0.85rem; }
+table { border-collapse: collapse; margin: 0.4rem 0 1rem; font-size: 0.9rem; }
+th, td { padding: 0.28rem 0.7rem; border-bottom: 1px solid var(--rule); text-align: right; vertical-align: top; }
+th { color: var(--slate); font-weight: normal; border-bottom: 1px solid var(--slate); }
+td:first-child, th:first-child { text-align: left; }
+td.text, th.text { text-align: left; }
+.wide { overflow-x: auto; }
+td.iv { white-space: nowrap; }
+tr.chosen td { font-weight: bold; }
+figure { margin: 0.8rem 0 1.4rem; }
+figure img { max-width: 100%; height: auto; display: block; border: 1px solid var(--rule); }
+figcaption { color: var(--slate); font-size: 0.85rem; margin-top: 0.3rem; }
+.cautions { border-left: 4px solid var(--ochre); background: #fff; padding: 0.6rem 1rem 0.6rem 1.6rem; }
+.cautions li { margin: 0.3rem 0; }
+code, .mono { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: 0.85em; word-break: break-all; }
+footer { margin-top: 3rem; color: var(--slate); font-size: 0.8rem; }
+@media print { main { max-width: none; padding: 0; } figure, table { break-inside: avoid; } }
+"""
+
+CAPTIONS = {
+    "curve": "The OOB estimate after each number of members, all rows (dark) and each class, with the 95% "
+             "interval of all rows shaded. A small ensemble's OOB figure reads high: read the tail.",
+    "measure": "The measure this run is judged by, computed while the run went at log-spaced ensemble sizes, "
+               "with its 95% interval; the diamond is the final figure.",
+    "importance": "Left: the rise in a member's OOB error when one feature's values are shuffled among the "
+                  "rows it left out (Breiman 2001), mean over members with 95% error bars. Right: the impurity "
+                  "decrease of the feature's splits, which favours features with many distinct values.",
+    "confusion": "Rows: the true class; columns: the OOB prediction. Numbers are rows; the shade is the share "
+                 "of the true class's rows.",
+    "reliability": "Rows grouped by their OOB share of a class (ten bins; larger points hold more rows) against "
+                   "how often those rows were of that class. Points on the dashed line: the shares can be read "
+                   "as probabilities.",
+    "reliability-regression": "Each row's OOB prediction against its target; on the dashed line they agree.",
+}
+
+
+def _e(v) -> str:
+    return html.escape(str(v), quote=True)
+
+
+def _fmt(v, task="classes", digits=4) -> str:
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "-"
+    if isinstance(v, int):
+        return f"{v:,}"
+    return f"{v:.4g}" if task == "regression" else f"{v:.{digits}f}"
+
+
+def _iv(iv, task="classes", digits=4) -> str:
+    if not iv or iv[0] is None:
+        return "-"
+    return f"{_fmt(iv[0], task, digits)} – {_fmt(iv[1], task, digits)}"
+
+
+def _table(head, rows, classes=None, text_cols=()) -> str:
+    """A table; text_cols: columns aligned left; cells holding an interval do not wrap."""
+    out = ['<div class="wide"><table><thead><tr>',
+           *(f'<th class="text">{_e(h)}</th>' if j in text_cols else f"<th>{_e(h)}</th>" for j, h in enumerate(head)),
+           "</tr></thead><tbody>"]
+    for i, row in enumerate(rows):
+        cls = f' class="{classes[i]}"' if classes and classes[i] else ""
+        cells = []
+        for j, c in enumerate(row):
+            kind = "text" if j in text_cols else ("iv" if " – " in str(c) else "")
+            cells.append(f'<td class="{kind}">{_e(c)}</td>' if kind else f"<td>{_e(c)}</td>")
+        out.append(f"<tr{cls}>" + "".join(cells) + "</tr>")
+    out.append("</tbody></table></div>")
+    return "".join(out)
+
+
+def _img(fig, name: str, png: bool = False) -> str:
+    if png:
+        data, kind = F.png_bytes(fig), "image/png"
+    else:
+        data, kind = F.svg_bytes(fig), "image/svg+xml"
+    uri = f"data:{kind};base64," + base64.b64encode(data).decode("ascii")
+    return f'<img src="{uri}" alt="{_e(name)}">'
+
+
+def _figure(fig, name: str, caption: str, png: bool = False) -> str:
+    return f'<figure id="fig-{_e(name)}">{_img(fig, name, png)}<figcaption>{_e(caption)}</figcaption></figure>'
+
+
+def render(d: dict, oob) -> str:
+    """The HTML text of the report from its figures (cli.report.figures) and the run's OOB view."""
+    figs = F.all_figures(d, oob)
+    try:
+        return _page(d, figs)
+    finally:
+        F.close(figs.values())
+
+
+def _page(d: dict, figs: dict) -> str:
+    task = d["task"]
+    labels = d.get("measure_labels", {})
+    chosen = d.get("measure")
+    parts = []
+    title = f"baggr report: {d.get('target') or 'target'}"
+    parts.append(f"<header><h1><span class=\"mark\">baggr</span> report</h1>"
+                 f"<p class=\"sub\">{_e(d['path'])} &middot; {_e(d['status'])}"
+                 f"{(' (' + _e(d['reason']) + ')') if d.get('reason') else ''}</p></header>")
+    # headline tiles: the chosen measure first, then the error and the coverage
+    tiles = []
+    measures = d.get("measures") or {}
+    if chosen in measures:
+        m = measures[chosen]
+        tiles.append((labels.get(chosen, chosen), _fmt(m["value"], task), "95% interval " + _iv(m["interval"], task)))
+    if chosen not in ("error", "mse"):
+        what = "OOB error" if task == "classes" else "OOB MSE"
+        tiles.append((what, _fmt(d["oob_error"], task), "95% interval " + _iv(d["interval"], task)))
+    tiles.append(("members", f"{d['members']:,}", f"of {d['members_target']:,}" if d.get("members_target") else ""))
+    tiles.append(("rows judged", f"{d['covered']:,} of {d['rows']:,}", f"{d['uncovered']:,} never left out"))
+    parts.append('<div class="headline">' + "".join(
+        f'<div class="tile"><div class="k">{_e(k)}</div><div class="v">{_e(v)}</div><div class="iv">{_e(s)}</div></div>'
+        for k, v, s in tiles) + "</div>")
+
+    if measures:
+        parts.append("<h2>Measures of the OOB predictions</h2>")
+        rows, marks = [], []
+        for name, m in measures.items():
+            rows.append([labels.get(name, name), _fmt(m["value"], task), _iv(m["interval"], task), m.get("method", "")])
+            marks.append("chosen" if name == chosen else "")
+        parts.append(_table(["measure", "value", "95% interval", "interval method"], rows, marks, text_cols=(3,)))
+        if d.get("measure_notes"):
+            parts.append("".join(f'<p class="sub">{_e(n)}</p>' for n in d["measure_notes"]))
+
+    if "curve" in figs:
+        parts.append("<h2>By ensemble size</h2>")
+        parts.append(_figure(figs["curve"], "curve", CAPTIONS["curve"]))
+    if "measure" in figs:
+        parts.append(_figure(figs["measure"], "measure", CAPTIONS["measure"]))
+    if d.get("curve"):
+        from baggr.cli.report import curve_sizes
+        rows = [[f"{m:,}", _fmt(d["curve"][m - 1], task), _iv(d["curve_interval"][m - 1], task)]
+                for m in curve_sizes(d["members"])]
+        parts.append(_table(["members", "OOB error" if task == "classes" else "OOB MSE", "95% interval"], rows))
+
+    if task == "classes":
+        parts.append("<h2>Per class</h2>")
+        cm = {c["class"]: c for c in d.get("class_measures") or []}
+        rows = []
+        total = sum(d["class_rows"]) or 1
+        for k, name in enumerate(d["classes"]):
+            c = cm.get(str(name), {})
+            cells = []
+            for x in ("precision", "recall", "f1"):
+                cells += [_fmt((c.get(x) or {}).get("value"), digits=3),
+                          _iv((c.get(x) or {}).get("interval"), digits=3)]
+            rows.append([name, f"{d['class_rows'][k]:,}", f"{100 * d['class_rows'][k] / total:.1f}%",
+                         _fmt(d["class_error"][k], digits=3), _iv(d["class_interval"][k], digits=3), *cells])
+        parts.append(_table(["class", "rows", "share", "OOB error", "95%", "precision", "95%", "recall", "95%",
+                             "F1", "95%"], rows))
+        parts.append('<p class="sub">Precision and recall: Wilson intervals; F1: bootstrap over rows.</p>')
+        if "confusion" in figs:
+            parts.append(_figure(figs["confusion"], "confusion", CAPTIONS["confusion"]))
+    if "reliability" in figs:
+        parts.append("<h2>Reliability</h2>" if task == "classes" else "<h2>Predictions against targets</h2>")
+        parts.append(_figure(figs["reliability"], "reliability",
+                             CAPTIONS["reliability" if task == "classes" else "reliability-regression"],
+                             png=task == "regression"))
+
+    if d.get("importance"):
+        parts.append("<h2>Feature importance</h2>")
+        if "importance" in figs:
+            parts.append(_figure(figs["importance"], "importance", CAPTIONS["importance"]))
+        imp = {r["feature"]: r for r in d.get("impurity_decrease") or []}
+        rows = [[r["feature"], _fmt(r["mean"]), _fmt(r["se"]),
+                 _fmt((imp.get(r["feature"]) or {}).get("mean")), _fmt((imp.get(r["feature"]) or {}).get("se"))]
+                for r in sorted(d["importance"], key=lambda r: -(r["mean"] or 0.0))]
+        parts.append(_table(["feature", "permutation: mean rise", "SE", "impurity decrease", "SE"], rows))
+
+    parts.append("<h2>Settings</h2>")
+    # the settings with what the data chose in place of the unset ones (cli.settings_text.settings_json)
+    parts.append(_table(["setting", "value"], [[k, "-" if v is None else v] for k, v in d["config"].items()],
+                        text_cols=(1,)))
+    parts.append("<h2>Data</h2>")
+    data = d.get("data") or {}
+    rows = [["target", d.get("target") or "-"], ["rows", f"{d['rows']:,}"]]
+    if data:
+        rows += [["file", data.get("path")], ["bytes", f"{data.get('bytes'):,}" if data.get("bytes") else "-"],
+                 ["SHA-256", data.get("sha256")]]
+    if d.get("version"):
+        rows.append(["made by", f"baggr {d['version']}, {d.get('created')}"])
+    parts.append(_table(["", ""], rows, text_cols=(1,)))
+
+    parts.append('<h2>Read with care</h2><ul class="cautions">' +
+                 "".join(f"<li>{_e(c)}</li>" for c in d.get("cautions") or []) + "</ul>")
+    parts.append('<footer>Made by baggr from the run\'s own files; this page loads nothing from anywhere.</footer>')
+    body = "\n".join(parts)
+    return (f'<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+            f'<meta name="viewport" content="width=device-width, initial-scale=1">'
+            f'<meta http-equiv="Content-Security-Policy" content="default-src \'none\'; img-src data:; '
+            f'style-src \'unsafe-inline\'">'
+            f"<title>{_e(title)}</title><style>{STYLE}</style></head>"
+            f"<body><main>\n{body}\n</main></body></html>\n")
+
+
+def write_figures(d: dict, oob, folder) -> list:
+    """Write every figure as PNG and SVG into folder; returns the paths written."""
+    from pathlib import Path
+    folder = Path(folder)
+    figs = F.all_figures(d, oob)
+    out = []
+    try:
+        for name, fig in figs.items():
+            for ext, data in (("svg", F.svg_bytes(fig)), ("png", F.png_bytes(fig, dpi=150))):
+                p = folder / f"{name}.{ext}"
+                p.write_bytes(data)
+                out.append(p)
+    finally:
+        F.close(figs.values())
+    return out

@@ -1,0 +1,93 @@
+"""The measure curve: log-spaced sizes, computed as the run goes, equal to a recount at each size."""
+import numpy as np
+import pytest
+
+import baggr
+from baggr.engine import Training
+from baggr.oob import measure_curve as mc
+from baggr.oob import measures as M
+from generators import friedman1, waveform
+
+
+def test_schedule_has_every_size_then_log_spaced_and_at_least_40_points():
+    s = mc.sizes_up_to(100_000)
+    assert s[:40] == list(range(1, 41))
+    ratios = np.array(s[41:]) / np.array(s[40:-1])
+    assert np.all(ratios > 1.0) and np.all(ratios < 1.12)        # 32 a decade: 10 ** (1/32) = 1.075
+    for m in (40, 41, 57, 100, 1000, 99_999):
+        assert len(mc.sizes_up_to(m)) >= 40
+        assert mc.sizes_up_to(m) == [b for b in s if b <= m]
+    for b in (1, 39, 40, 41, 99, 5000):
+        assert mc.next_size(b) == min(x for x in s if x > b)
+
+
+def _row(values, names):
+    return np.array([[values[n][0], *(values[n][1] or (np.nan, np.nan))] for n in names])
+
+
+@pytest.mark.parametrize("vote", ["hard", "shares"])
+def test_curve_points_equal_a_recount_of_a_run_of_that_size(vote):
+    # incremental equals batch: member m depends only on (seed, m), so a run of b members has
+    # the tallies the long run had after b members; its measures are the curve's point at b
+    X, y = waveform(400, seed=1)
+    cfg = baggr.Config(members=45, seed=2, vote=vote, threads=2)
+    ens = baggr.train(X, y, cfg)
+    sizes, curves = mc.curve_of(ens.oob)
+    assert sizes == mc.sizes_up_to(45)
+    names = M.CLASS_MEASURES
+    for b in (1, 7, 43):
+        small = baggr.train(X, y, cfg.replace(members=b))
+        got = np.array([curves[n][sizes.index(b)] for n in names])
+        want = M.class_measures(small.oob.arrays()["target"], small.oob.arrays()["votes"],
+                                share_bins=mc.SHARE_BINS if vote == "shares" else None)
+        want = mc.follow_estimate(want, "classes", small.oob.error, small.oob.interval)
+        np.testing.assert_allclose(got, _row(want, names), rtol=1e-12, atol=0)
+    # the final figures: the same functions on the whole run
+    final = M.of_oob(ens.oob)
+    assert final["error"][0] == pytest.approx(ens.oob.error)
+    assert set(final) == set(names)
+
+
+def test_curve_is_bit_identical_across_threads_and_a_resume():
+    X, y = friedman1(300, seed=3)
+    cfg = baggr.Config(members=50, seed=4, threads=1)
+    one = baggr.train(X, y, cfg).oob.arrays()
+    two = baggr.train(X, y, cfg.replace(threads=2)).oob.arrays()
+    t = Training(X, y, cfg.replace(threads=2))
+    t.run(until=23)
+    arrays, header = t.checkpoint()
+    again = Training(X, y, cfg.replace(threads=2))
+    again.restore({k: np.array(v) for k, v in arrays.items()}, header, list(t.trees))
+    resumed = again.run().oob.arrays()
+    for other in (two, resumed):
+        for name in ("measure_sizes", "measure_values", "measure_names", "target"):
+            np.testing.assert_array_equal(one[name], other[name])
+    assert mc.decode_names(one["measure_names"]) == list(M.REGRESSION_MEASURES)
+
+
+def test_member_events_carry_the_measures_at_the_scheduled_sizes():
+    X, y = waveform(200, seed=5)
+    seen = []
+    baggr.train(X, y, baggr.Config(members=48, seed=6),
+                on_member=lambda e: seen.append((e.member, e.journal_fields().get("measures"))))
+    with_measures = [m for m, f in seen if f is not None]
+    assert with_measures == mc.sizes_up_to(48)
+    m, f = seen[-2]   # 47: not scheduled (43, 46, 50, ...)
+    assert f is None
+    f = dict(seen)[46]
+    assert set(f) == set(M.CLASS_MEASURES) and len(f["auc"]) == 3 and 0.5 < f["auc"][0] <= 1.0
+
+
+def test_model_file_keeps_the_curve_and_rejects_a_damaged_one(tmp_path):
+    X, y = waveform(200, seed=7)
+    ens = baggr.train(X, y, baggr.Config(members=12, seed=8))
+    ens.save(tmp_path / "m.npz")
+    back = baggr.load(tmp_path / "m.npz")
+    for name in ("measure_sizes", "measure_values", "target"):
+        np.testing.assert_array_equal(back.oob.arrays()[name], ens.oob.arrays()[name])
+    from baggr.model import npzfile
+    header, arrays = npzfile.read(tmp_path / "m.npz", "model file")
+    arrays["oob_measure_sizes"] = arrays["oob_measure_sizes"][::-1].copy()
+    npzfile.write_atomic(tmp_path / "bad.npz", arrays, header)
+    with pytest.raises(baggr.ModelFileError, match="not ascending"):
+        baggr.load(tmp_path / "bad.npz")
