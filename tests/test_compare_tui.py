@@ -30,8 +30,10 @@ def comparison(tmp_path_factory):
 
 
 def last_error(run_dir):
+    """The journal's latest error: a finished run's end line carries the saved ensemble's estimate."""
     lines = [json.loads(x) for x in (run_dir / "journal.jsonl").read_text().splitlines()]
-    return [x for x in lines if x["event"] == "member"][-1]["error"]
+    end = [x for x in lines if x["event"] == "end" and "estimate" in x]
+    return end[-1]["estimate"]["error"] if end else [x for x in lines if x["event"] == "member"][-1]["error"]
 
 
 def test_board_ranks_the_candidates_by_their_journals_and_enter_opens_one(comparison):

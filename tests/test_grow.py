@@ -15,7 +15,7 @@ from baggr.model import npzfile
 from generators import friedman1, noisy_halves, waveform
 
 BAGGR = [sys.executable, "-m", "baggr.cli"]
-TIMES = {"grow_seconds", "fold_seconds", "keep_seconds", "seconds"}
+TIMES = {"grow_seconds", "fold_seconds", "keep_seconds", "seconds", "measure_seconds", "importance_seconds"}
 
 
 def _same_files(a, b):
