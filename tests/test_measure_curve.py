@@ -35,18 +35,24 @@ def test_curve_points_equal_a_recount_of_a_run_of_that_size(vote):
     sizes, curves = mc.curve_of(ens.oob)
     assert sizes == mc.sizes_up_to(45)
     names = M.CLASS_MEASURES
+    curve, band = ens.oob.curve, ens.oob.curve_interval
     for b in (1, 7, 43):
         small = baggr.train(X, y, cfg.replace(members=b))
         got = np.array([curves[n][sizes.index(b)] for n in names])
         want = M.class_measures(small.oob.arrays()["target"], small.oob.arrays()["votes"],
                                 share_bins=mc.SHARE_BINS if vote == "shares" else None)
-        # the curve's error points are the textbook OOB error after b members (the tally's curve)
-        want = mc.follow_estimate(want, "classes", small.oob.raw_error, small.oob.raw_interval)
-        np.testing.assert_allclose(got, _row(want, names), rtol=1e-12, atol=0)
-    # the final figures: the same functions on the whole run
-    final = M.of_oob(ens.oob)
-    assert final["error"][0] == pytest.approx(ens.oob.raw_error)   # the plain measure: the textbook error
+        # every measure but the error is a recount of the tallies of b members ...
+        np.testing.assert_allclose(got[1:], _row(want, names)[1:], rtol=1e-12, atol=0)
+        # ... and the error is the run's own estimate of a b-member ensemble (oob.curve, which may be
+        # corrected for the kept ensemble), so it follows that curve
+        np.testing.assert_array_equal(got[0], [curve[b - 1], *band[b - 1]])
+    # the final figures: the same functions on the whole run; the error is the view's own (estimated)
+    # one in oob.measures(), the textbook one (share of rows whose OOB vote is wrong) in of_oob
+    final = ens.oob.measures()
+    assert final["error"] == (ens.oob.error, tuple(ens.oob.interval))
     assert set(final) == set(names)
+    textbook = ens.oob.raw_curve if hasattr(ens.oob, "raw_curve") else ens.oob.curve   # before any correction
+    assert M.of_oob(ens.oob)["error"][0] == pytest.approx(textbook[-1], rel=1e-12)
 
 
 def test_curve_is_bit_identical_across_threads_and_a_resume():

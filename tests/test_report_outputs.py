@@ -63,6 +63,10 @@ def test_json_has_every_measure_with_value_and_interval(runs):
     assert [r["feature"] for r in d["importance"]] == [f"w{i}" for i in range(21)] + ["serial"]
     assert set(d["importance_by_class"]) == {"arc", "bump", "crest"}
     assert d["measure_curve"]["sizes"] == [1, 2, 3, 4] and len(d["measure_curve"]["auc"]) == 4
+    # report --measure heads a run's report by another measure; one that does not fit is one line
+    assert json.loads(_run("report", runs / "classes", "--measure", "log-loss", "--json").stdout)["measure"] == "log-loss"
+    bad = _run("report", runs / "classes", "--measure", "mae", ok=False)
+    assert bad.returncode == 2 and "does not fit classes" in bad.stderr
     r = json.loads(_run("report", runs / "regression", "--json").stdout)
     assert r["measure"] == "mae" and list(r["measures"]) == ["mse", "rmse", "mae", "r2"]
     assert r["measures"]["mse"]["value"] == r["oob_error"]

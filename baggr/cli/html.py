@@ -201,7 +201,7 @@ def _page(d: dict, figs: dict) -> str:
 
     parts.append("<h2>Settings</h2>")
     # the settings with what the data chose in place of the unset ones (cli.settings_text.settings_json)
-    parts.append(_table(["setting", "value"], [[k, "-" if v is None else v] for k, v in d["config"].items()],
+    parts.append(_table(["setting", "value"], [[k.replace("_", " "), "none" if v is None else v] for k, v in d["config"].items()],
                         text_cols=(1,)))
     parts.append("<h2>Data</h2>")
     data = d.get("data") or {}

@@ -186,10 +186,22 @@ def check_arrays(a: dict, where, n_rows: int | None = None) -> None:
 
 
 def curve_of(oob) -> tuple[list, dict]:
-    """(sizes, {name: (P, 3) value, lo, hi}) of a run's OOB view; empty when it has none."""
+    """(sizes, {name: (P, 3) value, lo, hi}) of a run's OOB view; empty when it has none.
+
+    The error (classes) or the MSE and RMSE (regression) are read off the view's own curve at those
+    sizes, as it stands now: where that curve is an estimate refitted as the run went on, a point
+    stored mid-run held the estimate of its time; the view holds the final one."""
     a = oob.arrays()
     if "measure_sizes" not in a:
         return [], {}
     names = ms.task_measures(oob.task)
     v = _by_name(a, names)
-    return [int(x) for x in a["measure_sizes"]], {name: v[:, i] for i, name in enumerate(names)}
+    sizes = [int(x) for x in a["measure_sizes"]]
+    curve, band = np.asarray(oob.curve), np.asarray(oob.curve_interval)
+    for j, b in enumerate(sizes):
+        if b <= curve.shape[0]:
+            now = follow_estimate({}, oob.task, curve[b - 1], band[b - 1])
+            for name, (value, iv) in now.items():
+                i = names.index(name)
+                v[j, i] = [value, *(iv if iv is not None else (np.nan, np.nan))]
+    return sizes, {name: v[:, i] for i, name in enumerate(names)}
