@@ -13,7 +13,6 @@ kernels), Dask's own cost per task on this host, the driver's fold rate (members
 when they arrive at once), the driver's memory over members, and the cost model for 100 workers
 computed from these figures.
 """
-import dataclasses
 import os
 import pickle
 import statistics
@@ -27,7 +26,7 @@ sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."
 from bench.util import mib, twonorm  # noqa: E402
 from baggr.backends.base import Backend  # noqa: E402
 from baggr.backends.dask import Dask  # noqa: E402
-from baggr.backends.dask_worker import PackedDelta  # noqa: E402
+from baggr.backends.dask_wire import WireChunk  # noqa: E402
 from baggr.config import Config  # noqa: E402
 from baggr.engine import Training  # noqa: E402
 
@@ -166,13 +165,15 @@ def main():
     tr = Training(X, y, cfg.replace(members=64))
     grown = tr.grower.grow_chunk(range(64))
     tr.grower.release()
-    packed = [dataclasses.replace(r, delta=PackedDelta.pack(r.delta, tr.prep.n_rows)) for r in grown]
-    blobs = [pickle.dumps(r, protocol=5) for r in packed]
+    t0 = time.process_time()
+    packed = [WireChunk.pack([r], tr.prep.n_rows) for r in grown]
+    pack = (time.process_time() - t0) / len(grown)
+    blobs = [pickle.dumps(c, protocol=5) for c in packed]
     result_bytes = int(statistics.median([len(b) for b in blobs]))
-    t0 = time.perf_counter()
+    t0 = time.process_time()
     for b in blobs:
-        pickle.loads(b)
-    unpickle = (time.perf_counter() - t0) / len(blobs)
+        pickle.loads(b).unpack(0)
+    unpickle = (time.process_time() - t0) / len(blobs)
     fold_rates = []
     for keep in (True, False):
         c = cfg.replace(members=64, keep_members=keep)
@@ -183,8 +184,9 @@ def main():
         fold_rates.append((time.process_time() - t0) / 64)
     print(f"driver fold rate, CPU (64 R1 members handed over at once): kept {1 / fold_rates[0]:.0f} members/s "
           f"({1e3 * fold_rates[0]:.2f} ms each), estimate-only {1 / fold_rates[1]:.0f} members/s "
-          f"({1e3 * fold_rates[1]:.2f} ms); unpickling one member's results ({result_bytes / 1e6:.2f} MB, "
-          f"{len(pickle.dumps(grown[0], protocol=5)) / 1e6:.2f} MB before packing its votes) "
+          f"({1e3 * fold_rates[1]:.2f} ms); packing one member's results in a worker {1e3 * pack:.2f} ms CPU, "
+          f"unpickling and unpacking them in the driver ({result_bytes / 1e6:.2f} MB, "
+          f"{len(pickle.dumps(grown[0], protocol=5)) / 1e6:.2f} MB as its arrays are) "
           f"{1e3 * unpickle:.2f} ms; fold + keep inside the cluster runs {1e3 * statistics.median(fold_keep):.2f} ms")
 
     # -- 4. Dask's own cost per task on this host, and per byte of results

@@ -15,8 +15,10 @@ worker thread (the last chunks spread over all workers) and by MAX_CHUNK_BYTES o
 from __future__ import annotations
 
 import collections
+import functools
 import math
 import statistics
+import threading
 import time
 import uuid
 from dataclasses import dataclass, field
@@ -52,8 +54,9 @@ class ClusterStats:
     task_cpu: float = 0.0             # chunks' CPU time in the workers' threads
     member_seconds: float = 0.0       # members' own time (inside task_seconds)
     submit_seconds: float = 0.0       # the driver submitting chunks
-    receive_seconds: float = 0.0      # the driver receiving chunks that were done (transfer, unpickling)
+    receive_seconds: float = 0.0      # chunks done travelling to the driver (transfer, unpickling), in _prefetch
     receives: int = 0                 # chunks received done
+    result_bytes: int = 0             # the chunks' packed results (dask_wire.py)
     wall_seconds: float = 0.0         # first submit to last chunk received
     sizes: list = field(default_factory=list)      # members per chunk, in order
     gaps: list = field(default_factory=list)       # worker threads' waits between chunks of the run
@@ -72,6 +75,8 @@ class _Chunk:
     b: int
     future: object
     attempt: int = 0
+    arrived: threading.Event = field(default_factory=threading.Event)   # _prefetch has run for future
+    done: object = None          # its ChunkDone, pulled to the driver by _prefetch
 
 
 class Dask(Backend):
@@ -128,12 +133,9 @@ class Dask(Backend):
                 inflight.popleft()
                 st.wall_seconds = time.perf_counter() - t_first
                 self._learn(ch, done)
-                results, done.results = done.results, None
-                for i, r in enumerate(results):
-                    results[i] = None      # the driver holds the member being folded, not the chunk
-                    if isinstance(r.delta, dask_worker.PackedDelta):
-                        r.delta = r.delta.unpack()
-                    yield r
+                chunk, done.chunk = done.chunk, None
+                for i in range(len(chunk)):
+                    yield chunk.unpack(i)      # each member's arrays unpacked as it is folded
         except ClusterError:
             raise
         except OSError as e:     # TimeoutError is one: the run cannot go on here, but what it has is intact
@@ -154,8 +156,25 @@ class Dask(Backend):
         fut = self.client.submit(dask_worker.grow_chunk, self._token, self._data, self._grower.config, a, b,
                                  key=f"baggr-members-{a}-{b}-{self._token}-{attempt}", retries=0,
                                  priority=1 if attempt else 0)
+        ch = _Chunk(a, b, fut, attempt)
+        fut.add_done_callback(functools.partial(self._prefetch, ch))
         self.stats.submit_seconds += time.perf_counter() - t0
-        return _Chunk(a, b, fut, attempt)
+        return ch
+
+    def _prefetch(self, ch: _Chunk, fut) -> None:
+        """In Dask's callback thread, once a chunk is done: its results travel to the driver now, while
+        the main thread folds the chunks before it (else each would travel only when its turn came)."""
+        try:
+            if fut is ch.future and fut.status == "finished":
+                t0 = time.perf_counter()
+                ch.done = fut.result()
+                self.stats.receive_seconds += time.perf_counter() - t0
+                self.stats.receives += 1
+        except BaseException:   # noqa: BLE001 - the main thread asks again, and tells what went wrong
+            pass
+        finally:
+            if fut is ch.future:
+                ch.arrived.set()
 
     def _receive(self, ch: _Chunk):
         """The chunk's results; a chunk cancelled while the scheduler lives is sent again."""
@@ -165,20 +184,11 @@ class Dask(Backend):
         from distributed.scheduler import KilledWorker
         while True:
             try:
-                while True:
-                    ready = ch.future.done()
-                    t0 = time.perf_counter()
-                    try:
-                        done = ch.future.result(timeout=None if ready else POLL)   # the results travel now
-                    except TimeoutError:
-                        if ready:
-                            raise
-                        self._check_threads()
-                        continue
-                    if ready:      # the driver's own time to receive a chunk (not waiting for it)
-                        self.stats.receive_seconds += time.perf_counter() - t0
-                        self.stats.receives += 1
-                    return done
+                while not ch.arrived.wait(POLL):
+                    self._check_threads()
+                if ch.done is not None:
+                    return ch.done
+                return ch.future.result()     # the future's error, or (rarely) results _prefetch missed
             except KilledWorker as e:
                 raise ClusterError(f"members {ch.a}..{ch.b - 1} were in hand on workers that died "
                                    f"({one_line(e)}); out of memory? see the workers' logs") from None
@@ -194,7 +204,8 @@ class Dask(Backend):
                 if self._data.status != "finished":
                     self._ship()
                 new = self._submit(ch.a, ch.b, ch.attempt + 1)
-                ch.future, ch.attempt = new.future, new.attempt
+                ch.future, ch.attempt, ch.arrived, ch.done = new.future, new.attempt, new.arrived, None
+                new.future.add_done_callback(functools.partial(self._prefetch, ch))
 
     def _learn(self, ch: _Chunk, done) -> None:
         st = self.stats
@@ -203,15 +214,15 @@ class Dask(Backend):
         st.sizes.append(ch.b - ch.a)
         st.task_seconds += done.seconds
         st.task_cpu += done.cpu
-        st.member_seconds += sum(r.seconds for r in done.results)
+        st.member_seconds += done.chunk.member_seconds
         if done.gap is not None:
             st.gaps.append(done.gap)
         if done.setup is not None:
             st.setup[done.worker] = done.setup
         if done.first is not None:
             st.first[done.worker] = done.first
-        if self._bytes is None:
-            self._bytes = max(1, _result_bytes(done.results[0]))
+        st.result_bytes += int(done.chunk.buf.nbytes)
+        self._bytes = max(1, st.result_bytes // st.members)
 
     def _chunk_size(self, left: int) -> int:
         st = self.stats
@@ -294,12 +305,3 @@ class Dask(Backend):
     def __exit__(self, *exc) -> None:
         self.shutdown()
 
-
-def _result_bytes(r) -> int:
-    """Bytes of one member's result on the wire: its tree's arrays and its OOB delta."""
-    import numpy as np
-    d = r.delta
-    n = d.bits.nbytes + d.votes.nbytes if isinstance(d, dask_worker.PackedDelta) else d.rows.nbytes + d.votes.nbytes
-    if r.tree is not None:
-        n += sum(v.nbytes for v in vars(r.tree).values() if isinstance(v, np.ndarray))
-    return n

@@ -17,12 +17,10 @@ import threading
 import time
 from dataclasses import dataclass
 
-import numpy as np
-
+from baggr.backends.dask_wire import WireChunk
 from baggr.backends.member import Grower, MemberResult
 from baggr.config import Config
 from baggr.data.prepared import Prepared
-from baggr.oob.tally import MemberDelta
 
 KEEP_RUNS = 2   # Growers kept per worker process: the run in hand and the one before (e.g. a comparison)
 
@@ -36,40 +34,13 @@ _last_end: dict[int, tuple[str, float]] = {}   # worker thread -> (run token, en
 class ChunkDone:
     """A grown chunk on its way back: the members' results and how the worker spent its time."""
 
-    results: list[MemberResult]
+    chunk: WireChunk          # the members' results, packed
     seconds: float            # the chunk's wall time in the worker
     cpu: float                # the chunk's CPU time in its worker thread (below the wall time on a busy host)
     gap: float | None         # this worker thread's wait since its previous chunk of the same run
     setup: float | None       # building the run's Grower, when this chunk did it
     first: float | None       # the process's first member (numba loading or compiling its kernels)
     worker: str               # host:pid of the worker process
-
-
-@dataclass
-class PackedDelta:
-    """A member's hard votes as they travel: its OOB rows as one bit per row of the table and one byte
-    per vote, instead of 4 + 4 bytes per OOB row (on R1, 50 KB instead of 295 KB). Exact both ways."""
-
-    member: int
-    n_rows: int
-    bits: np.ndarray     # uint8: packed bits, one per row of the table, set for the OOB rows
-    votes: np.ndarray    # uint8: the class voted for each OOB row, in row order
-
-    @classmethod
-    def pack(cls, d: MemberDelta, n_rows: int):
-        """The packed delta, or d itself where packing does not pay (votes that are not classes < 256,
-        or so few OOB rows that their numbers take less room than a bit per row)."""
-        v = d.votes
-        if v.ndim != 1 or v.dtype != np.int32 or d.rows.size * 4 <= n_rows // 8 or \
-                (v.size and (v.min() < 0 or v.max() > 255)):
-            return d
-        mask = np.zeros(n_rows, np.bool_)
-        mask[d.rows] = True
-        return cls(d.member, n_rows, np.packbits(mask), v.astype(np.uint8))
-
-    def unpack(self) -> MemberDelta:
-        rows = np.flatnonzero(np.unpackbits(self.bits, count=self.n_rows)).astype(np.int32)
-        return MemberDelta(self.member, rows, self.votes.astype(np.int32))
 
 
 def grow_chunk(token: str, prep: Prepared, config: Config, a: int, b: int) -> ChunkDone:
@@ -87,11 +58,10 @@ def grow_chunk(token: str, prep: Prepared, config: Config, a: int, b: int) -> Ch
             results.append(grower.grow_member(a))
         first, _warm = results[0].seconds, True
     results.extend(grower.grow_chunk(range(a + len(results), b)))
-    for r in results:
-        r.delta = PackedDelta.pack(r.delta, prep.n_rows)     # OOB rows are ascending: packing keeps them so
+    chunk = WireChunk.pack(results, prep.n_rows)
     t_out = time.perf_counter()
     _last_end[tid] = (token, t_out)
-    return ChunkDone(results, t_out - t_in, time.thread_time() - c_in, gap, setup, first,
+    return ChunkDone(chunk, t_out - t_in, time.thread_time() - c_in, gap, setup, first,
                      f"{socket.gethostname()}:{os.getpid()}")
 
 

@@ -1,0 +1,88 @@
+"""numba kernels of the cluster's wire format (dask_wire.py): OOB rows as a bit per table row, and class
+shares as whole draw counts, both ways, in one pass each."""
+import numpy as np
+
+from baggr.jit import kernel
+
+
+@kernel
+def rows_to_bits(rows, n):
+    """uint8[ceil(n / 8)]: bit r (most significant first, as numpy's packbits) set for each r in rows."""
+    bits = np.zeros((n + 7) // 8, np.uint8)
+    for i in range(rows.shape[0]):
+        r = rows[i]
+        bits[r >> 3] |= np.uint8(128 >> (r & 7))
+    return bits
+
+
+@kernel
+def bits_to_rows(bits, n):
+    """int32: the rows whose bit is set, ascending (the inverse of rows_to_bits for ascending rows).
+    Branch-free: every row is written and the count moves on by its bit (OOB rows are about a third of
+    the table, at random: a branch per bit would be mispredicted half the time)."""
+    ones = np.zeros(256, np.int64)
+    for b in range(256):
+        ones[b] = ones[b >> 1] + (b & 1)
+    count = 0
+    for j in range(bits.shape[0]):
+        count += ones[bits[j]]
+    rows = np.empty(count + 8, np.int32)
+    k = 0
+    for j in range(bits.shape[0]):
+        b = np.int64(bits[j])
+        base = 8 * j
+        for t in range(8):
+            rows[k] = base + t
+            k += (b >> (7 - t)) & 1
+    k = min(k, count)
+    while k > 0 and rows[k - 1] >= n:     # bits past n (none from rows_to_bits)
+        k -= 1
+    return rows[:k]
+
+
+@kernel
+def shares_to_counts(value, weight):
+    """(counts int32 [n, C], exact): each share times its node's weight, rounded, when every count over
+    the weight gives back the share bit for bit; and whether each node's counts add up to its weight."""
+    n, c = value.shape
+    counts = np.empty((n, c), np.int32)
+    scratch = np.empty(1, np.float64)
+    bits = scratch.view(np.uint64)
+    vbits = value.view(np.uint64)
+    sums_to_weight = True
+    for v in range(n):
+        w = weight[v]
+        if w <= 0:
+            return counts, False, False
+        wf = np.float64(w)
+        total = 0
+        for k in range(c):
+            x = np.rint(value[v, k] * wf)
+            if not (x >= 0.0 and x <= wf):
+                return counts, False, False
+            scratch[0] = x / wf
+            if bits[0] != vbits[v, k]:
+                return counts, False, False
+            counts[v, k] = np.int32(x)
+            total += counts[v, k]
+        if total != w:
+            sums_to_weight = False
+    return counts, True, sums_to_weight
+
+
+@kernel
+def counts_to_shares(counts, weight, c):
+    """float64 [n, c]: counts over weight; counts holds c columns, or c - 1 (the last is the weight less
+    the others)."""
+    n = counts.shape[0]
+    held = counts.shape[1]
+    value = np.empty((n, c), np.float64)
+    for v in range(n):
+        wf = np.float64(weight[v])
+        rest = np.int64(weight[v])
+        for k in range(held):
+            value[v, k] = np.float64(counts[v, k]) / wf
+            rest -= counts[v, k]
+        if held < c:
+            value[v, c - 1] = np.float64(rest) / wf
+    return value
