@@ -259,6 +259,9 @@ def same_run(rd, reference):
     ra, rb = (report.figures(report.load(d)) for d in (rd, reference))     # what `report --json` prints
     for k in ("elapsed", "path", "created"):
         ra.pop(k), rb.pop(k)
+    grown = ra["config"].pop("cluster", None)     # where the members grew: said by the cluster's run only
+    assert "cluster" not in rb["config"] and grown is not None and grown["address"].startswith("tcp://")
+    ra["config"]["threads"] = rb["config"]["threads"]
     assert ra == rb
     a, b = journal.read_state(rd), journal.read_state(reference)
     assert a.status == "finished" and list(a.curve_error) == list(b.curve_error)
@@ -273,7 +276,13 @@ def test_command_on_a_local_cluster_same_as_threads(medium):
     same_run(rd, reference)
     start = next(ev for ev in journal.JournalReader(rd / "journal.jsonl").read_new() if ev["event"] == "start")
     assert start["cluster"] == "local:1" and start["cluster_address"].startswith("tcp://127.0.0.1:")
-    assert start["cluster_threads"] == 1
+    assert start["cluster_threads"] == 1 and start["cluster_workers"] == 1
+    # the dashboard's state and the report say where the members grew
+    st = journal.read_state(rd)
+    assert st.cluster == {"option": "local:1", "address": start["cluster_address"], "workers": 1, "threads": 1}
+    text = baggr_cli("report", rd, env={"COLUMNS": "200"}).stdout
+    line = next(x for x in text.splitlines() if "grown on" in x)
+    assert f"local Dask cluster {start['cluster_address']} (1 worker, 1 thread)" in line
 
 
 @pytest.fixture
@@ -323,6 +332,51 @@ def test_scheduler_killed_stops_cleanly_and_resumes_identically(medium, own_sche
     starts = [ev for ev in journal.JournalReader(rd / "journal.jsonl").read_new() if ev["event"] == "start"]
     assert [s.get("cluster") for s in starts] == [address, cluster.address] and starts[1]["resumed"]
     same_run(rd, reference)
+
+
+def test_candidates_sharing_a_table_ship_it_once(cluster):
+    """Two candidates on one binned table, grown in alternate blocks on the cluster (as a comparison
+    grows them): the table is shipped once, each candidate's Grower kept on the workers between its
+    blocks, and both end the same as on threads."""
+    X, y = twonorm(3000, seed=12)
+    first = Training(X, y, Config(members=30, seed=3, threads=2, features_per_split=2))
+    prep = first.prep
+    second = Training(None, None, Config(members=30, seed=3, threads=2, features_per_split=6), prepared=prep)
+    shipped = cluster.shipped
+    for until in (10, 20, 30):
+        a = first.run(until=until, backend=cluster)
+        b = second.run(until=until, backend=cluster)
+    assert cluster.shipped == shipped + 1
+    for tr, ens in ((first, a), (second, b)):
+        assert_same(Training(X, y, tr.config).run(), ens)
+
+
+def test_comparison_on_the_cluster_same_as_threads(medium, cluster, tmp_path):
+    """`baggr compare --cluster ADDRESS`: every candidate's members grow on the cluster (here the module's
+    scheduler, reached by its address) and each candidate ends as on local threads, bit for bit."""
+    from baggr.cli import compare_report
+    from baggr.cli.main import main
+    data, _ = medium
+    args = ("compare", data, "--target", "label", "--features-per-split", "1,3", "--min-leaf", "1,8",
+            "--members", 24, "--block", 8, "--threads", 2, "--no-ui")
+    assert main([str(a) for a in (*args, "--run-dir", tmp_path / "threads")]) == 0
+    assert main([str(a) for a in (*args, "--run-dir", tmp_path / "cluster", "--cluster", cluster.address)]) == 0
+    names = sorted(p.name for p in (tmp_path / "threads").iterdir() if p.is_dir())
+    assert len(names) == 4 and names == sorted(p.name for p in (tmp_path / "cluster").iterdir() if p.is_dir())
+    for name in names:
+        a, b = tmp_path / "cluster" / name, tmp_path / "threads" / name
+        _, aa = npzfile.read(a / MODEL)
+        _, ab = npzfile.read(b / MODEL)
+        assert sorted(aa) == sorted(ab) and all(np.array_equal(aa[k], ab[k], equal_nan=True) for k in aa), name
+        start = next(ev for ev in journal.JournalReader(a / "journal.jsonl").read_new() if ev["event"] == "start")
+        assert start["cluster_address"] == cluster.address and start["cluster_workers"] == 2
+    ra, rb = (compare_report.to_json(compare_report.load(tmp_path / d)) for d in ("cluster", "threads"))
+    times = ("run_dir", "seconds_per_member")
+    assert [{k: v for k, v in c.items() if k not in times} for c in ra["candidates"]] == \
+        [{k: v for k, v in c.items() if k not in times} for c in rb["candidates"]]
+    start = next(ev for ev in journal.JournalReader(tmp_path / "cluster" / "journal.jsonl").read_new()
+                 if ev["event"] == "start")
+    assert start["kind"] == "comparison" and start["cluster"] == cluster.address
 
 
 def test_bad_address_is_one_line(medium, tmp_path):

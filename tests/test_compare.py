@@ -439,10 +439,3 @@ def test_a_comparison_holds_in_memory_only_the_trees_not_yet_on_disk(medium, ref
     assert len(held) == MEMBERS // BLOCK and max(held) <= 2 * BLOCK
     for name in NAMES:
         assert_same_model(cmp.path / name / MODEL, reference / name / MODEL)
-
-
-def test_resume_of_a_comparison_on_a_cluster_is_refused_in_one_line(reference, capsys):
-    """Candidates grow on local threads; an ignored --cluster would mislead."""
-    assert cli.main(["resume", str(reference), "--cluster", "local:2", "--no-ui"]) == 2
-    err = capsys.readouterr().err
-    assert err.startswith("baggr: error: a comparison grows its candidates on local threads") and err.count("\n") == 1

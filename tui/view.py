@@ -31,6 +31,7 @@ class View:
     pid: int | None = None
     pid_started: float | None = None
     host: str | None = None
+    cluster: dict | None = None     # where the members grow (journal.cluster_of); None: local threads
     resumed: bool = False
     last_checkpoint: int | None = None
     quiet_for: float | None = None  # seconds since the last journal line, while running
@@ -105,7 +106,7 @@ def make_view(state: RunState, *, run_name: str, status: str, now: float, width:
         error=state.error, interval=state.interval, class_figures=state.class_figures(),
         coverage=state.coverage, confusion=[list(r) for r in state.confusion] if state.confusion else None,
         r2=state.r2, elapsed=elapsed, rate=state.rate, eta=state.eta() if running else None,
-        pid=state.pid, pid_started=state.pid_started, host=state.host, resumed=state.resumed,
+        pid=state.pid, pid_started=state.pid_started, host=state.host, cluster=state.cluster, resumed=state.resumed,
         last_checkpoint=state.last_checkpoint,
         quiet_for=(now - state.last_t) if running and state.last_t is not None else None,
         warnings=list(state.warnings)[-3:], unreadable=malformed + state.unreadable,

@@ -94,11 +94,14 @@ class Dask(Backend):
         self._inflight: collections.deque[_Chunk] = collections.deque()
         self._data = None
         self._token = None
+        self._tokens: dict[int, tuple[Grower, str]] = {}    # id(grower) -> (grower, its token on the workers)
         self._grower: Grower | None = None
         self._bytes: int | None = None       # one member's results on the wire
         self.stats = ClusterStats()
+        self.shipped = 0                     # times a table was shipped to the workers
         self.client, self._local, self._own_client = dask_connect.connect(cluster, self.timeout)
         self.address = self.client.scheduler.address
+        self.option = cluster.strip() if isinstance(cluster, str) else None     # as the user gave it
         self.threads = self._threads()
         self._threads_at = time.monotonic()
         self._no_workers_since = None
@@ -106,6 +109,18 @@ class Dask(Backend):
     # -- connecting
     def _threads(self) -> int:
         return int(sum(self.client.nthreads().values()))
+
+    def describe(self) -> dict:
+        """Where the members grow, for a journal's start line: the option as given (local:N, an address;
+        None for a caller's Client), the scheduler's address (without credentials), its workers and
+        their threads."""
+        try:
+            workers = len(self.client.nthreads())
+        except (OSError, TimeoutError):
+            workers = None
+        return {"cluster": dask_connect.shown_address(self.option or self.address),
+                "cluster_address": dask_connect.shown_address(self.address),
+                "cluster_workers": workers, "cluster_threads": self.threads}
 
     def _note(self, text: str) -> None:
         if self.on_note is not None:
@@ -115,11 +130,10 @@ class Dask(Backend):
     def members(self, grower: Grower, start: int, stop: int):
         if start >= stop:
             return
-        self._grower, self._token = grower, uuid.uuid4().hex[:16]
         st = self.stats = ClusterStats(address=self.address, threads=self.threads)
         self._bytes = None
         try:
-            self._ship()
+            self._switch(grower)
             t_first = time.perf_counter()
             inflight, nxt = self._inflight, start
             while nxt < stop or inflight:
@@ -143,11 +157,28 @@ class Dask(Backend):
                 raise self._lost_error(e) from None
             raise ClusterLostError(f"the cluster at {self.address} failed ({type(e).__name__}: {one_line(e)})") from None
 
+    def _switch(self, grower: Grower) -> None:
+        """Make `grower` the one whose members are sent. Each grower (a run, or a comparison's candidate,
+        which grows in blocks) keeps one token, under which the workers keep its Grower; the table is
+        shipped again only for other data than the workers hold (a comparison's candidates share it)."""
+        if self._grower is grower and self._data is not None:
+            return
+        token = self._tokens.get(id(grower))
+        if token is None or token[0] is not grower:
+            token = self._tokens[id(grower)] = (grower, uuid.uuid4().hex[:16])
+        held = self._grower is not None and self._data is not None and self._data.status == "finished" \
+            and self._grower.prep is grower.prep
+        self._grower, self._token = grower, token[1]
+        if not held:
+            self._drop_data(keep=self._token)
+            self._ship()
+
     def _ship(self) -> None:
         """Scatter the codes and targets (no names, labels, levels or edges) to every worker."""
         t0 = time.perf_counter()
         prep = self._grower.prep.for_workers()
         self._data = self.client.scatter(prep, broadcast=True, hash=False)
+        self.shipped += 1
         self.stats.ship_seconds += time.perf_counter() - t0
         self.stats.ship_bytes = int(prep.codes.nbytes + prep.y_class.nbytes + prep.y_value.nbytes)
 
@@ -276,26 +307,40 @@ class Dask(Backend):
 
     # -- ending
     def close(self) -> None:
-        """Cancel the chunks in flight, drop the scattered data and the workers' Growers of this run."""
+        """Cancel the chunks in flight. The shipped table and the workers' Growers stay for a next call
+        of members() on the same data (a comparison's next block); release() or shutdown() drops them."""
         futures = [ch.future for ch in self._inflight]
         self._inflight.clear()
-        data, token = self._data, self._token
-        self._data = self._grower = None
+        if futures and self.client is not None and self.client.status == "running":
+            try:
+                self.client.cancel(futures)
+            except (OSError, TimeoutError):
+                pass   # the scheduler is going or gone
+
+    def _drop_data(self, keep: str | None = None) -> None:
+        """Drop the shipped table and the workers' Growers of every run sent so far but `keep` (a token)."""
+        data, self._data = self._data, None
+        tokens = [t for _, t in self._tokens.values() if t != keep]
+        self._tokens = {k: v for k, v in self._tokens.items() if v[1] == keep}
         if self.client is None or self.client.status != "running":
             return
         try:
-            if futures:
-                self.client.cancel(futures)
             if data is not None:
                 data.release()
-            if token is not None:
-                self.client.run(dask_worker.forget, token, on_error="ignore")
+            if tokens:
+                self.client.run(dask_worker.forget_all, tokens, on_error="ignore")
         except (OSError, TimeoutError):
-            pass   # the scheduler is going or gone: its workers drop the run with it
+            pass   # the scheduler is going or gone: its workers drop the runs with it
+
+    def release(self) -> None:
+        """close(), and drop the shipped table and the workers' Growers."""
+        self.close()
+        self._grower = self._token = None
+        self._drop_data()
 
     def shutdown(self) -> None:
-        """close(), then close the client and the local cluster this backend started (not a caller's client)."""
-        self.close()
+        """release(), then close the client and the local cluster this backend started (not a caller's client)."""
+        self.release()
         dask_connect.close(self.client if self._own_client else None, self._local, self.timeout)
         self._own_client, self._local = False, None
 

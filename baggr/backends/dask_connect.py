@@ -51,10 +51,27 @@ def parse_address(text: str) -> tuple[str, str | int]:
     scheme, sep, rest = s.partition("://")
     if not sep:
         scheme, rest = "tcp", s
+    if "@" in rest:
+        raise ClusterError(f"a scheduler address holds no user name or password: {shown_address(text)!r} "
+                           "(Dask authenticates with TLS certificates; see the README's section on TLS)")
     host, colon, port = rest.rpartition(":")
     if scheme not in SCHEMES or not rest or "/" in rest or (colon and not (port.isdigit() and host)):
         raise ClusterError(f"not a scheduler address: {text!r} (expected tcp://HOST:PORT, tls://HOST:PORT or local:N)")
     return "address", f"{scheme}://{rest}"
+
+
+def shown_address(text: str | None) -> str | None:
+    """An address fit to write down (journal, dashboard, report): any user name or password before an
+    '@' and anything after a '?' or '#' removed (an address never needs them; a URL-minded user may
+    still type them)."""
+    if text is None:
+        return None
+    s = str(text).strip()
+    scheme, sep, rest = s.partition("://")
+    if not sep:
+        scheme, rest = "", s
+    rest = rest.split("?", 1)[0].split("#", 1)[0].rpartition("@")[2]
+    return f"{scheme}{sep}{rest}"
 
 
 def check_option(text: str) -> str:

@@ -16,6 +16,7 @@ On R1 a member goes from 0.61 MB (0.86 MB with its rows' numbers) to about 0.3 M
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -70,7 +71,7 @@ def _put(w: _Writer, a: np.ndarray) -> tuple:
 def _get(buf: np.ndarray, spec: tuple) -> np.ndarray:
     """A fresh array (not a view of buf: a kept tree must not hold its whole chunk's buffer)."""
     kind, dt, shape = spec[0], np.dtype(spec[1]), spec[2]
-    size = int(np.prod(shape, dtype=np.int64))
+    size = math.prod(shape)
     if kind == "zero":
         return np.zeros(shape, dt)
     if kind == "bits":

@@ -22,7 +22,7 @@ from baggr.backends.member import Grower, MemberResult
 from baggr.config import Config
 from baggr.data.prepared import Prepared
 
-KEEP_RUNS = 2   # Growers kept per worker process: the run in hand and the one before (e.g. a comparison)
+KEEP_RUNS = 8   # Growers kept per worker process: the run in hand and the ones before (a comparison's candidates)
 
 _growers: collections.OrderedDict[str, Grower] = collections.OrderedDict()
 _lock = threading.Lock()
@@ -85,6 +85,11 @@ def forget(token: str) -> bool:
     if g is not None:
         g.release()
     return g is not None
+
+
+def forget_all(tokens: list[str]) -> int:
+    """forget() each run of tokens; how many this worker had."""
+    return sum(forget(t) for t in tokens)
 
 
 def versions() -> dict:

@@ -91,9 +91,10 @@ def read_candidates(path) -> list[dict]:
 
 def cmd_compare(args) -> int:
     from baggr import runs
-    from baggr.cli.commands import _settings
+    from baggr.cli.commands import _cluster, _settings
     from baggr.oob import ranking
     from baggr.runs import comparison
+    cluster = _cluster(args)
     base, cands = _base_and_candidates(args)
     if args.measure is not None:
         known = ranking.CLASS_MEASURES + ranking.REGRESSION_MEASURES
@@ -107,11 +108,13 @@ def cmd_compare(args) -> int:
                                        table=table_options(args),
                                        block=args.block if args.block is not None else comparison.DEFAULT_BLOCK,
                                        measure=args.measure, force=args.force)
-    return launch(cmp, run_mode(args), fresh=True, announce=str(cmp.path))
+    return launch(cmp, run_mode(args), fresh=True, announce=str(cmp.path), cluster=cluster, debug=args.debug)
 
 
-def launch(cmp, mode: str, *, fresh: bool, announce: str | None = None) -> int:
-    """Run a comparison's job: detached and followed (a terminal), or in this process with plain lines."""
+def launch(cmp, mode: str, *, fresh: bool, announce: str | None = None, cluster: str | None = None,
+           debug: bool = False) -> int:
+    """Run a comparison's job: detached and followed (a terminal), or in this process with plain lines;
+    cluster: where every candidate's members grow (None: local threads)."""
     from baggr.runs.compare_job import ComparisonJob
     rd = cmp.rundir()
     if mode == "detached":
@@ -120,7 +123,7 @@ def launch(cmp, mode: str, *, fresh: bool, announce: str | None = None) -> int:
         if pid:
             raise runs.RunDirError(f"{rd.path} is already running (pid {pid}); watch it with: baggr watch {rd.path}")
         st, _ = rd.state()
-        proc = runs.spawn(rd)
+        proc = runs.spawn(rd, cluster=cluster)
         try:
             code = runs.wait_started(rd, proc, st.starts)
         except KeyboardInterrupt:
@@ -136,10 +139,13 @@ def launch(cmp, mode: str, *, fresh: bool, announce: str | None = None) -> int:
         if announce is not None:
             say(announce)
         return watch(cmp)
+    if cluster is not None and not debug:
+        from baggr.backends.dask_connect import quiet_logs
+        quiet_logs()     # the job says what matters in its own lines
     progress = CompareProgress(sys.stdout)
     if announce is not None:
         progress.announce = announce
-    job = ComparisonJob(cmp, progress, verify=False)
+    job = ComparisonJob(cmp, progress, verify=False, cluster=cluster)
     try:
         out = job.run()
     except BaggrError:
@@ -153,7 +159,11 @@ def launch(cmp, mode: str, *, fresh: bool, announce: str | None = None) -> int:
 def cmd_job(args) -> int:
     from baggr.runs import comparison
     from baggr.runs.compare_job import ComparisonJob
-    job = ComparisonJob(comparison.read(args.dir), CompareProgress(sys.stdout), verify=args.verify)
+    if args.cluster is not None and not args.debug:
+        from baggr.backends.dask_connect import quiet_logs
+        quiet_logs()
+    job = ComparisonJob(comparison.read(args.dir), CompareProgress(sys.stdout), verify=args.verify,
+                        cluster=args.cluster)
     out = job.run()
     say(out.message)
     return out.code
@@ -162,9 +172,8 @@ def cmd_job(args) -> int:
 def cmd_resume(args) -> int:
     from baggr import runs
     from baggr.runs import comparison
-    if getattr(args, "cluster", None):
-        raise ConfigError("a comparison grows its candidates on local threads; --cluster is not supported "
-                          "for comparisons yet (resume a candidate on a cluster with: baggr resume DIR/c1-...)")
+    from baggr.cli.commands import _cluster
+    cluster = _cluster(args)
     cmp = comparison.read(args.dir)
     rd = cmp.rundir()
     st, status = rd.state()
@@ -179,7 +188,7 @@ def cmd_resume(args) -> int:
         say(f"{rd.path} is finished ({st.reason}); nothing to resume")
         return 0
     runs.check_data(cmp.data)
-    return launch(cmp, run_mode(args), fresh=False)
+    return launch(cmp, run_mode(args), fresh=False, cluster=cluster, debug=args.debug)
 
 
 def cmd_stop(args) -> int:

@@ -250,7 +250,7 @@ def build_parser() -> Parser:
                    help="drop each tree after its OOB votes: estimates without models for scoring")
     c = add("compare", "train several candidate settings on the same data and rank them fairly",
             "baggr compare firings.csv --target outcome --features-per-split 2,4,8 --min-leaf 1,5 --members 300",
-            (listed, run_opts, table_parser(), ui),
+            (listed, run_opts, table_parser(), cluster, ui),
             "Train one candidate per combination of the listed settings (or per line of --candidates FILE) on "
             "DATA, read and binned once, with the same seed: member m of every candidate draws the same rows, "
             "so the candidates are compared on the same OOB rows with paired tests. Candidates grow in "

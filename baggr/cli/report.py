@@ -39,6 +39,7 @@ class RunReport:
     checkpoint: dict | None = None            # {"member": next member of the checkpoint, "t": when it was written}
     missing_target: int | None = None         # rows left out for a missing target (None: not recorded)
     threads: int | None = None                # the job's threads (from its journal)
+    cluster: dict | None = None               # where its latest job grew the members (journal.cluster_of)
 
     @property
     def task(self) -> str:
@@ -64,6 +65,7 @@ def load(path) -> RunReport:
     ck_m = int(ck[0].get("next_member", 0)) if ck else None
     common = dict(status=status, reason=st.reason, members_target=st.members_target or run["config"].get("members"),
                   journal_members=st.members, run=run, threads=st.threads if isinstance(st.threads, int) else None,
+                  cluster=st.cluster,
                   missing_target=_count((run.get("data") or {}).get("missing_target")))
     if ens is not None and (ck_m is None or ens.members >= ck_m):
         return RunReport(rd.path, "model", ens.oob, ens.config, ens.schema, elapsed=ens.stats.get("seconds"), **common)
@@ -208,7 +210,7 @@ def figures(r: RunReport) -> dict:
          "raw_curve_interval": [[_f(a), _f(b)] for a, b in oob.raw_curve_interval],
          "error_limit": _f(oob.error_limit), "error_limit_interval": _pair(oob.error_limit_interval),
          "members_needed": oob.members_needed, "tolerance": _f(oob.tolerance),
-         "config": settings_json(r.config, r.schema.n_features, r.task, r.threads),
+         "config": settings_json(r.config, r.schema.n_features, r.task, r.threads, r.cluster),
          "missing_target": r.missing_target, "table": r.run.get("table"), "dates": r.schema.dates,
          "target": r.run.get("target") or r.schema.target,
          "data": r.run.get("data"), "version": r.run.get("version"), "created": r.run.get("created"),
@@ -260,4 +262,5 @@ def columns_text(d: dict) -> str:
 def render(r: RunReport, console, d: dict | None = None) -> None:
     """Print the report (baggr/cli/report_text.py: the look; plain text, no markup from the data)."""
     from baggr.cli.report_text import render_text
-    render_text(r, d or figures(r), console, settings=setting_rows(r.config, r.schema.n_features, r.task, r.threads))
+    rows = setting_rows(r.config, r.schema.n_features, r.task, r.threads, r.cluster)
+    render_text(r, d or figures(r), console, settings=rows)

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from baggr.config import Config
+from baggr.runs.journal import grown_on
 
 _RULES = {"sqrt": "the square root rule", "log2": "the log2 rule", "1/3": "a third"}
 
@@ -22,8 +23,10 @@ def features_text(config: Config, n_features: int, task: str) -> str:
     return f"{k} of {n_features} features ({why})"
 
 
-def setting_rows(config: Config, n_features: int, task: str, threads: int | None = None) -> list[tuple[str, str]]:
-    """(label, value) pairs, each as `baggr train` names it, with what an unset one resolved to."""
+def setting_rows(config: Config, n_features: int, task: str, threads: int | None = None,
+                 cluster: dict | None = None) -> list[tuple[str, str]]:
+    """(label, value) pairs, each as `baggr train` names it, with what an unset one resolved to;
+    cluster: where the latest job grew the members (journal.cluster_of), None for local threads."""
     crit = config.resolved_criterion(task)
     draw = config.draw + (f", {config.draw_fraction:g} of the rows" if config.draw == "subsample" else "")
     if config.threads is not None:
@@ -41,15 +44,17 @@ def setting_rows(config: Config, n_features: int, task: str, threads: int | None
         ("vote", config.vote),
         ("task", task + (" (from the target)" if config.task is None else " (as asked)")),
         ("seed", str(config.seed)),
-        ("threads", thr),
+        ("threads", thr) if not cluster else ("grown on", grown_on(cluster)),
         ("trees kept", "yes (for baggr predict)" if config.keep_members else "no (--estimate-only)"),
         ("measure", config.measure or (("error" if task == "classes" else "mse") + " (the default)")),
         ("importance", "yes (--importance)" if config.importance else "no"),
     ]
 
 
-def settings_json(config: Config, n_features: int, task: str, threads: int | None = None) -> dict:
-    """Config.to_dict() with the values the data chose in place of the unset ones, and their rules."""
+def settings_json(config: Config, n_features: int, task: str, threads: int | None = None,
+                  cluster: dict | None = None) -> dict:
+    """Config.to_dict() with the values the data chose in place of the unset ones, and their rules;
+    with a cluster, "cluster": where the members grew (option, address, workers, threads)."""
     d = config.to_dict()
     d.update(features_per_split=config.resolved_features(n_features, task),
              features_per_split_rule=config.features_rule(task) if config.features_per_split is None
@@ -57,4 +62,6 @@ def settings_json(config: Config, n_features: int, task: str, threads: int | Non
              task=task, task_from="asked" if config.task is not None else "the target")
     if d["threads"] is None and threads:
         d["threads"] = threads
+    if cluster:
+        d["cluster"] = dict(cluster)
     return d

@@ -14,7 +14,7 @@ import socket
 import numpy as np
 
 from baggr.config import Config
-from baggr.errors import BaggrError, ConfigError
+from baggr.errors import BaggrError, ClusterLostError, ConfigError
 from baggr.runs.comparison import TARGETS, Comparison
 from baggr.runs.files import JOURNAL, STOP, write_error
 from baggr.runs.job import Job, Outcome, _terminate_torn_line, fmt_seconds
@@ -31,8 +31,9 @@ class ComparisonJob:
 
     SIGNALS = Job.SIGNALS
 
-    def __init__(self, cmp: Comparison, progress=None, *, verify: bool = True):
-        self.cmp, self.progress, self.verify = cmp, progress, verify
+    def __init__(self, cmp: Comparison, progress=None, *, verify: bool = True, cluster: str | None = None):
+        self.cmp, self.progress, self.verify, self.cluster = cmp, progress, verify, cluster
+        self.backend = None       # a Dask cluster every candidate's members grow on (None: local threads)
         self.rd = cmp.rundir()
         self.jobs = [Job(rd, None, verify=False) for rd in cmp.run_dirs()]
         self.outcomes: list[Outcome | None] = [None] * len(self.jobs)
@@ -103,6 +104,8 @@ class ComparisonJob:
                     signal.signal(sig, h)
                 except (ValueError, TypeError):
                     pass
+            if self.backend is not None:
+                self.backend.shutdown()
             for job in held:
                 job.release()
             if self.journal is not None:
@@ -111,6 +114,9 @@ class ComparisonJob:
 
     def _run(self) -> Outcome:
         cmp = self.cmp
+        if self.cluster is not None:    # before the data: a wrong address is told at once
+            from baggr.backends.dask import Dask
+            self.backend = Dask(self.cluster, on_note=self._cluster_note)
         if self.verify:
             check_data(cmp.data)
         try:
@@ -133,6 +139,8 @@ class ComparisonJob:
             return prepared[key]
 
         for i, job in enumerate(self.jobs):
+            # one cluster for all candidates: they share the binned table, shipped to the workers once
+            job.cluster, job.backend = self.cluster, self.backend
             self.outcomes[i] = job.open(prepared=prepared_for)
             if self.outcomes[i] is None:
                 job.set_aside()      # a resumed candidate's trees are on disk: one candidate's in memory at a time
@@ -168,7 +176,11 @@ class ComparisonJob:
             until = (level // block + 1) * block
             for i in active:
                 job = self.jobs[i]
-                job.advance(until, should_stop=self._should_stop)
+                try:
+                    job.advance(until, should_stop=self._should_stop)
+                except ClusterLostError:     # the candidate in hand saved its checkpoint; so do the others
+                    self._save_checkpoints()
+                    raise
                 if job.done:      # saved now: its model can be used while the others grow
                     self.outcomes[i] = job.conclude()
                     job.training.set_aside(job.training.next_member)   # its trees are in model.npz
@@ -181,6 +193,24 @@ class ComparisonJob:
             self.journal.write("round", **fields)
             if self.progress is not None:
                 self.progress.round(fields)
+
+    def _save_checkpoints(self) -> None:
+        """Every candidate's members in its checkpoint (the scheduler was lost: resume goes on from there)."""
+        for job, out in zip(self.jobs, self.outcomes):
+            ck, tr = job.checkpointer, job.training
+            if out is None and ck is not None and tr is not None:
+                ck.wait()
+                if tr.next_member > ck.member:
+                    ck.write(wait=True)
+
+    def _cluster_note(self, text: str) -> None:
+        """What the cluster backend tells (workers lost or back): the comparison journal's warnings and the progress."""
+        self._note(text)
+        if self.journal is not None:
+            try:
+                self.journal.write("warning", message=text)
+            except OSError:
+                pass
 
     def members(self) -> list[int]:
         return [job.training.next_member if job.training is not None else (o.member if o else 0)
@@ -211,6 +241,8 @@ class ComparisonJob:
                   "rows": int(prep.n_rows) if prep is not None else None,
                   "features": int(prep.codes.shape[0]) if prep is not None else None,
                   "labels": [c.label() for c in self.cmp.candidates], "members": self.members()}
+        if self.backend is not None:
+            fields.update(self.backend.describe())
         self.journal.write("start", **fields)
         self.started = True
         if self.progress is not None:

@@ -192,7 +192,7 @@ class Job:
             remove_checkpoint(rd)   # a crash may have left them after the end line
             return Outcome("finished", st.reason or "finished", st.members, st.elapsed,
                            f"{rd.path} is finished ({st.members} members); nothing to resume")
-        if self.cluster is not None:    # before the data: a wrong address is told at once
+        if self.cluster is not None and self.backend is None:   # before the data: a wrong address is told at once
             from baggr.backends.dask import Dask
             self.backend = Dask(self.cluster, on_note=self._cluster_note)
         if self.verify:
@@ -352,8 +352,7 @@ class Job:
         if resumed:
             fields["resumed"] = True
         if self.backend is not None:
-            fields.update(cluster=self.cluster, cluster_address=self.backend.address,
-                          cluster_threads=self.backend.threads)
+            fields.update(self.backend.describe())
         self.journal.write("start", **fields)
         self.started = True
         if self.progress is not None:

@@ -36,3 +36,25 @@ def dumps(event: str, fields: dict, t: float) -> str:
         return json.dumps(obj, separators=(",", ":"), allow_nan=False, default=_default)
     except ValueError:                # a NaN somewhere: the rare slow path
         return json.dumps(_clean(obj), separators=(",", ":"), allow_nan=False, default=_default)
+
+def cluster_of(start: dict) -> dict | None:
+    """A start line's cluster (None: members grown on local threads): {"option", "address", "workers", "threads"}."""
+    if not start.get("cluster"):
+        return None
+    return {"option": str(start.get("cluster")), "address": start.get("cluster_address"),
+            "workers": start.get("cluster_workers"), "threads": start.get("cluster_threads")}
+
+
+def grown_on(cluster: dict | None, threads=None) -> str:
+    """Where the members grow, in words: 'local threads (4)', 'Dask cluster tcp://10.0.0.5:8786 (3 workers,
+    12 threads)', 'local Dask cluster tcp://127.0.0.1:40123 (2 workers, 2 threads)' for local:N."""
+    if not cluster:
+        return f"local threads ({threads})" if isinstance(threads, int) else "local threads"
+    opt = cluster.get("option") or ""
+    address = cluster.get("address") or opt or "?"
+    head = ("local Dask cluster " if opt.startswith("local:") else "Dask cluster ") + str(address)
+    w, t = cluster.get("workers"), cluster.get("threads")
+    parts = [f"{w} worker" + ("" if w == 1 else "s")] if isinstance(w, int) else []
+    if isinstance(t, int):
+        parts.append(f"{t} thread" + ("" if t == 1 else "s"))
+    return head + (f" ({', '.join(parts)})" if parts else "")

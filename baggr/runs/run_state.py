@@ -12,7 +12,7 @@ from pathlib import Path
 from baggr.oob.intervals import wilson
 from baggr.runs.downsample import downsample
 from baggr.runs.files import JOURNAL
-from baggr.runs.journal_lines import END_STATUSES
+from baggr.runs.journal_lines import END_STATUSES, cluster_of
 from baggr.runs.journal_reader import JournalReader
 from baggr.runs.measure_points import MeasurePoints
 
@@ -58,6 +58,7 @@ class RunState:
         self.pid_started = None
         self.host = None
         self.threads = None
+        self.cluster = None        # where the latest start grows members: None (local threads) or cluster_of()
         self.config = None
         self.resolved = None       # the settings the data chose (the start line's "resolved")
         self.version = None
@@ -126,6 +127,7 @@ class RunState:
         self.pid_started = ev.get("pid_started")
         self.host = ev.get("host")
         self.threads = ev.get("threads")
+        self.cluster = cluster_of(ev)
         self.config = ev.get("config", self.config)
         self.resolved = ev.get("resolved", self.resolved)
         self.version = ev.get("version", self.version)
@@ -376,3 +378,4 @@ def read_state(run_dir) -> RunState:
     while reader.read_into(state.fold, 1 << 20) or reader.pending_bytes():
         pass
     return state
+

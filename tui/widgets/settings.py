@@ -3,6 +3,8 @@ from __future__ import annotations
 
 from rich.text import Text
 
+from baggr.runs.journal import grown_on
+
 from ..view import View
 from .base import Panel
 from .texttable import pairs
@@ -31,7 +33,10 @@ def _text(key: str, value, res: dict) -> str:
 
 def settings_rows(v: View) -> list[tuple[str, str]]:
     cfg, res = v.config or {}, v.resolved or {}
-    return [(label, _text(k, cfg.get(k), res)) for k, label in SHOWN if k in cfg]
+    rows = [(label, _text(k, cfg.get(k), res)) for k, label in SHOWN if k in cfg]
+    if v.cluster:     # members grown on a Dask cluster: where, in place of the local threads
+        rows = [r for r in rows if r[0] != "threads"] + [("grown on", grown_on(v.cluster))]
+    return rows
 
 
 class SettingsPanel(Panel):
