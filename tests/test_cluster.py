@@ -273,6 +273,7 @@ def test_command_on_a_local_cluster_same_as_threads(medium):
     rd = data.parent / "local1"
     r = baggr_cli(*train_args(data, rd, "--cluster", "local:1"))
     assert r.returncode == 0, r.stderr
+    assert "x 6 features (2 classes), on local Dask cluster tcp://127.0.0.1:" in r.stdout
     same_run(rd, reference)
     start = next(ev for ev in journal.JournalReader(rd / "journal.jsonl").read_new() if ev["event"] == "start")
     assert start["cluster"] == "local:1" and start["cluster_address"].startswith("tcp://127.0.0.1:")

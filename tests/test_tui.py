@@ -114,6 +114,29 @@ def test_classes_run_shows_members_error_and_each_class(tmp_path):
     run(go())
 
 
+def test_a_run_grown_on_a_cluster_says_where(tmp_path):
+    """The start line's cluster fields (written by a job growing members on Dask) become a settings row
+    in place of the local threads; a run on threads says nothing of a cluster."""
+    from tui.widgets.settings import SettingsPanel
+    path = write_journal(tmp_path / "far", 40, members_target=100)
+    lines = path.read_text().splitlines()
+    start = json.loads(lines[0])
+    start.update(cluster="tcp://10.0.0.5:8786", cluster_address="tcp://10.0.0.5:8786", cluster_workers=3,
+                 cluster_threads=12)
+    path.write_text("\n".join([json.dumps(start)] + lines[1:]) + "\n")
+    write_journal(tmp_path / "near", 40, members_target=100)
+
+    async def go(name):
+        app = Dashboard(tmp_path / name)
+        async with app.run_test(size=(140, 44)) as pilot:
+            await settle(pilot, app, caught_up(app))
+            return " ".join(widget_text(app, SettingsPanel).split())
+    far, near = run(go("far")), run(go("near"))
+    assert "grown on Dask, 3 workers scheduler tcp://10.0.0.5:8786 threads 12 on the workers" in far
+    assert "threads 2" not in far
+    assert "grown on" not in near and "Dask" not in near
+
+
 def test_regression_run_shows_mse_and_r2(tmp_path):
     path = write_journal(tmp_path / "beta", 60, members_target=200, task="regression")
     last = last_line(path)

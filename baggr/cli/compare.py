@@ -8,6 +8,7 @@ import time
 from pathlib import Path
 
 from baggr.cli.launch import discard, run_mode, say
+from baggr.cli.progress import where
 from baggr.errors import BaggrError, ConfigError
 
 LISTED = ("members", "features_per_split", "min_leaf", "depth_limit", "draw", "draw_fraction", "bins", "vote")
@@ -293,7 +294,7 @@ class CompareProgress:
         what = "regression" if self.task == "regression" else "classes"
         verb = "resuming" if f.get("first_member") else "comparing"
         self._say(f"{verb}: {f.get('candidates')} candidates on {f.get('rows')} rows x {f.get('features')} features "
-                  f"({what}), blocks of {f.get('block')} members, {f.get('threads')} threads")
+                  f"({what}), blocks of {f.get('block')} members, {where(f)}")
 
     def line(self, f: dict) -> str:
         what = "MSE" if self.task == "regression" else "error"

@@ -72,7 +72,7 @@ class PlainProgress:
         what = f"{len(start.get('classes') or [])} classes" if self.task == "classes" else "regression"
         verb = f"resuming at member {start.get('first_member')}" if start.get("resumed") else "training"
         self._say(f"{verb}: {self.target} members on {start.get('rows')} rows x {start.get('features')} features "
-                  f"({what}), {start.get('threads')} threads")
+                  f"({what}), {where(start)}")
 
     def line(self, f: dict) -> str:
         m, target = f.get("member"), self.target or 0
@@ -276,3 +276,10 @@ def follow(run_dir, progress, *, is_done=None, poll: float = 0.25, from_start: b
             continue
         time.sleep(poll)
         events = reader.read_new()
+
+
+def where(start: dict) -> str:
+    """Where a start line's members grow: '4 threads', or 'on local Dask cluster tcp://... (2 workers, 2 threads)'."""
+    from baggr.runs.journal import cluster_of, grown_on
+    cluster = cluster_of(start)
+    return f"{start.get('threads')} threads" if cluster is None else "on " + grown_on(cluster)

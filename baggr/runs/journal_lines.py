@@ -58,3 +58,16 @@ def grown_on(cluster: dict | None, threads=None) -> str:
     if isinstance(t, int):
         parts.append(f"{t} thread" + ("" if t == 1 else "s"))
     return head + (f" ({', '.join(parts)})" if parts else "")
+
+
+def grown_on_rows(cluster: dict) -> list[tuple[str, str]]:
+    """The same in short rows for a narrow panel: ('grown on', 'Dask, 3 workers'), ('scheduler',
+    'tcp://10.0.0.5:8786'), ('threads', '12 on the workers')."""
+    w, t = cluster.get("workers"), cluster.get("threads")
+    where = "local Dask" if str(cluster.get("option") or "").startswith("local:") else "Dask"
+    if isinstance(w, int):
+        where += f", {w} worker" + ("" if w == 1 else "s")
+    rows = [("grown on", where), ("scheduler", str(cluster.get("address") or cluster.get("option") or "?"))]
+    if isinstance(t, int):
+        rows.append(("threads", f"{t} on the workers"))
+    return rows

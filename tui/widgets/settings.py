@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from rich.text import Text
 
-from baggr.runs.journal import grown_on
+from baggr.runs.journal import grown_on_rows
 
 from ..view import View
 from .base import Panel
@@ -35,7 +35,7 @@ def settings_rows(v: View) -> list[tuple[str, str]]:
     cfg, res = v.config or {}, v.resolved or {}
     rows = [(label, _text(k, cfg.get(k), res)) for k, label in SHOWN if k in cfg]
     if v.cluster:     # members grown on a Dask cluster: where, in place of the local threads
-        rows = [r for r in rows if r[0] != "threads"] + [("grown on", grown_on(v.cluster))]
+        rows = [r for r in rows if r[0] != "threads"] + grown_on_rows(v.cluster)
     return rows
 
 
