@@ -10,8 +10,10 @@ one buffer, each stored in the fewest bytes that give back the same bits:
 - class shares that are whole draw counts over the node's draw weight (what the learner stores) as
   the counts, less the last class's (the weight less the others'); the shares are divided again on
   arrival, the same float division, so the same bits; checked on the worker, else sent as they are;
+- a class node's impurity (Gini or entropy of those counts) as which of the two it is, computed again
+  on arrival by the learner's own function; likewise checked on the worker;
 - the OOB rows as a bit per row of the table where that is smaller than their numbers.
-On R1 a member goes from 0.61 MB (0.86 MB with its rows' numbers) to about 0.3 MB.
+On R1 a member goes from 0.61 MB (0.86 MB with its rows' numbers) to about 0.2 MB.
 """
 from __future__ import annotations
 
@@ -23,6 +25,7 @@ import numpy as np
 
 from baggr.backends import wire_kernels as wk
 from baggr.backends.member import MemberResult
+from baggr.learn.split_kernels import ENTROPY, GINI
 from baggr.learn.tree import Tree
 from baggr.oob.tally import MemberDelta
 
@@ -83,6 +86,7 @@ def _get(buf: np.ndarray, spec: tuple) -> np.ndarray:
 
 def _put_tree(w: _Writer, t: Tree) -> dict:
     specs = {}
+    counts = None
     for name in _TREE_ARRAYS:
         a = getattr(t, name)
         if name == "right" and np.array_equal(a, np.where(t.left >= 0, t.left + 1, -1)):
@@ -93,6 +97,15 @@ def _put_tree(w: _Writer, t: Tree) -> dict:
             if exact:
                 specs[name] = ("counts", a.shape, bool(drop), _put(w, counts[:, :-1] if drop else counts))
             else:
+                counts = None
+                specs[name] = _put(w, a)
+        elif name == "impurity" and counts is not None and a.dtype == np.float64 and a.ndim == 1:
+            # a class node's impurity is a function of its counts: sent as which function, when it is
+            for crit in (GINI, ENTROPY):
+                if wk.same_bits(wk.counts_to_impurity(counts, crit), a):
+                    specs[name] = ("impurity", crit)
+                    break
+            else:
                 specs[name] = _put(w, a)
         else:
             specs[name] = _put(w, a)
@@ -101,18 +114,19 @@ def _put_tree(w: _Writer, t: Tree) -> dict:
 
 def _get_tree(buf: np.ndarray, specs: dict, visits: int) -> Tree:
     arrays = {}
-    for name in _TREE_ARRAYS:     # left before right, weight before value
+    for name in _TREE_ARRAYS:     # left before right; value and impurity once the weight is there
         s = specs[name]
         if s[0] == "next":
             left = arrays["left"]
             arrays[name] = np.where(left >= 0, left + 1, -1).astype(np.dtype(s[1]))
-        elif s[0] == "counts":
-            continue
-        else:
+        elif s[0] not in ("counts", "impurity"):
             arrays[name] = _get(buf, s)
     s = specs["value"]
     if s[0] == "counts":
-        arrays["value"] = wk.counts_to_shares(_get(buf, s[3]), arrays["weight"], s[1][1])
+        counts = wk.whole_counts(_get(buf, s[3]), arrays["weight"], s[1][1])
+        arrays["value"] = wk.counts_to_shares(counts, arrays["weight"])
+        if specs["impurity"][0] == "impurity":
+            arrays["impurity"] = wk.counts_to_impurity(counts, specs["impurity"][1])
     return Tree(**arrays, visits=visits)
 
 

@@ -3,6 +3,7 @@ shares as whole draw counts, both ways, in one pass each."""
 import numpy as np
 
 from baggr.jit import kernel
+from baggr.learn.split_kernels import wimp_counts
 
 
 @kernel
@@ -71,18 +72,57 @@ def shares_to_counts(value, weight):
 
 
 @kernel
-def counts_to_shares(counts, weight, c):
-    """float64 [n, c]: counts over weight; counts holds c columns, or c - 1 (the last is the weight less
-    the others)."""
-    n = counts.shape[0]
-    held = counts.shape[1]
+def whole_counts(held, weight, c):
+    """int32 [n, c]: the counts held, and (when they hold c - 1 columns) the last as the weight less the others."""
+    n = held.shape[0]
+    k_held = held.shape[1]
+    counts = np.empty((n, c), np.int32)
+    for v in range(n):
+        rest = np.int64(weight[v])
+        for k in range(k_held):
+            counts[v, k] = held[v, k]
+            rest -= held[v, k]
+        if k_held < c:
+            counts[v, c - 1] = np.int32(rest)
+    return counts
+
+
+@kernel
+def counts_to_shares(counts, weight):
+    """float64 [n, c]: each count over its node's weight (the learner's division)."""
+    n, c = counts.shape
     value = np.empty((n, c), np.float64)
     for v in range(n):
         wf = np.float64(weight[v])
-        rest = np.int64(weight[v])
-        for k in range(held):
+        for k in range(c):
             value[v, k] = np.float64(counts[v, k]) / wf
-            rest -= counts[v, k]
-        if held < c:
-            value[v, c - 1] = np.float64(rest) / wf
     return value
+
+
+@kernel
+def counts_to_impurity(counts, crit):
+    """float64 [n]: each node's impurity from its class counts, as the learner computes it (the counts'
+    weighted impurity over their float sum); crit: split_kernels.GINI or ENTROPY."""
+    n, c = counts.shape
+    out = np.empty(n, np.float64)
+    cnt = np.empty(c, np.float64)
+    for v in range(n):
+        w = 0.0
+        for k in range(c):
+            cnt[k] = np.float64(counts[v, k])
+            w += cnt[k]
+        out[v] = wimp_counts(cnt, c, crit) / w
+    return out
+
+
+@kernel
+def same_bits(a, b):
+    """Whether two float64 arrays of one shape hold the same bits throughout."""
+    x = a.reshape(-1).view(np.uint64)
+    y = b.reshape(-1).view(np.uint64)
+    if x.shape[0] != y.shape[0]:
+        return False
+    for i in range(x.shape[0]):
+        if x[i] != y[i]:
+            return False
+    return True
