@@ -424,3 +424,47 @@ def test_workers_get_the_drivers_read_only_flags(cluster):
     shipped = cluster.client.scatter(prep, broadcast=True, hash=False)
     seen = cluster.client.submit(_writeable, shipped, pure=False).result()
     assert seen == _writeable(prep) == {"codes": True, "y_class": False, "y_value": True}
+
+
+# ---------------------------------------------------------------- TLS
+
+def _certificate(d):
+    """A self-signed certificate for 127.0.0.1 (its own authority), made by the openssl command:
+    `cryptography`, which distributed's Security.temporary() needs, is not installed here."""
+    import shutil
+    openssl = shutil.which("openssl")
+    if openssl is None:
+        pytest.skip("neither cryptography (Security.temporary) nor the openssl command is available")
+    cert, key = d / "cert.pem", d / "key.pem"
+    subprocess.run([openssl, "req", "-x509", "-newkey", "ec", "-pkeyopt", "ec_paramgen_curve:prime256v1",
+                    "-nodes", "-keyout", key, "-out", cert, "-days", "1", "-subj", "/CN=127.0.0.1",
+                    "-addext", "subjectAltName=IP:127.0.0.1"], check=True, capture_output=True, timeout=60)
+    return str(cert), str(key)
+
+
+def test_a_tls_cluster_grows_the_same_members(tmp_path):
+    """A scheduler and worker that accept TLS only (require_encryption), reached with `tls://` and the
+    certificate settings the README gives (DASK_DISTRIBUTED__COMM__TLS__*, here through dask.config):
+    the same run as on threads. Without the settings, one line that says what is missing."""
+    import dask
+    import distributed
+    from distributed.security import Security
+    cert, key = _certificate(tmp_path)
+    sec = Security(tls_ca_file=cert, tls_scheduler_cert=cert, tls_scheduler_key=key, tls_worker_cert=cert,
+                   tls_worker_key=key, tls_client_cert=cert, tls_client_key=key, require_encryption=True)
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True, protocol="tls",
+                                  host="127.0.0.1", security=sec, dashboard_address=None,
+                                  env={"NUMBA_NUM_THREADS": "1"}) as local:
+        address = local.scheduler_address
+        assert address.startswith("tls://127.0.0.1:")
+        with pytest.raises(ClusterError) as e:
+            Dask(address, timeout=5)
+        assert f"{address} needs TLS settings" in str(e.value) and "\n" not in str(e.value)
+        X, y = labelled(2000, seed=5)
+        cfg = Config(members=12, seed=4, threads=2)
+        with dask.config.set({"distributed.comm.tls.ca-file": cert, "distributed.comm.tls.client.cert": cert,
+                              "distributed.comm.tls.client.key": key}):
+            with Dask(address, timeout=60) as backend:
+                b = Training(X, y, cfg).run(backend=backend)
+                assert backend.describe()["cluster_address"] == address and backend.shipped == 1
+        assert_same(Training(X, y, cfg).run(), b)
