@@ -152,8 +152,10 @@ def main():
           f"{statistics.median([s.task_seconds / s.member_seconds for s in rows]):.3f}")
     print(f"cost per chunk: a worker thread's wait between two chunks median {1e3 * statistics.median(gaps):.2f} ms "
           f"(p90 {1e3 * np.percentile(gaps, 90):.2f} ms, {len(gaps)} waits); submitting "
-          f"{1e3 * statistics.median([s.submit_seconds / s.chunks for s in rows]):.2f} ms; receiving a done chunk "
-          f"{1e3 * recv:.2f} ms (median chunk {chunk} members)")
+          f"{1e3 * statistics.median([s.submit_seconds / s.chunks for s in rows]):.2f} ms; pulling a done chunk to "
+          f"the driver (wall, in Dask's callback thread while the main thread folds) {1e3 * recv:.2f} ms "
+          f"(median chunk {chunk} members); results on the wire "
+          f"{statistics.median([s.result_bytes / s.members for s in rows]) / 1e6:.3f} MB a member")
     setup = [v for s in rows for v in s.setup.values()]
     first = [v for s in rows for v in s.first.values()]
     print(f"a worker's Grower, built once per run: median {1e3 * statistics.median(setup):.2f} ms "
@@ -210,7 +212,7 @@ def main():
 
     # -- 6. on paper: 100 workers of one thread each on R1
     W, link = 100, 1.25e9                        # workers; a 10 Gbit/s link, bytes/s
-    d_member = fold_rates[0] + (d1 - d0)         # driver per member: fold + keep, and receiving its bytes
+    d_member = fold_rates[0] + (d1 - d0) + unpickle   # driver per member: fold + keep, receiving and unpacking its bytes
     d_chunk = d0                                 # driver and scheduler per task
     w_chunk = w0                                 # a worker's own cost per task
     t_m = t_cpu                                  # CPU throughout: the host's load inflates wall times unevenly
