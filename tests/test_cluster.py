@@ -352,32 +352,72 @@ def test_candidates_sharing_a_table_ship_it_once(cluster):
         assert_same(Training(X, y, tr.config).run(), ens)
 
 
-def test_comparison_on_the_cluster_same_as_threads(medium, cluster, tmp_path):
-    """`baggr compare --cluster ADDRESS`: every candidate's members grow on the cluster (here the module's
-    scheduler, reached by its address) and each candidate ends as on local threads, bit for bit."""
-    from baggr.cli import compare_report
+COMPARE = ("--target", "label", "--features-per-split", "1,3", "--min-leaf", "1,8", "--members", 24, "--block", 8,
+           "--threads", 2, "--checkpoint-every", 4, "--no-ui")
+
+
+@pytest.fixture(scope="module")
+def compared(medium):
+    """A comparison of 4 candidates on local threads, to compare with."""
     from baggr.cli.main import main
     data, _ = medium
-    args = ("compare", data, "--target", "label", "--features-per-split", "1,3", "--min-leaf", "1,8",
-            "--members", 24, "--block", 8, "--threads", 2, "--no-ui")
-    assert main([str(a) for a in (*args, "--run-dir", tmp_path / "threads")]) == 0
-    assert main([str(a) for a in (*args, "--run-dir", tmp_path / "cluster", "--cluster", cluster.address)]) == 0
-    names = sorted(p.name for p in (tmp_path / "threads").iterdir() if p.is_dir())
-    assert len(names) == 4 and names == sorted(p.name for p in (tmp_path / "cluster").iterdir() if p.is_dir())
+    rd = data.parent / "compare-threads"
+    assert main([str(a) for a in ("compare", data, *COMPARE, "--run-dir", rd)]) == 0
+    return rd
+
+
+def same_comparison(rd, reference):
+    """Every candidate's model bit for bit, and the ranked figures but times."""
+    from baggr.cli import compare_report
+    names = sorted(p.name for p in reference.iterdir() if p.is_dir())
+    assert len(names) == 4 and names == sorted(p.name for p in rd.iterdir() if p.is_dir())
     for name in names:
-        a, b = tmp_path / "cluster" / name, tmp_path / "threads" / name
-        _, aa = npzfile.read(a / MODEL)
-        _, ab = npzfile.read(b / MODEL)
+        _, aa = npzfile.read(rd / name / MODEL)
+        _, ab = npzfile.read(reference / name / MODEL)
         assert sorted(aa) == sorted(ab) and all(np.array_equal(aa[k], ab[k], equal_nan=True) for k in aa), name
-        start = next(ev for ev in journal.JournalReader(a / "journal.jsonl").read_new() if ev["event"] == "start")
-        assert start["cluster_address"] == cluster.address and start["cluster_workers"] == 2
-    ra, rb = (compare_report.to_json(compare_report.load(tmp_path / d)) for d in ("cluster", "threads"))
+    ra, rb = (compare_report.to_json(compare_report.load(d)) for d in (rd, reference))
     times = ("run_dir", "seconds_per_member")
     assert [{k: v for k, v in c.items() if k not in times} for c in ra["candidates"]] == \
         [{k: v for k, v in c.items() if k not in times} for c in rb["candidates"]]
-    start = next(ev for ev in journal.JournalReader(tmp_path / "cluster" / "journal.jsonl").read_new()
-                 if ev["event"] == "start")
+    return names
+
+
+def test_comparison_on_the_cluster_same_as_threads(medium, compared, cluster, tmp_path):
+    """`baggr compare --cluster ADDRESS`: every candidate's members grow on the cluster (here the module's
+    scheduler, reached by its address) and each candidate ends as on local threads, bit for bit."""
+    from baggr.cli.main import main
+    data, _ = medium
+    rd = tmp_path / "cluster"
+    assert main([str(a) for a in ("compare", data, *COMPARE, "--run-dir", rd, "--cluster", cluster.address)]) == 0
+    for name in same_comparison(rd, compared):
+        start = next(ev for ev in journal.JournalReader(rd / name / "journal.jsonl").read_new() if ev["event"] == "start")
+        assert start["cluster_address"] == cluster.address and start["cluster_workers"] == 2
+    start = next(ev for ev in journal.JournalReader(rd / "journal.jsonl").read_new() if ev["event"] == "start")
     assert start["kind"] == "comparison" and start["cluster"] == cluster.address
+
+
+def test_comparison_survives_its_scheduler(medium, compared, own_scheduler, tmp_path):
+    """The scheduler killed mid-comparison: one line, exit 2, every candidate's members in its checkpoint;
+    `baggr resume` on local threads ends it as a comparison never interrupted."""
+    data, _ = medium
+    address, scheduler = own_scheduler
+    rd = tmp_path / "lost"
+    proc = subprocess.Popen([*BAGGR, *map(str, ("compare", data, *COMPARE, "--run-dir", rd, "--cluster", address))],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    t0 = time.monotonic()
+    while sum(journal.read_state(p).members for p in rd.glob("c*") if p.is_dir()) < 20:
+        assert proc.poll() is None and time.monotonic() - t0 < 120, proc.communicate()
+        time.sleep(0.005)
+    scheduler.send_signal(signal.SIGKILL)
+    out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 2 and err.count("\n") == 1 and "lost the Dask scheduler" in err, err
+    for p in (p for p in rd.iterdir() if p.is_dir()):
+        st = journal.read_state(p)
+        ck = json.loads((p / "checkpoint.json").read_text())["member"] if (p / "checkpoint.json").exists() else 0
+        assert ck == st.members, p.name       # nothing grown is lost
+    r = baggr_cli("resume", rd, "--no-ui")
+    assert r.returncode == 0, r.stderr
+    same_comparison(rd, compared)
 
 
 def test_bad_address_is_one_line(medium, tmp_path):
