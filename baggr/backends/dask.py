@@ -4,10 +4,13 @@ The driver connects to a scheduler (an address; `local:N`, a process cluster of 
 machine's loopback; or a Client the caller made), scatters the binned codes and targets once to every
 worker (broadcast), submits chunks of members, keeps a bounded number of chunks in flight and hands
 the results back in member order. Workers build the run's Grower once (dask_worker.py) and send back
-each member's tree and OOB delta. A member is a pure function of m, so a chunk lost with its worker
-is grown again elsewhere, and the fold, in member order, is the same as with local threads.
+each chunk's trees and OOB deltas packed in one buffer (dask_wire.py), pulled to the driver as soon as
+the chunk is done while the main thread folds the ones before. A member is a pure function of m, so a
+chunk lost with its worker is grown again elsewhere, and the fold, in member order, is the same as
+with local threads.
 
-Chunk size: after every chunk, k = ceil(o / (OVERHEAD_SHARE * t)), t the mean CPU time of a member in
+Chunk size: one member per worker thread first; after every chunk, k = ceil(o / (OVERHEAD_SHARE * t)),
+t the mean CPU time of a member in
 its worker and o the cost of one chunk to the cluster: the larger of TASK_COST, the median wait of a
 worker thread between two chunks, and the driver's time to submit one. Bounded by the members left per
 worker thread (the last chunks spread over all workers) and by MAX_CHUNK_BYTES of results.
@@ -30,7 +33,8 @@ from baggr.backends.member import Grower
 from baggr.errors import ClusterError, ClusterLostError
 
 NO_WORKERS = 60.0                 # a run with no worker for this long (and at least TIMEOUT) stops
-OVERHEAD_SHARE = 0.05             # the cluster's cost per chunk, as a share of the chunk's member time
+OVERHEAD_SHARE = 0.025            # the cluster's cost per chunk, as a share of the chunk's member time (half
+                                  # the 5%: the driver pays more per chunk than the scheduler alone)
 TASK_COST = 0.005                 # s: least CPU cost of one task, driver and worker (measured: bench/README.md)
 MAX_CHUNK = 1024
 MAX_CHUNK_BYTES = 64 << 20        # results of one chunk (trees and deltas) wait in a worker's memory
@@ -138,7 +142,10 @@ class Dask(Backend):
             inflight, nxt = self._inflight, start
             while nxt < stop or inflight:
                 self._check_threads()
-                while nxt < stop and len(inflight) < IN_FLIGHT_PER_THREAD * max(self.threads, 1):
+                # one member per worker thread until a first chunk says how long a member takes; then
+                # chunks sized by it, IN_FLIGHT_PER_THREAD per thread
+                limit = max(self.threads, 1) * (IN_FLIGHT_PER_THREAD if st.members else 1)
+                while nxt < stop and len(inflight) < limit:
                     b = min(stop, nxt + self._chunk_size(stop - nxt))
                     inflight.append(self._submit(nxt, b))
                     nxt = b
