@@ -38,7 +38,7 @@ OVERHEAD_SHARE = 0.025            # the cluster's cost per chunk, as a share of 
 TASK_COST = 0.005                 # s: least CPU cost of one task, driver and worker (measured: bench/README.md)
 MAX_CHUNK = 1024
 MAX_CHUNK_BYTES = 64 << 20        # results of one chunk (trees and deltas) wait in a worker's memory
-IN_FLIGHT_PER_THREAD = 2          # chunks submitted and not yet handed on, per worker thread
+IN_FLIGHT_PER_THREAD = 3          # chunks submitted and not yet handed on, per worker thread
 RESUBMITS = 3                     # a chunk whose future is cancelled (its data lost) is sent again
 POLL = 1.0                        # s between checks of the connection while a chunk is awaited
 
