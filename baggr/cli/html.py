@@ -18,6 +18,7 @@ STYLE = """
 body { margin: 0; background: var(--paper); color: var(--ink);
        font: 15px/1.5 "DejaVu Sans", "Segoe UI", Helvetica, Arial, sans-serif; }
 main { max-width: 60rem; margin: 0 auto; padding: 2rem 1.5rem 4rem; }
+main.broad { max-width: 70rem; }
 header { border-bottom: 3px solid var(--teal); padding-bottom: 0.8rem; margin-bottom: 1.2rem; }
 h1 { font-size: 1.55rem; margin: 0 0 0.2rem; letter-spacing: 0.01em; }
 h1 .mark { color: var(--teal); }
@@ -38,10 +39,14 @@ td.text, th.text { text-align: left; }
 td.iv { white-space: nowrap; }
 tr.chosen td { font-weight: bold; }
 figure { margin: 0.8rem 0 1.4rem; }
-figure img { max-width: 100%; height: auto; display: block; border: 1px solid var(--rule); }
+figure img { width: 100%; max-width: 60rem; height: auto; display: block; border: 1px solid var(--rule); }
 figcaption { color: var(--slate); font-size: 0.85rem; margin-top: 0.3rem; }
 .cautions { border-left: 4px solid var(--ochre); background: #fff; padding: 0.6rem 1rem 0.6rem 1.6rem; }
-.cautions li { margin: 0.3rem 0; }
+.cautions li, .notes li { margin: 0.3rem 0; }
+.verdict { border-left: 4px solid var(--teal); background: #fff; padding: 0.6rem 1rem; font-weight: bold; }
+table.ranked { font-size: 0.84rem; }
+table.ranked th, table.ranked td { padding: 0.28rem 0.45rem; }
+table.compact th, table.compact td { padding: 0.28rem 0.4rem; }
 code, .mono { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: 0.85em; word-break: break-all; }
 footer { margin-top: 3rem; color: var(--slate); font-size: 0.8rem; }
 @media print { main { max-width: none; padding: 0; } figure, table { break-inside: avoid; } }
@@ -82,16 +87,22 @@ def _iv(iv, task="classes", digits=4) -> str:
     return f"{_fmt(iv[0], task, digits)} – {_fmt(iv[1], task, digits)}"
 
 
-def _table(head, rows, classes=None, text_cols=()) -> str:
-    """A table; text_cols: columns aligned left; cells holding an interval do not wrap."""
-    out = ['<div class="wide"><table><thead><tr>',
-           *(f'<th class="text">{_e(h)}</th>' if j in text_cols else f"<th>{_e(h)}</th>" for j, h in enumerate(head)),
-           "</tr></thead><tbody>"]
+def _table(head, rows, classes=None, text_cols=(), nowrap=(), css="") -> str:
+    """A table; text_cols: columns aligned left; nowrap: columns that never wrap (cells holding an
+    interval never do); css: the table's class."""
+    nowrap = set(nowrap)
+    attr = f' class="{css}"' if css else ""
+    out = [f'<div class="wide"><table{attr}>']
+    if head:     # None: a table of label and value lines, no heads
+        out += ["<thead><tr>", *(f'<th class="text">{_e(h)}</th>' if j in text_cols else f"<th>{_e(h)}</th>"
+                                 for j, h in enumerate(head)), "</tr></thead>"]
+    out.append("<tbody>")
     for i, row in enumerate(rows):
         cls = f' class="{classes[i]}"' if classes and classes[i] else ""
         cells = []
         for j, c in enumerate(row):
-            kind = "text" if j in text_cols else ("iv" if " – " in str(c) else "")
+            kind = " ".join(k for k, on in (("text", j in text_cols),
+                                            ("iv", j in nowrap or " – " in str(c))) if on)
             cells.append(f'<td class="{kind}">{_e(c)}</td>' if kind else f"<td>{_e(c)}</td>")
         out.append(f"<tr{cls}>" + "".join(cells) + "</tr>")
     out.append("</tbody></table></div>")
@@ -211,18 +222,24 @@ def _page(d: dict, figs: dict) -> str:
                  ["SHA-256", data.get("sha256")]]
     if d.get("version"):
         rows.append(["made by", f"baggr {d['version']}, {d.get('created')}"])
-    parts.append(_table(["", ""], rows, text_cols=(1,)))
+    parts.append(_table(None, rows, text_cols=(1,)))
 
     parts.append('<h2>Read with care</h2><ul class="cautions">' +
                  "".join(f"<li>{_e(c)}</li>" for c in d.get("cautions") or []) + "</ul>")
     parts.append('<footer>Made by baggr from the run\'s own files; this page loads nothing from anywhere.</footer>')
-    body = "\n".join(parts)
+    return page(title, "\n".join(parts))
+
+
+def page(title: str, body: str, broad: bool = False) -> str:
+    """The whole document around a body: the style inside, and a rule that lets the page load
+    nothing but its own data: images."""
+    main = '<main class="broad">' if broad else "<main>"
     return (f'<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
             f'<meta name="viewport" content="width=device-width, initial-scale=1">'
             f'<meta http-equiv="Content-Security-Policy" content="default-src \'none\'; img-src data:; '
             f'style-src \'unsafe-inline\'">'
             f"<title>{_e(title)}</title><style>{STYLE}</style></head>"
-            f"<body><main>\n{body}\n</main></body></html>\n")
+            f"<body>{main}\n{body}\n</main></body></html>\n")
 
 
 def write_figures(d: dict, oob, folder) -> list:
