@@ -1,5 +1,6 @@
 """`baggr report`: the measures in --json, the per-row export (--rows, --keep), the HTML report
 (--html, opened in a real headless browser) and --figures."""
+import html
 import json
 import os
 import re
@@ -154,17 +155,17 @@ window.addEventListener('load', function () {
 </script>"""
 
 
-@pytest.mark.skipif(not os.path.exists(CHROMIUM), reason="needs Debian's chromium at /usr/bin/chromium "
-                    "(.ci/run installs it: apt-get install -y chromium)")
-@pytest.mark.parametrize("run", ["classes", "regression"])
-def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
-    page = tmp_path / "report.html"
-    _run("report", runs / run, "--html", page)
+NEEDS_CHROMIUM = pytest.mark.skipif(not os.path.exists(CHROMIUM), reason="needs Debian's chromium at /usr/bin/chromium "
+                                    "(.ci/run installs it: apt-get install -y chromium)")
+
+
+def open_in_chromium(page, tmp_path) -> tuple[str, dict]:
+    """Check that a page loads nothing from outside its file, open it in headless chromium with a
+    probe first in <head>, and return (the rendered DOM, what the probe saw)."""
     text = page.read_text()
     # nothing outside the file: every src and href is a data: URI or an anchor, no url() in the style
     assert not re.search(r"""(src|href)=["'](?!data:|#)""", text)
     assert "url(" not in text and "@import" not in text
-    assert text.count('src="data:image/') == (5 if run == "classes" else 3)
     # the probe goes first in <head>; the page's own rules stay, with inline scripts allowed for it
     probed = text.replace("<head>", "<head>" + PROBE, 1).replace("default-src 'none';",
                                                                   "default-src 'none'; script-src 'unsafe-inline';")
@@ -175,14 +176,68 @@ def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
            f"--user-data-dir={profile}", "--virtual-time-budget=10000", "--dump-dom",
            (tmp_path / "probed.html").as_uri()]
     r = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    shutil.rmtree(profile, ignore_errors=True)
     m = re.search(r"data-probe=\"([^\"]*)\"", r.stdout)
     assert m, r.stdout[:500] + r.stderr[-2000:]
     probe = json.loads(m.group(1).replace("&quot;", '"').replace("&amp;", "&"))
     assert len(probe["images"]) == text.count('src="data:image/')
     assert all(done and width > 0 for done, width in probe["images"]), probe["images"]
     assert probe["fetched"] == [] and probe["blocked"] == []
-    assert "Read with care" in r.stdout and "Measures of the OOB predictions" in r.stdout
-    shutil.rmtree(profile, ignore_errors=True)
+    return r.stdout, probe
+
+
+@NEEDS_CHROMIUM
+@pytest.mark.parametrize("run", ["classes", "regression"])
+def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
+    page = tmp_path / "report.html"
+    _run("report", runs / run, "--html", page)
+    assert page.read_text().count('src="data:image/') == (5 if run == "classes" else 3)
+    dom, _ = open_in_chromium(page, tmp_path)
+    assert "Read with care" in dom and "Measures of the OOB predictions" in dom
+
+
+@pytest.fixture(scope="module")
+def comparison(runs):
+    """Three candidates on the three-class table, ranked on log loss."""
+    out = runs / "cmp"
+    _run("compare", runs / "wave.csv", "--target", "shape", "--drop", "serial", "--features-per-split", "2,5,21",
+         "--members", "12", "--block", "6", "--measure", "log-loss", "--seed", "5", "--no-ui", "--run-dir", out)
+    return out
+
+
+@NEEDS_CHROMIUM
+def test_comparison_html_renders_offline_and_holds_the_ranked_table(comparison, tmp_path):
+    page = tmp_path / "cmp.html"
+    _run("report", comparison, "--html", page)
+    text = page.read_text()
+    assert text.count('src="data:image/') == 3          # the differences, the error curves, the log loss curves
+    dom, _ = open_in_chromium(page, tmp_path)
+    d = json.loads(_run("report", comparison, "--json").stdout)
+    ranked = re.search(r'<table class="ranked">(.*?)</table>', dom, re.S).group(1)
+    body = re.findall(r"<tr[^>]*>(.*?)</tr>", ranked.split("</thead>")[1], re.S)
+    assert len(body) == 3
+    for row, c in zip(body, d["candidates"]):
+        cells = [html.unescape(re.sub(r"<[^>]+>", "", x)) for x in re.findall(r"<td[^>]*>(.*?)</td>", row, re.S)]
+        # the JSON's figures, rounded as the page writes them (common practice, no source)
+        assert cells[1] == f"c{c['number']}" and cells[2] == str(c["settings"]["features_per_split"])
+        assert cells[4] == f"{c['value']:.4f}"
+        assert cells[5] == f"{c['interval'][0]:.4f} – {c['interval'][1]:.4f}"
+        assert cells[6] == (f"{c['members_needed']:,}" if c["members_needed"] else "-")
+        if c["difference"] is not None:
+            assert cells[8] == f"{c['difference']:+.4f}"
+            assert cells[10] == ("<0.0001" if c["p_value"] < 1e-4 else f"{c['p_value']:.4f}")
+            assert cells[11] == ("close" if c["close"] else "")
+    assert "best" in body[0] and 'class="chosen"' in ranked
+    assert "common random numbers" in dom and "winner&#x27;s curse" in text
+    assert "Holm" in dom and "SHA-256" in dom
+    sha = json.loads((comparison / "comparison.json").read_text())["data"]["sha256"]
+    assert sha in dom
+    # --figures: the same three, as PNG and SVG
+    _run("report", comparison, "--figures", tmp_path / "figs")
+    assert sorted(os.listdir(tmp_path / "figs")) == sorted(f"{n}.{e}" for n in ("curves", "measures", "differences")
+                                                           for e in ("png", "svg"))
+    bad = _run("report", comparison, "--rows", tmp_path / "r.csv", ok=False)
+    assert bad.returncode == 2 and "is a comparison" in bad.stderr
 
 
 def test_rows_number_the_file_and_keep_a_dropped_identifier(tmp_path):
