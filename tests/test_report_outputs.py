@@ -68,6 +68,15 @@ def test_json_has_every_measure_with_value_and_interval(runs):
     assert json.loads(_run("report", runs / "classes", "--measure", "log-loss", "--json").stdout)["measure"] == "log-loss"
     bad = _run("report", runs / "classes", "--measure", "mae", ok=False)
     assert bad.returncode == 2 and "does not fit classes" in bad.stderr
+    # the text report shows the per-class importance too: the leading feature's rise for each class
+    text = _run("report", runs / "classes").stdout
+    top = max(d["importance"], key=lambda r: r["mean"])["feature"]
+    line = next(x for x in text.splitlines()[text.splitlines().index(next(x for x in text.splitlines()
+                                                                          if x.strip().startswith("by class"))):]
+                if x.split() and x.split()[0] == top)
+    for c in ("arc", "bump", "crest"):
+        w = next(r for r in d["importance_by_class"][c] if r["feature"] == top)
+        assert f"{w['mean']:.3f} ± {w['se']:.3f}" in line
     r = json.loads(_run("report", runs / "regression", "--json").stdout)
     assert r["measure"] == "mae" and list(r["measures"]) == ["mse", "rmse", "mae", "r2"]
     assert r["measures"]["mse"]["value"] == r["oob_error"]
@@ -143,14 +152,18 @@ def test_figures_are_written_as_png_and_svg(runs, tmp_path):
 
 
 # Run before the page's own content: records every resource the page fetches and every load a
-# content security rule stopped, then (on load) whether each image decoded, into the DOM.
+# content security rule stopped, then (on load) whether each image decoded and each table's scrolled
+# and shown widths, into the DOM.
 PROBE = """<script>
 var blocked = [];
 document.addEventListener('securitypolicyviolation', function (e) { blocked.push(e.blockedURI); });
 window.addEventListener('load', function () {
   var imgs = Array.prototype.map.call(document.images, function (i) { return [i.complete, i.naturalWidth]; });
   var fetched = performance.getEntriesByType('resource').map(function (r) { return r.name; });
-  document.body.setAttribute('data-probe', JSON.stringify({images: imgs, fetched: fetched, blocked: blocked}));
+  var wide = Array.prototype.map.call(document.querySelectorAll('div.wide'),
+                                      function (d) { return [d.scrollWidth, d.clientWidth]; });
+  document.body.setAttribute('data-probe', JSON.stringify({images: imgs, fetched: fetched, blocked: blocked,
+                                                           wide: wide}));
 });
 </script>"""
 
@@ -173,7 +186,7 @@ def open_in_chromium(page, tmp_path) -> tuple[str, dict]:
     profile = tmp_path / "profile"
     cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
            "--disable-background-networking", "--disable-component-update", "--disable-sync",
-           f"--user-data-dir={profile}", "--virtual-time-budget=10000", "--dump-dom",
+           f"--user-data-dir={profile}", "--virtual-time-budget=10000", "--window-size=1200,900", "--dump-dom",
            (tmp_path / "probed.html").as_uri()]
     r = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
     shutil.rmtree(profile, ignore_errors=True)
@@ -183,6 +196,8 @@ def open_in_chromium(page, tmp_path) -> tuple[str, dict]:
     assert len(probe["images"]) == text.count('src="data:image/')
     assert all(done and width > 0 for done, width in probe["images"]), probe["images"]
     assert probe["fetched"] == [] and probe["blocked"] == []
+    # in a window 1200 pixels wide, no table scrolls sideways
+    assert all(scrolled <= shown for scrolled, shown in probe["wide"]), probe["wide"]
     return r.stdout, probe
 
 
@@ -194,6 +209,19 @@ def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
     assert page.read_text().count('src="data:image/') == (5 if run == "classes" else 3)
     dom, _ = open_in_chromium(page, tmp_path)
     assert "Read with care" in dom and "Measures of the OOB predictions" in dom
+    d = json.loads(_run("report", runs / run, "--json").stdout)
+    if run == "classes":
+        # error-type figures as percentages, as the screens write them (baggr.units)
+        assert f"{100 * d['oob_error']:.2f}%" in dom
+        assert f"{100 * d['measures']['balanced-error']['value']:.2f}%" in dom
+        assert f"{100 * d['class_error'][0]:.2f}%" in dom
+        # per-class importance, compactly: mean and SE of each class's rise
+        assert "Permutation importance by class" in dom
+        top = max(d["importance"], key=lambda r: r["mean"])["feature"]
+        w = next(r for r in d["importance_by_class"]["bump"] if r["feature"] == top)
+        assert f"{w['mean']:.3f} <span class=\"ivl\">± {w['se']:.3f}</span>" in dom
+    else:
+        assert f"{d['oob_error']:.4g}" in dom
 
 
 @pytest.fixture(scope="module")

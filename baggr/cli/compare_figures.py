@@ -23,11 +23,6 @@ def name(c: dict, rank: int) -> str:
     return f"c{c['number']} {c['terse']}" + (" (best)" if rank == 0 and c.get("value") is not None else "")
 
 
-def _percent_axis(ax, axis: str = "y") -> None:
-    from matplotlib.ticker import PercentFormatter
-    getattr(ax, f"{axis}axis").set_major_formatter(PercentFormatter(1.0, decimals=None))
-
-
 def _tail_limits(ax, series, members: int) -> None:
     """y limits that fit every line and band from a tenth of the ensemble on: a small ensemble's
     figure is far off the rest and would flatten the part where the candidates differ."""
@@ -66,7 +61,7 @@ def curves(cands: list, runs: list, task: str):
     _tail_limits(ax, series, members)
     what = "OOB error" if task == "classes" else "OOB MSE"
     if task == "classes":
-        _percent_axis(ax)
+        F.percent_axis(ax)
     ax.set_ylabel(what)
     ax.set_title(f"{what} by ensemble size, every candidate")
     F._legend_below(fig, ax, min(3, len(have)))
@@ -94,7 +89,7 @@ def measure_curves(cands: list, runs: list, measure: str, label: str):
     F._sizes_axis(ax, members)
     _tail_limits(ax, series, members)
     if measure in SHARES:
-        _percent_axis(ax)
+        F.percent_axis(ax)
     ax.set_ylabel(label)
     ax.set_title(f"{label} by ensemble size, every candidate")
     F._legend_below(fig, ax, min(3, len(have)))
@@ -125,7 +120,7 @@ def differences(cands: list, measure: str, label: str):
     ax.set_yticks(y, [name(c, i) for i, c in rows])
     ax.grid(axis="y", visible=False)
     if measure in SHARES:
-        _percent_axis(ax, "x")
+        F.percent_axis(ax, "x")
     ax.set_xlabel(f"{label}: candidate minus best, same rows (95% interval)")
     ax.set_title("Paired with the best")
     return fig

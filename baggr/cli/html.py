@@ -10,6 +10,7 @@ import base64
 import html
 import math
 
+from baggr import units
 from baggr.cli import figures as F
 
 STYLE = """
@@ -23,6 +24,7 @@ header { border-bottom: 3px solid var(--teal); padding-bottom: 0.8rem; margin-bo
 h1 { font-size: 1.55rem; margin: 0 0 0.2rem; letter-spacing: 0.01em; }
 h1 .mark { color: var(--teal); }
 h2 { font-size: 1.15rem; margin: 2.2rem 0 0.6rem; padding-bottom: 0.2rem; border-bottom: 1px solid var(--rule); }
+h3 { font-size: 1rem; margin: 1.4rem 0 0.4rem; }
 .sub { color: var(--slate); margin: 0; }
 .headline { display: flex; flex-wrap: wrap; gap: 0.8rem; margin: 1rem 0; }
 .tile { border: 1px solid var(--rule); border-left: 4px solid var(--teal); background: #fff; padding: 0.6rem 0.9rem;
@@ -37,9 +39,11 @@ td:first-child, th:first-child { text-align: left; }
 td.text, th.text { text-align: left; }
 .wide { overflow-x: auto; }
 td.iv { white-space: nowrap; }
+table.stacked td { line-height: 1.25; padding-top: 0.35rem; padding-bottom: 0.35rem; }
+td .ivl { color: var(--slate); font-size: 0.82em; }
 tr.chosen td { font-weight: bold; }
 figure { margin: 0.8rem 0 1.4rem; }
-figure img { width: 100%; max-width: 60rem; height: auto; display: block; border: 1px solid var(--rule); }
+figure img { max-width: 100%; height: auto; display: block; border: 1px solid var(--rule); }
 figcaption { color: var(--slate); font-size: 0.85rem; margin-top: 0.3rem; }
 .cautions { border-left: 4px solid var(--ochre); background: #fff; padding: 0.6rem 1rem 0.6rem 1.6rem; }
 .cautions li, .notes li { margin: 0.3rem 0; }
@@ -87,6 +91,39 @@ def _iv(iv, task="classes", digits=4) -> str:
     return f"{_fmt(iv[0], task, digits)} – {_fmt(iv[1], task, digits)}"
 
 
+SHARES = ("error", "balanced-error")      # error-type measures: percentages, as on the screens (baggr.units)
+
+
+class Raw(str):
+    """A table cell already written as HTML (escaped where it holds data)."""
+
+
+def _err(v, task) -> str:
+    """An OOB error as the screens write it: a percentage of rows for classes, a figure for regression."""
+    return units.percent(v, 2) if task == "classes" and v is not None else _fmt(v, task)
+
+
+def _err_iv(iv, task) -> str:
+    if not iv or iv[0] is None:
+        return "-"
+    return f"{_err(iv[0], task)} – {_err(iv[1], task)}"
+
+
+def _measure(name, v, task) -> str:
+    return units.percent(v, 2) if name in SHARES and v is not None else _fmt(v, task)
+
+
+def _measure_iv(name, iv, task) -> str:
+    if not iv or iv[0] is None:
+        return "-"
+    return f"{_measure(name, iv[0], task)} – {_measure(name, iv[1], task)}"
+
+
+def _stacked(value: str, interval: str) -> Raw:
+    """A value with its interval below it, smaller: keeps a table of many intervals narrow."""
+    return Raw(f'<span class="v">{_e(value)}</span><br><span class="ivl">{_e(interval)}</span>')
+
+
 def _table(head, rows, classes=None, text_cols=(), nowrap=(), css="") -> str:
     """A table; text_cols: columns aligned left; nowrap: columns that never wrap (cells holding an
     interval never do); css: the table's class."""
@@ -103,7 +140,8 @@ def _table(head, rows, classes=None, text_cols=(), nowrap=(), css="") -> str:
         for j, c in enumerate(row):
             kind = " ".join(k for k, on in (("text", j in text_cols),
                                             ("iv", j in nowrap or " – " in str(c))) if on)
-            cells.append(f'<td class="{kind}">{_e(c)}</td>' if kind else f"<td>{_e(c)}</td>")
+            text = c if isinstance(c, Raw) else _e(c)
+            cells.append(f'<td class="{kind}">{text}</td>' if kind else f"<td>{text}</td>")
         out.append(f"<tr{cls}>" + "".join(cells) + "</tr>")
     out.append("</tbody></table></div>")
     return "".join(out)
@@ -115,7 +153,9 @@ def _img(fig, name: str, png: bool = False) -> str:
     else:
         data, kind = F.svg_bytes(fig), "image/svg+xml"
     uri = f"data:{kind};base64," + base64.b64encode(data).decode("ascii")
-    return f'<img src="{uri}" alt="{_e(name)}">'
+    # the column's width for a full-width figure, a narrower one (the confusion map) in proportion
+    share = min(100, round(100 * fig.get_figwidth() / F.WIDTH))
+    return f'<img src="{uri}" alt="{_e(name)}" style="width: {share}%">'
 
 
 def _figure(fig, name: str, caption: str, png: bool = False) -> str:
@@ -145,10 +185,11 @@ def _page(d: dict, figs: dict) -> str:
     measures = d.get("measures") or {}
     if chosen in measures:
         m = measures[chosen]
-        tiles.append((labels.get(chosen, chosen), _fmt(m["value"], task), "95% interval " + _iv(m["interval"], task)))
+        tiles.append((labels.get(chosen, chosen), _measure(chosen, m["value"], task),
+                      "95% interval " + _measure_iv(chosen, m["interval"], task)))
     if chosen not in ("error", "mse"):
         what = "OOB error" if task == "classes" else "OOB MSE"
-        tiles.append((what, _fmt(d["oob_error"], task), "95% interval " + _iv(d["interval"], task)))
+        tiles.append((what, _err(d["oob_error"], task), "95% interval " + _err_iv(d["interval"], task)))
     tiles.append(("members", f"{d['members']:,}", f"of {d['members_target']:,}" if d.get("members_target") else ""))
     tiles.append(("rows judged", f"{d['covered']:,} of {d['rows']:,}", f"{d['uncovered']:,} never left out"))
     parts.append('<div class="headline">' + "".join(
@@ -159,7 +200,8 @@ def _page(d: dict, figs: dict) -> str:
         parts.append("<h2>Measures of the OOB predictions</h2>")
         rows, marks = [], []
         for name, m in measures.items():
-            rows.append([labels.get(name, name), _fmt(m["value"], task), _iv(m["interval"], task), m.get("method", "")])
+            rows.append([labels.get(name, name), _measure(name, m["value"], task), _measure_iv(name, m["interval"], task),
+                         m.get("method", "")])
             marks.append("chosen" if name == chosen else "")
         parts.append(_table(["measure", "value", "95% interval", "interval method"], rows, marks, text_cols=(3,)))
         if d.get("measure_notes"):
@@ -172,7 +214,7 @@ def _page(d: dict, figs: dict) -> str:
         parts.append(_figure(figs["measure"], "measure", CAPTIONS["measure"]))
     if d.get("curve"):
         from baggr.cli.report import curve_sizes
-        rows = [[f"{m:,}", _fmt(d["curve"][m - 1], task), _iv(d["curve_interval"][m - 1], task)]
+        rows = [[f"{m:,}", _err(d["curve"][m - 1], task), _err_iv(d["curve_interval"][m - 1], task)]
                 for m in curve_sizes(d["members"])]
         parts.append(_table(["members", "OOB error" if task == "classes" else "OOB MSE", "95% interval"], rows))
 
@@ -183,15 +225,14 @@ def _page(d: dict, figs: dict) -> str:
         total = sum(d["class_rows"]) or 1
         for k, name in enumerate(d["classes"]):
             c = cm.get(str(name), {})
-            cells = []
-            for x in ("precision", "recall", "f1"):
-                cells += [_fmt((c.get(x) or {}).get("value"), digits=3),
-                          _iv((c.get(x) or {}).get("interval"), digits=3)]
+            cells = [_stacked(_fmt((c.get(x) or {}).get("value"), digits=3), _iv((c.get(x) or {}).get("interval"), digits=3))
+                     for x in ("precision", "recall", "f1")]
             rows.append([name, f"{d['class_rows'][k]:,}", f"{100 * d['class_rows'][k] / total:.1f}%",
-                         _fmt(d["class_error"][k], digits=3), _iv(d["class_interval"][k], digits=3), *cells])
-        parts.append(_table(["class", "rows", "share", "OOB error", "95%", "precision", "95%", "recall", "95%",
-                             "F1", "95%"], rows))
-        parts.append('<p class="sub">Precision and recall: Wilson intervals; F1: bootstrap over rows.</p>')
+                         _stacked(_err(d["class_error"][k], task), _err_iv(d["class_interval"][k], task)), *cells])
+        parts.append(_table(["class", "rows", "share", "OOB error", "precision", "recall", "F1"], rows,
+                            nowrap=range(7), css="stacked"))
+        parts.append('<p class="sub">Each figure with its 95% interval below it. Precision and recall: Wilson '
+                     'intervals; F1: bootstrap over rows.</p>')
         if "confusion" in figs:
             parts.append(_figure(figs["confusion"], "confusion", CAPTIONS["confusion"]))
     if "reliability" in figs:
@@ -209,6 +250,9 @@ def _page(d: dict, figs: dict) -> str:
                  _fmt((imp.get(r["feature"]) or {}).get("mean")), _fmt((imp.get(r["feature"]) or {}).get("se"))]
                 for r in sorted(d["importance"], key=lambda r: -(r["mean"] or 0.0))]
         parts.append(_table(["feature", "permutation: mean rise", "SE", "impurity decrease", "SE"], rows))
+        if d.get("importance_by_class"):
+            parts.append("<h3>Permutation importance by class</h3>")
+            parts.append(_class_importance(d))
 
     parts.append("<h2>Settings</h2>")
     # the settings with what the data chose in place of the unset ones (cli.settings_text.settings_json)
@@ -228,6 +272,36 @@ def _page(d: dict, figs: dict) -> str:
                  "".join(f"<li>{_e(c)}</li>" for c in d.get("cautions") or []) + "</ul>")
     parts.append('<footer>Made by baggr from the run\'s own files; this page loads nothing from anywhere.</footer>')
     return page(title, "\n".join(parts))
+
+
+def _class_importance(d: dict, most: int = 15, widest: int = 8) -> str:
+    """Per class: the rise in that class's OOB error (mean over members, SE below), the features in the
+    overall table's order; '' when the run has no per-class figures."""
+    by = d.get("importance_by_class") or {}
+    if not by:
+        return ""
+    classes = list(by)[:widest]
+    order = [r["feature"] for r in sorted(d["importance"], key=lambda r: -(r["mean"] or 0.0))][:most]
+    look = {c: {r["feature"]: r for r in by[c]} for c in classes}
+    rows = [[f, *(_pm((look[c].get(f) or {}).get("mean"), (look[c].get(f) or {}).get("se")) for c in classes)]
+            for f in order]
+    more = []
+    if len(by) > len(classes):
+        more.append(f"{len(by) - len(classes)} more classes")
+    if len(d["importance"]) > len(order):
+        more.append(f"{len(d['importance']) - len(order)} more features")
+    note = ("By class: the rise in the class's own OOB error (the share of its rows judged wrong) when the "
+            "feature is shuffled, mean ± standard error over members"
+            + (f"; {' and '.join(more)} in --json." if more else "."))
+    return (_table(["feature", *(f"class {c}" for c in classes)], rows, nowrap=range(1, len(classes) + 1))
+            + f'<p class="sub">{_e(note)}</p>')
+
+
+def _pm(mean, se) -> Raw:
+    if mean is None:
+        return Raw("-")
+    tail = "" if se is None else f' <span class="ivl">± {se:.3f}</span>'
+    return Raw(f"{mean:.3f}{tail}")
 
 
 def page(title: str, body: str, broad: bool = False) -> str:
