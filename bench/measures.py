@@ -4,7 +4,7 @@ For R1 (twonorm 100,000 x 20, full trees, 4 features per split) and R3 (Friedman
 prints the points computed, the seconds spent on them (main thread, between folds), per point,
 and their share of member time (the members' own grow seconds, summed over threads), at one and
 two threads. Also R1 with leaf-share votes: full trees' leaves are pure, so the shares are whole
-numbers counted like hard votes; with min_leaf 5 they are fractions, summed per row in one pass.
+numbers counted like hard votes; with min_leaf 5 they are fractions, summed per row.
     python bench/measures.py [members ...]
 """
 import os

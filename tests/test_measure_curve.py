@@ -123,7 +123,6 @@ def test_curve_measures_of_leaf_shares_equal_the_obvious_computation(n_classes, 
     from scipy import stats
 
     import naive_measures as naive
-    from baggr.oob import measure_kernels as mk
     y, votes = _leaf_share_votes(3000, n_classes, step, seed=10 * n_classes + step)
     got = mc.curve_class_measures(y, votes)
     ok, s = naive.shares_of(votes)
@@ -158,13 +157,3 @@ def test_curve_measures_of_leaf_shares_equal_the_obvious_computation(n_classes, 
     exact = M.class_measures(y, votes)
     for name in ("error", "balanced-error", "log-loss", "brier"):
         np.testing.assert_allclose(got[name][1], exact[name][1], rtol=1e-12)
-    # the one-pass kernel gives the two kernels' sums and bins bit for bit
-    first = which[0]
-    a = (np.zeros(4), np.zeros(n_classes, np.int64), np.zeros(n_classes, np.int64),
-         np.zeros((len(which), 4096, 2), np.int64))
-    b = tuple(x.copy() for x in a)
-    mk.class_rows(y, votes, a[0], a[1], a[2])
-    mk.share_bins(y, votes, first, a[3])
-    mk.class_rows_binned(y, votes, first, *b)
-    for u, v in zip(a, b):
-        np.testing.assert_array_equal(u, v)

@@ -203,36 +203,3 @@ def whole_votes(votes, most):
                 return False
     return True
 
-
-@kernel
-def class_rows_binned(y, votes, first_class, sums, class_covered, class_wrong, cells):
-    """class_rows and share_bins in one pass over the rows (the measure curve's float votes): the
-    same sums, counts and bins as the two, each row read once and its OOB votes summed once."""
-    n_classes = votes.shape[1]
-    half_c = 0.5 * n_classes
-    n_bins = cells.shape[1]
-    for r in range(votes.shape[0]):
-        k = 0.0
-        best = 0
-        for c in range(n_classes):
-            k += votes[r, c]
-            if votes[r, c] > votes[r, best]:
-                best = c
-        if not k > 0.0:
-            continue
-        t = np.int64(y[r])
-        ll = -np.log((votes[r, t] + 0.5) / (k + half_c))
-        loss = 0.0
-        for c in range(n_classes):
-            d = votes[r, c] / k - (1.0 if c == t else 0.0)
-            loss += d * d
-        sums[0] += ll
-        sums[1] += ll * ll
-        sums[2] += loss
-        sums[3] += loss * loss
-        class_covered[t] += 1
-        class_wrong[t] += np.int64(best != t)
-        for a in range(cells.shape[0]):
-            c = first_class + a
-            b = min(np.int64(votes[r, c] / k * n_bins), n_bins - 1)
-            cells[a, b, np.int64(t == c)] += 1

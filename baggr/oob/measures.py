@@ -213,14 +213,11 @@ def _from_rows(y, votes, covered, wrong, share_bins=None):
     n = votes.shape[0]
     n_classes = votes.shape[1]
     sums = np.zeros(4)
-    which = _auc_classes(n_classes)
-    if share_bins:     # the per-row sums and the binned shares in one pass
-        cells = np.zeros((len(which), share_bins, 2), np.int64)
-        k.class_rows_binned(y, votes, which[0], sums, covered, wrong, cells)
-        ll, br = (float(sums[0]), float(sums[1])), (float(sums[2]), float(sums[3]))
-        return ll, br, _binned_auc(y, votes, which, share_bins, cells)
     k.class_rows(y, votes, sums, covered, wrong)
     ll, br = (float(sums[0]), float(sums[1])), (float(sums[2]), float(sums[3]))
+    which = _auc_classes(n_classes)
+    if share_bins:
+        return ll, br, _binned_auc(y, votes, which, share_bins)
     total = votes.sum(axis=1, dtype=np.float64)
     ok = total > 0
     groups, invs = [], []
@@ -240,12 +237,10 @@ def _from_rows(y, votes, covered, wrong, share_bins=None):
     return ll, br, _auc(y, which, groups, row_groups)
 
 
-def _binned_auc(y, votes, which, n_bins, cells=None):
-    """The AUC with the shares ranked in n_bins equal bins (see class_measures); cells: the bins'
-    counts (measure_kernels.share_bins) when already made."""
-    if cells is None:
-        cells = np.zeros((len(which), n_bins, 2), np.int64)
-        k.share_bins(y, votes, which[0], cells)
+def _binned_auc(y, votes, which, n_bins):
+    """The AUC with the shares ranked in n_bins equal bins (see class_measures)."""
+    cells = np.zeros((len(which), n_bins, 2), np.int64)
+    k.share_bins(y, votes, which[0], cells)
     groups, nzs = [], []
     for a in range(len(which)):
         nz = np.flatnonzero(cells[a, :, 0] + cells[a, :, 1])
