@@ -117,6 +117,13 @@ class Fmt:
         return f"{self(iv[0], signed)} – {self(iv[1], signed)}"
 
 
+def _setting(settings: dict, k: str) -> str:
+    """A candidate's value of a varied setting; '-' where it keeps the comparison's base value."""
+    if k not in settings:
+        return "-"
+    return "none" if settings[k] is None else str(settings[k])
+
+
 def _ranked_table(r) -> str:
     keys = sorted({k for c in r.candidates for k in c["settings"]},
                   key=lambda k: VARIED.index(k) if k in VARIED else 99)
@@ -127,8 +134,7 @@ def _ranked_table(r) -> str:
     for rank, c in enumerate(r.candidates):
         spm = c["seconds_per_member"]
         best = rank == 0 and c["value"] is not None
-        rows.append([str(rank + 1), f"c{c['number']}", *("none" if c["settings"].get(k) is None
-                                                         else str(c["settings"].get(k, "-")) for k in keys),
+        rows.append([str(rank + 1), f"c{c['number']}", *(_setting(c["settings"], k) for k in keys),
                      units.count(c["members"]), f(c["value"]), f.span(c["interval"]),
                      units.count(c["members_needed"]) if c["members_needed"] else "-",
                      "-" if spm is None else f"{spm:.3g}",
