@@ -43,6 +43,11 @@ def _label(r) -> str:
     return LABELS.get(r.measure, r.measure)
 
 
+def _oob(label: str) -> str:
+    """'OOB log loss', 'OOB MSE' (the label of the error and MSE says OOB already)."""
+    return label if label.startswith("OOB") else f"OOB {label}"
+
+
 def figures(r, runs: list) -> dict:
     return CF.all_figures(r.candidates, runs, r.measure, r.task, _label(r))
 
@@ -161,7 +166,7 @@ def _page(r, runs: list, figs: dict) -> str:
         f = Fmt(r.measure, [c["value"] for c in r.candidates])
         tiles.append((f"best on {label}", f"c{best['number']} {best['terse']}",
                       f"{f(best['value'])}, 95% interval {f.span(best['interval'])}"))
-    tiles.append(("candidates", f"{len(r.candidates):,}", f"ranked on OOB {label}"))
+    tiles.append(("candidates", f"{len(r.candidates):,}", f"ranked on {_oob(label)}"))
     if rows_n is not None:
         tiles.append(("rows", f"{rows_n:,}", f"target {cmp.target}"))
     parts.append('<div class="headline">' + "".join(
@@ -169,7 +174,7 @@ def _page(r, runs: list, figs: dict) -> str:
         f'<div class="iv">{H._e(s)}</div></div>' for k, v, s in tiles) + "</div>")
     parts.append(f'<p class="verdict">{H._e(r.verdict)}</p>')
 
-    parts.append(f"<h2>Ranked on OOB {H._e(label)}, best first</h2>")
+    parts.append(f"<h2>Ranked on {H._e(_oob(label))}, best first</h2>")
     parts.append(_ranked_table(r))
     methods = sorted({c["method"] for c in r.candidates if c.get("method")})
     legend = "; ".join(f"{TERSE.get(k, k)} = {k.replace('_', ' ')}" for k in sorted({k for c in r.candidates
