@@ -93,6 +93,7 @@ def test_chunks_travel_exactly():
              (X, y, Config(members=4, seed=2, vote="shares", keep_members=False)),
              (X, y, Config(members=4, seed=2, importance=True, min_leaf=5)),
              (Xc, y, Config(members=4, seed=2)),
+             (X, y, Config(members=3, seed=2, criterion="entropy")),
              (*friedman1(700, seed=1), Config(members=3, seed=1, min_leaf=2))]
     for X_, y_, cfg in cases:
         results, n = _grown(X_, y_, cfg, range(5, 5 + cfg.members))
@@ -102,6 +103,10 @@ def test_chunks_travel_exactly():
         assert len(chunk) == len(results)
         for i, r in enumerate(results):
             _same_result(r, chunk.unpack(i))
+        if y_ is y and cfg.keep_members:
+            # class trees (Gini or entropy): shares and impurity went as counts and a function of them
+            specs = [m["tree"][0] for m in chunk.members]
+            assert all(t["value"][0] == "counts" and t["impurity"][0] == "impurity" for t in specs)
     # where the packing's assumptions fail, arrays travel as they are
     results, n = _grown(X, y, Config(members=1, seed=2), range(1))
     t = results[0].tree

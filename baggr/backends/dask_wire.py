@@ -33,8 +33,8 @@ from baggr.learn.tree import Tree
 from baggr.oob.tally import MemberDelta
 
 ALIGN = 8
-_NARROW = (np.dtype(np.uint8), np.dtype(np.int8), np.dtype(np.uint16), np.dtype(np.int16), np.dtype(np.uint32),
-           np.dtype(np.int32))
+_NARROW = tuple((d, int(np.iinfo(d).min), int(np.iinfo(d).max)) for d in map(np.dtype, (
+    np.uint8, np.int8, np.uint16, np.int16, np.uint32, np.int32)))
 _TREE_ARRAYS = tuple(f.name for f in dataclasses.fields(Tree) if f.name != "visits")
 
 
@@ -71,8 +71,8 @@ def _put(w: _Writer, a: np.ndarray) -> tuple:
             return ("bits", dt, shape, w.put(np.packbits(a.reshape(-1) != 0)))
         # a small range above a negative floor (-1 for "none") moves up to start at 0: one byte, not two
         shift = lo if lo < 0 and hi - lo < 1 << 16 and a.dtype.kind == "i" else 0
-        for d in _NARROW:
-            if d.itemsize < a.dtype.itemsize and np.iinfo(d).min <= lo - shift and hi - shift <= np.iinfo(d).max:
+        for d, d_min, d_max in _NARROW:
+            if d.itemsize < a.dtype.itemsize and d_min <= lo - shift and hi - shift <= d_max:
                 return ("narrow", dt, shape, w.put((a - a.dtype.type(shift) if shift else a).astype(d)), d.str, shift)
     return ("raw", dt, shape, w.put(a))
 
