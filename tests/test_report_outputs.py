@@ -209,6 +209,10 @@ def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
     assert page.read_text().count('src="data:image/') == (5 if run == "classes" else 3)
     dom, _ = open_in_chromium(page, tmp_path)
     assert "Read with care" in dom and "Measures of the OOB predictions" in dom
+    # settings in the command's words: yes/no and none, not Python's True/False/None (common practice, no source)
+    settings = dom[dom.index("<h2>Settings</h2>"):dom.index("<h2>Data</h2>")]
+    assert ">True<" not in settings and ">False<" not in settings and ">None<" not in settings
+    assert ">yes<" in settings
     d = json.loads(_run("report", runs / run, "--json").stdout)
     if run == "classes":
         # error-type figures as percentages, as the screens write them (baggr.units)

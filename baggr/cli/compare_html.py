@@ -126,7 +126,7 @@ def _setting(settings: dict, k: str) -> str:
     """A candidate's value of a varied setting; '-' where it keeps the comparison's base value."""
     if k not in settings:
         return "-"
-    return "none" if settings[k] is None else str(settings[k])
+    return H.setting_text(settings[k])
 
 
 def _ranked_table(r) -> str:
@@ -202,7 +202,7 @@ def _page(r, runs: list, figs: dict) -> str:
     first = next((d for d in runs if d), None)
     if first is not None:
         varied = {k for c in r.candidates for k in c["settings"]}
-        shared = [[k.replace("_", " "), r.measure if k == "measure" else ("none" if v is None else v)]
+        shared = [[k.replace("_", " "), r.measure if k == "measure" else H.setting_text(v)]
                   for k, v in first["config"].items() if not any(k.startswith(x) for x in varied)]
         parts.append("<h2>Settings shared by all candidates</h2>")
         parts.append(H._table(["setting", "value"], shared, text_cols=(1,)))

@@ -77,6 +77,15 @@ def _e(v) -> str:
     return html.escape(str(v), quote=True)
 
 
+def setting_text(v) -> str:
+    """A setting's value in the command's words: none, yes/no, else as written."""
+    if v is None:
+        return "none"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    return str(v)
+
+
 def _fmt(v, task="classes", digits=4) -> str:
     if v is None or (isinstance(v, float) and not math.isfinite(v)):
         return "-"
@@ -256,7 +265,7 @@ def _page(d: dict, figs: dict) -> str:
 
     parts.append("<h2>Settings</h2>")
     # the settings with what the data chose in place of the unset ones (cli.settings_text.settings_json)
-    parts.append(_table(["setting", "value"], [[k.replace("_", " "), "none" if v is None else v] for k, v in d["config"].items()],
+    parts.append(_table(["setting", "value"], [[k.replace("_", " "), setting_text(v)] for k, v in d["config"].items()],
                         text_cols=(1,)))
     parts.append("<h2>Data</h2>")
     data = d.get("data") or {}
