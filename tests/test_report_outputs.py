@@ -219,6 +219,9 @@ def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
         assert f"{100 * d['oob_error']:.2f}%" in dom
         assert f"{100 * d['measures']['balanced-error']['value']:.2f}%" in dom
         assert f"{100 * d['class_error'][0]:.2f}%" in dom
+        # the size to choose and the limit, as report --json gives them (issue 12: shown in the report)
+        assert f'<div class="k">members needed</div><div class="v">{d["members_needed"]:,}</div>' in dom
+        assert f"error limit {100 * d['error_limit']:.2f}%" in dom
         # per-class importance, compactly: mean and SE of each class's rise
         assert "Permutation importance by class" in dom
         top = max(d["importance"], key=lambda r: r["mean"])["feature"]
