@@ -258,6 +258,8 @@ def test_comparison_html_renders_offline_and_holds_the_ranked_table(comparison, 
         assert cells[4] == f"{c['value']:.4f}"
         assert cells[5] == f"{c['interval'][0]:.4f} – {c['interval'][1]:.4f}"
         assert cells[6] == (f"{c['members_needed']:,}" if c["members_needed"] else "-")
+        spm = c["seconds_per_member"]           # a short span in ms, to three figures
+        assert cells[7] == (f"{spm * 1000:.3g} ms" if spm < 1 else f"{spm:.3g} s")
         if c["difference"] is not None:
             assert cells[8] == f"{c['difference']:+.4f}"
             assert cells[10] == ("<0.0001" if c["p_value"] < 1e-4 else f"{c['p_value']:.4f}")

@@ -133,7 +133,7 @@ def _ranked_table(r) -> str:
     keys = sorted({k for c in r.candidates for k in c["settings"]},
                   key=lambda k: VARIED.index(k) if k in VARIED else 99)
     head = ["#", "candidate", *(TERSE.get(k, k) for k in keys), "members", _label(r), "95% interval",
-            "members needed", "s / member", "difference to best", "95% interval", "p (Holm)", ""]
+            "members needed", "time per member", "difference to best", "95% interval", "p (Holm)", ""]
     f = Fmt(r.measure, [c["value"] for c in r.candidates])
     rows, marks = [], []
     for rank, c in enumerate(r.candidates):
@@ -142,7 +142,7 @@ def _ranked_table(r) -> str:
         rows.append([str(rank + 1), f"c{c['number']}", *(_setting(c["settings"], k) for k in keys),
                      units.count(c["members"]), f(c["value"]), f.span(c["interval"]),
                      units.count(c["members_needed"]) if c["members_needed"] else "-",
-                     "-" if spm is None else f"{spm:.3g}",
+                     units.short_time(spm),
                      "-" if best else f(c["difference"], True),
                      "-" if best else f.span(c["difference_interval"], True),
                      "-" if best else CR._p(c["p_value"]),
