@@ -284,6 +284,9 @@ def test_command_on_a_local_cluster_same_as_threads(medium):
     text = baggr_cli("report", rd, env={"COLUMNS": "200"}).stdout
     line = next(x for x in text.splitlines() if "grown on" in x)
     assert f"local Dask cluster {start['cluster_address']} (1 worker, 1 thread)" in line
+    r = baggr_cli("report", rd, "--html", rd / "report.html")
+    assert r.returncode == 0, r.stderr
+    assert f"local Dask cluster {start['cluster_address']} (1 worker, 1 thread)" in (rd / "report.html").read_text()
 
 
 @pytest.fixture

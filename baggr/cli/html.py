@@ -86,6 +86,9 @@ def setting_text(v) -> str:
         return "none"
     if isinstance(v, bool):
         return "yes" if v else "no"
+    if isinstance(v, dict) and "address" in v:     # where the members grew (settings_json's "cluster")
+        from baggr.runs.journal import grown_on
+        return grown_on(v)
     return str(v)
 
 
