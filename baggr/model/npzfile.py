@@ -4,6 +4,13 @@ Written files are ordinary .npz archives (numpy.load reads them). Stored (uncomp
 start at a multiple of 64 bytes in the file (a padding record in the zip entry's extra field), so
 a reader can map them in place: opening a large model then costs neither a copy nor memory the
 system cannot take back. Compressed arrays are read and inflated.
+
+A mapped file that is cut short (truncated, or rewritten in place) while it is mapped would make
+the next access to a page past its new end fault (SIGBUS): the reader checks every entry's size
+against the file's before mapping, and reads files under MAP_FILE_BYTES into memory instead of
+mapping them, so only large files carry that risk, and only if something changes them in place
+while they are open (baggr itself only ever replaces a model file by renaming a new one over it,
+which leaves an open mapping intact).
 """
 from __future__ import annotations
 
@@ -22,7 +29,8 @@ from baggr.errors import ModelFileError
 ALLOWED_KINDS = "biuf"     # bool, ints, unsigned ints, floats: never objects
 MAX_HEADER = 16 << 20
 ALIGN = 64
-MAP_BYTES = 1 << 20        # arrays this large or larger are mapped, not read
+MAP_BYTES = 1 << 20        # arrays this large or larger are mapped, not read ...
+MAP_FILE_BYTES = 64 << 20  # ... in files this large or larger (smaller files are read whole)
 _PAD_ID = 0x6262           # the zip extra-field record that pads an entry's header (readers skip unknown ids)
 _CRC_CHUNK = 1 << 24
 
@@ -70,6 +78,7 @@ def read(path, what: str = "model file", *, map_arrays: bool = True) -> tuple[di
     try:
         with zf, open(path, "rb") as raw:
             size = os.fstat(raw.fileno()).st_size
+            map_arrays = map_arrays and size >= MAP_FILE_BYTES
             for info in zf.infolist():
                 name = info.filename
                 if not name.endswith(".npy") or "/" in name or name[:-4] in arrays:
