@@ -245,8 +245,8 @@ def medium(tmp_path_factory):
 
 def same_run(rd, reference):
     """Model file (arrays bit for bit, header but times), report figures and journal curve."""
-    ha, aa = npzfile.read(rd / MODEL)
-    hb, ab = npzfile.read(reference / MODEL)
+    ha, aa = read_joined(rd / MODEL)
+    hb, ab = read_joined(reference / MODEL)
     assert sorted(aa) == sorted(ab)
     for k in aa:
         assert aa[k].dtype == ab[k].dtype and np.array_equal(aa[k], ab[k], equal_nan=True), k

@@ -22,6 +22,7 @@ from baggr.cli import main as cli
 from baggr.config import Config
 from baggr.engine import train
 from baggr.model import npzfile
+from model_files import read_joined
 from baggr.model.ensemble import load
 from baggr.oob import paired
 from baggr.runs import MODEL, journal
@@ -80,8 +81,8 @@ def quiet(*args) -> int:
 
 def assert_same_model(a, b):
     """The two model files hold the same arrays bit for bit and the same header apart from times."""
-    ha, aa = npzfile.read(a)
-    hb, ab = npzfile.read(b)
+    ha, aa = read_joined(a)
+    hb, ab = read_joined(b)
     assert sorted(aa) == sorted(ab)
     for k in aa:
         assert aa[k].dtype == ab[k].dtype and np.array_equal(aa[k], ab[k], equal_nan=True), k

@@ -63,6 +63,41 @@ def write_atomic(path, arrays: dict, header: dict, *, compress: bool = False) ->
     replace_atomic(path, write, suffix=".npz")
 
 
+def append(path, arrays: dict, header: dict, *, end: int) -> int:
+    """Append arrays and a new header to the archive held by the first `end` bytes of path (a new
+    file when end is 0), fsync, and return the file's new length: a complete archive again.
+
+    The new central directory lists every earlier entry but the old header, and comes after the
+    new entries; the old header and central directory stay behind as dead bytes (a few hundred a
+    step). So a step killed half way leaves the archive of the step before intact in the first
+    `end` bytes: the caller records the length each step returns, durably, and passes it back.
+    """
+    blob = np.frombuffer(json.dumps(header, allow_nan=False).encode(), dtype=np.uint8)
+    with open(path, "r+b" if end else "wb") as f:
+        infos = []
+        if end:
+            if os.fstat(f.fileno()).st_size < end:
+                raise ModelFileError(f"{path} is shorter than its last complete step ({end} bytes): it was cut")
+            f.truncate(end)
+            try:
+                with zipfile.ZipFile(f) as old:
+                    infos = [i for i in old.infolist() if i.filename != "header.npy"]
+            except (zipfile.BadZipFile, OSError, ValueError, EOFError, NotImplementedError) as e:
+                raise ModelFileError(f"{path} is damaged ({type(e).__name__}: {e})") from None
+        f.seek(end)
+        zf = zipfile.ZipFile(f, "w", allowZip64=True)
+        for info in infos:
+            zf.filelist.append(info)
+            zf.NameToInfo[info.filename] = info
+        for name, a in arrays.items():
+            _entry(f, zf, name, a, False)
+        _entry(f, zf, "header", blob, False)
+        zf.close()
+        f.flush()
+        os.fsync(f.fileno())
+        return f.tell()
+
+
 def read(path, what: str = "model file", *, map_arrays: bool = True) -> tuple[dict, dict]:
     """(header, arrays) of an .npz written by write_atomic; every array's header is checked before
     reading. map_arrays: large stored arrays are mapped from the file (copy on write) after their
