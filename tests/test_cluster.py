@@ -98,7 +98,7 @@ def test_resumed_on_the_cluster_from_a_local_checkpoint(cluster):
     first.run(until=10)
     arrays, header = first.checkpoint()
     later = Training(X, y, cfg)
-    later.restore(arrays, header, first.trees)
+    later.restore(arrays, header, first.kept())
     assert_same(whole, later.run(backend=cluster))
 
 

@@ -11,6 +11,7 @@ import numpy as np
 import pyarrow.csv as pacsv
 
 from baggr.model.ensemble import load
+from model_files import read_joined
 
 V1 = Path(__file__).parent / "data" / "v1"
 BAGGR = [sys.executable, "-m", "baggr.cli"]
@@ -54,8 +55,9 @@ def test_old_run_reports_and_resumes_bit_identically(tmp_path):
     assert r.returncode == 0, r.stderr
     a, b = load(run / "model.npz"), load(fresh / "model.npz")
     assert a.members == b.members == 20
-    for k, v in a.forest.arrays.items():
-        np.testing.assert_array_equal(v, b.forest.arrays[k], err_msg=k)
+    ta, tb = read_joined(run / "model.npz")[1], read_joined(fresh / "model.npz")[1]
+    for k in (k for k in ta if k.startswith("tree")):   # the trees, whatever parts the checkpoints made
+        np.testing.assert_array_equal(ta[k], tb[k], err_msg=k)
     for k, v in a.oob.arrays().items():
         if k.startswith("measure_"):
             continue     # the old checkpoint had no measure curve: it has points from the resume on
