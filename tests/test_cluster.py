@@ -26,7 +26,6 @@ from baggr.config import Config  # noqa: E402
 from baggr.engine import Training  # noqa: E402
 from baggr.errors import ClusterError  # noqa: E402
 from baggr.cli import report  # noqa: E402
-from baggr.model import npzfile  # noqa: E402
 from model_files import read_joined  # noqa: E402
 from baggr.runs import MODEL, journal  # noqa: E402
 from generators import friedman1, noisy_halves, twonorm  # noqa: E402

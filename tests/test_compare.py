@@ -21,7 +21,6 @@ from scipy import stats
 from baggr.cli import main as cli
 from baggr.config import Config
 from baggr.engine import train
-from baggr.model import npzfile
 from model_files import read_joined
 from baggr.model.ensemble import load
 from baggr.oob import paired

@@ -11,7 +11,6 @@ import pyarrow.csv as pacsv
 import pytest
 
 import baggr
-from baggr.model import npzfile
 from model_files import read_joined
 from generators import friedman1, noisy_halves, waveform
 
