@@ -136,3 +136,24 @@ def test_unpacked_forest_packs_to_the_same_records(model):
     again = Compact.from_forest(back, c.kind)
     for k, v in c.arrays.items():
         np.testing.assert_array_equal(again.arrays[k], v, err_msg=k)
+
+
+@pytest.mark.parametrize("threads", [1, 3])
+def test_a_model_in_parts_scores_as_one_and_keeps_the_bits_through_a_file(model, tmp_path, threads):
+    # a run's model holds one part per checkpoint: its trees add in member order, as one part's do
+    from baggr.model.arena import Arena
+    from baggr.model.compact import Stack
+    from baggr.model.ensemble import Ensemble
+    ens, codes, want = model
+    c = ens.compact
+    whole = Arena(c.kind, c.n_out, c.members, 1500, True)
+    whole.extend(c)
+    parts = Stack([whole.compact(0, 2), whole.compact(2, 3), whole.compact(3, c.members)])
+    np.testing.assert_array_equal(score(codes, parts, threads=threads), want)
+    split = Ensemble(ens.schema, ens.binning, ens.config, parts, ens.oob, ens.stats)
+    split.save(tmp_path / "parts.npz")
+    back = baggr.load(tmp_path / "parts.npz")
+    assert isinstance(back.forest, Stack) and [p.members for p in back.forest.parts] == [2, 1, c.members - 3]
+    np.testing.assert_array_equal(score(codes, back.compact, threads=threads), want)
+    np.testing.assert_array_equal(score(codes, back.compact.head(4), threads=threads),
+                                  score(codes, c.head(4), threads=1))
