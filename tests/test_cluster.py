@@ -375,8 +375,8 @@ def same_comparison(rd, reference):
     names = sorted(p.name for p in reference.iterdir() if p.is_dir())
     assert len(names) == 4 and names == sorted(p.name for p in rd.iterdir() if p.is_dir())
     for name in names:
-        _, aa = npzfile.read(rd / name / MODEL)
-        _, ab = npzfile.read(reference / name / MODEL)
+        _, aa = read_joined(rd / name / MODEL)
+        _, ab = read_joined(reference / name / MODEL)
         assert sorted(aa) == sorted(ab) and all(np.array_equal(aa[k], ab[k], equal_nan=True) for k in aa), name
     ra, rb = (compare_report.to_json(compare_report.load(d)) for d in (rd, reference))
     times = ("run_dir", "seconds_per_member")
