@@ -316,13 +316,15 @@ def test_scheduler_killed_stops_cleanly_and_resumes_identically(medium, own_sche
     proc = subprocess.Popen([*BAGGR, *map(str, train_args(data, rd, "--cluster", address))],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     t0 = time.monotonic()
-    while journal.read_state(rd).members < 12:
+    # early: chunks grow as members prove quick, and a run whose members have all reached the driver
+    # finishes without its scheduler (nothing is lost), which is not what this test is about
+    while journal.read_state(rd).members < 2:
         assert proc.poll() is None and time.monotonic() - t0 < 120, proc.communicate()
         time.sleep(0.005)
     scheduler.send_signal(signal.SIGKILL)
     out, err = proc.communicate(timeout=60)
     st = journal.read_state(rd)
-    assert proc.returncode == 2 and 12 <= st.members < MEMBERS
+    assert proc.returncode == 2 and 2 <= st.members < MEMBERS
     # one line, from the job: why, and what the checkpoint holds
     assert err.count("\n") == 1 and err.startswith(f"baggr: error: lost the Dask scheduler at {address}"), err
     assert f"checkpoint saved at {st.members} of {MEMBERS} members" in err

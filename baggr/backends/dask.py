@@ -56,6 +56,8 @@ class ClusterStats:
     resubmitted: int = 0
     task_seconds: float = 0.0         # chunks' wall time in the workers
     task_cpu: float = 0.0             # chunks' CPU time in the workers' threads
+    steady_cpu: float = 0.0           # the same, without the chunks that held a process's first member
+    steady_members: int = 0
     member_seconds: float = 0.0       # members' own time (inside task_seconds)
     submit_seconds: float = 0.0       # the driver submitting chunks
     receive_seconds: float = 0.0      # chunks done travelling to the driver (transfer, unpickling), in _prefetch
@@ -252,6 +254,9 @@ class Dask(Backend):
         st.sizes.append(ch.b - ch.a)
         st.task_seconds += done.seconds
         st.task_cpu += done.cpu
+        if done.first is None:     # a process's first member loads numba's kernels: not a member's time
+            st.steady_cpu += done.cpu
+            st.steady_members += ch.b - ch.a
         st.member_seconds += done.chunk.member_seconds
         if done.gap is not None:
             st.gaps.append(done.gap)
@@ -268,7 +273,7 @@ class Dask(Backend):
             return 1
         # CPU time, not wall time: on a busy host a member's wall time grows with the wait for a core,
         # and so would the share the cluster's own work is allowed
-        t = st.task_cpu / st.members
+        t = st.steady_cpu / st.steady_members if st.steady_members else st.task_cpu / st.members
         recent = st.gaps[-32:]
         o = max(TASK_COST, statistics.median(recent) if recent else 0.0, st.submit_seconds / max(st.chunks, 1))
         k = math.ceil(o / (OVERHEAD_SHARE * max(t, 1e-6)))
