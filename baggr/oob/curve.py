@@ -218,6 +218,8 @@ class Fit:
     var: np.ndarray           # (S + 1,) its variance
     class_error: np.ndarray   # (S + 1, C) or (S + 1, 0) for regression
     class_var: np.ndarray
+    measure: str = ""         # what `error` holds: "" the task's error (MSE), else a measure's name
+                              # (baggr/oob/measure_fit.py); its interval and tolerance follow it
 
     ARRAYS = ("members", "sizes", "error", "var", "class_error", "class_var")
 
@@ -256,7 +258,7 @@ class Fit:
 
     def interval(self, e: float, v: float):
         """95% interval of an estimate e with (jackknife) variance v (None while e is unknown)."""
-        return interval(self.task, e, VARIANCE_FACTOR * v)
+        return interval(self.task, e, VARIANCE_FACTOR * v, self.measure)
 
     @property
     def limit(self) -> float:
@@ -273,12 +275,19 @@ class Fit:
             return float(self.error[i]), float(self.var[i])
         return float(self.at(b)[0]), float(self.var_at(b)[0])
 
+    @property
+    def higher_is_better(self) -> bool:
+        return self.measure in HIGHER_IS_BETTER
+
     def tolerance(self) -> float:
-        """How close to the limit counts as there: 1% of it or (classes) 0.1 point, the larger."""
+        """How close to the limit counts as there: 1% of it or (classes) 0.1 point, the larger. For
+        a measure where higher is better (AUC, R2), 1% of its distance to a perfect 1 (for R2 the
+        same as 1% of the MSE limit, as a share of the targets' variance)."""
         lim = self.limit
+        loss = 1.0 - lim if self.higher_is_better else lim
         if self.task == "classes":
-            return max(TOLERANCE_REL * lim, TOLERANCE_ABS)
-        return TOLERANCE_REL * abs(lim)
+            return max(TOLERANCE_REL * abs(loss), TOLERANCE_ABS)
+        return TOLERANCE_REL * abs(loss)
 
     def points(self, top: int, count: int = 48) -> dict:
         """The curve at about `count` sizes from 1 to `top`, log-spaced, with its band (and per class),
@@ -309,8 +318,11 @@ class Fit:
     def _members_needed(self) -> int | None:
         if not np.isfinite(self.limit):
             return None
-        thr = self.limit + self.tolerance()
-        e = self.error[:-1]
+        # in loss form (lower is better): a measure where higher is better is turned round
+        sign = -1.0 if self.higher_is_better else 1.0
+        limit = sign * self.limit
+        thr = limit + self.tolerance()
+        e = sign * self.error[:-1]
         above = np.flatnonzero(~(e <= thr))
         if above.shape[0] == 0:
             return int(self.sizes[0])
@@ -318,11 +330,11 @@ class Fit:
         if i == e.shape[0] - 1:
             # beyond the last size the curve falls like c / b: solve lim + (e_last - lim) s / b <= thr
             s, el = int(self.sizes[-1]), float(e[-1])
-            need = int(math.ceil(s * (el - self.limit) / (thr - self.limit))) if thr > self.limit else None
+            need = int(math.ceil(s * (el - limit) / (thr - limit))) if thr > limit else None
             return need if need is not None and need < 1 << 40 else None
         lo, hi = int(self.sizes[i]) + 1, int(self.sizes[i + 1])
         cand = np.arange(lo, hi + 1, dtype=np.int64)
-        ok = self.at(cand) <= thr
+        ok = sign * self.at(cand) <= thr
         # from the first size after which every size up to hi is in
         bad = np.flatnonzero(~ok)
         return int(cand[bad[-1] + 1]) if bad.shape[0] else lo
@@ -333,12 +345,12 @@ class Fit:
                 "var": self.var, "class_error": self.class_error, "class_var": self.class_var}
 
     @classmethod
-    def from_arrays(cls, task: str, a: dict) -> "Fit":
+    def from_arrays(cls, task: str, a: dict, measure: str = "") -> "Fit":
         if np.asarray(a["members"]).shape != (1,):
             raise ValueError("a fit's member count is one number")
         return cls(task, int(a["members"][0]), np.asarray(a["sizes"], np.int64), np.asarray(a["error"], np.float64),
                    np.asarray(a["var"], np.float64), np.asarray(a["class_error"], np.float64),
-                   np.asarray(a["class_var"], np.float64))
+                   np.asarray(a["class_var"], np.float64), measure)
 
     def check(self) -> str | None:
         """What is wrong with stored fit arrays (None: nothing)."""
@@ -368,10 +380,21 @@ def _parity_tables(all_sizes: np.ndarray) -> list:
     return out
 
 
-def interval(task: str, e: float, v: float):
-    """Wilson's interval at e with e (1 - e) / v effective rows (classes); normal (regression)."""
+HIGHER_IS_BETTER = ("auc", "r2")
+# the range of each measure: a normal interval is cut to it
+BOUNDS = {"brier": (0.0, 2.0), "log-loss": (0.0, math.inf), "auc": (0.0, 1.0), "mse": (0.0, math.inf),
+          "rmse": (0.0, math.inf), "mae": (0.0, math.inf), "r2": (-math.inf, 1.0)}
+
+
+def interval(task: str, e: float, v: float, measure: str = ""):
+    """Wilson's interval at e with e (1 - e) / v effective rows (the error and the balanced error, both
+    shares of rows); otherwise normal, cut to the measure's range."""
     if not (e == e) or not (v == v):
         return None
+    if measure not in ("", "error", "balanced-error", "mse") or (task != "classes" and measure):
+        h = Z95 * math.sqrt(max(v, 0.0))
+        lo, hi = BOUNDS.get(measure, (-math.inf, math.inf))
+        return (max(lo, e - h), min(hi, e + h))
     if task == "classes":
         if v <= 0.0:
             return (e, e)
@@ -387,22 +410,28 @@ def interval(task: str, e: float, v: float):
     return (max(0.0, e - h), e + h)
 
 
-def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classes: int, members: int,
-                sample: int | None = None) -> Fit:
-    """The estimate from a class tally: votes (n, C), left_out (n,) or empty (hard votes).
+@dataclass
+class Priors:
+    """The estimated distribution of the rows' vote probabilities, per class (the smoothed-EM prior)
+    with what the influence of a row on a figure needs: per class c with covered rows, (c, the
+    cells' likelihood lp, li, lv, the cells' row counts cf, the prior pi)."""
 
-    sample: fit to every stride-th row only, so that about `sample` rows are read (a run's refits:
-    their cost does not grow with the table); the figures and their variance are then those of
-    that sample, a spread-out part of the table. None: every row (the finished ensemble)."""
+    n_classes: int
+    three: bool
+    grid: np.ndarray
+    smooth: tuple
+    parts: list
+    covered: np.ndarray
+    members: int
+    sample: bool
+
+
+def class_priors(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classes: int, members: int,
+                 sample: int | None = None) -> Priors:
+    """The prior of every class from a class tally (see fit_classes for the arguments)."""
     three = n_classes >= 3
-    all_sizes = sizes(MAX_SIZE_THREE if three else MAX_SIZE)
-    vi = variance_sizes(all_sizes, 2.0 if sample else math.sqrt(2))   # a run's refits: fewer
-    grid, (sp, si, sv) = _grid_three() if three else _grid_two()
-    n_grid = grid.shape[0]
-    cols = np.concatenate([vi, [all_sizes.shape[0]]])   # + the limit column
-    n_sizes = all_sizes.shape[0] + 1
-    class_error = np.full((n_sizes, n_classes), np.nan)
-    class_var = np.full((n_sizes, n_classes), np.nan)
+    grid, smooth = _grid_three() if three else _grid_two()
+    sp, si, sv = smooth
     covered = np.zeros(n_classes)
     stride = max(1, votes.shape[0] // sample) if sample else 1
     parts = []
@@ -413,33 +442,98 @@ def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classe
         covered[c] = nc
         if nc == 0:
             continue
-        if three:
-            others = [o for o in range(n_classes) if o != c]
-            tie1, tie2 = (c < others[0], c < others[1]) if n_classes == 3 else (c == 0, c == 0)
-            g = _g_three(all_sizes, tie1, tie2)
-        else:
-            g = _g_two(all_sizes, tie_wrong=c > 0)
         lp, li, lv = k.likelihood(cells, grid, DROP)
         cf = counts.astype(np.float64)
-        pi, _ = k.ems(lp, li, lv, cf, sp, si, sv, n_grid, TOL, MAX_ITER)
+        pi, _ = k.ems(lp, li, lv, cf, sp, si, sv, grid.shape[0], TOL, MAX_ITER)
+        parts.append((c, lp, li, lv, cf, pi))
+    return Priors(n_classes, three, grid, smooth, parts, covered, members, bool(sample))
+
+
+def class_influence(pr: Priors, part, gvals: np.ndarray) -> np.ndarray:
+    """(cells, B) influence of one more row in each of the part's cells on pi' gvals (columns: figures)."""
+    _, lp, li, lv, cf, pi = part
+    sp, si, sv = pr.smooth
+    return k.influence(lp, li, lv, cf, sp, si, sv, pi, np.ascontiguousarray(gvals))
+
+
+def weighted_fit(pr: Priors, tables, all_sizes: np.ndarray, measure: str = "") -> Fit:
+    """A figure that is a mean over rows of a function of the row's vote probabilities and the
+    ensemble size: tables(c) gives its (G, S + 1) values for a row of class c at each grid point and
+    size (last column b -> oo); the estimate per class is prior' table, overall the classes weighted
+    by their covered rows, its variance the infinitesimal jackknife (module docstring)."""
+    vi = variance_sizes(all_sizes, 2.0 if pr.sample else math.sqrt(2))   # a run's refits: fewer
+    cols = np.concatenate([vi, [all_sizes.shape[0]]])   # + the limit column
+    n_sizes = all_sizes.shape[0] + 1
+    n_classes = pr.n_classes
+    class_error = np.full((n_sizes, n_classes), np.nan)
+    class_var = np.full((n_sizes, n_classes), np.nan)
+    share = measure in ("", "error")
+    parts = []
+    for part in pr.parts:
+        c, cf, pi = part[0], part[4], part[5]
+        nc = float(pr.covered[c])
+        g = tables(c)
         est = pi @ g
-        psi = k.influence(lp, li, lv, cf, sp, si, sv, pi, np.ascontiguousarray(g[:, cols]))
+        psi = class_influence(pr, part, g[:, cols])
         parts.append((c, est, psi, cf))
         class_error[:, c] = est
-        class_var[:, c] = _spread_var(est, (cf[:, None] * psi ** 2).sum(axis=0) / (nc * nc), cols, all_sizes, nc)
-    total = covered.sum()
+        v_at = (cf[:, None] * psi ** 2).sum(axis=0) / (nc * nc)
+        class_var[:, c] = _spread_var(est, v_at, cols, all_sizes, nc) if share else _log_var(v_at, cols, all_sizes)
+    total = pr.covered.sum()
     error = np.full(n_sizes, np.nan)
     var = np.full(n_sizes, np.nan)
     if total > 0:
-        q = covered / total
+        q = pr.covered / total
         error = np.nansum(class_error * q[None, :], axis=1)
         # a row's influence on the class-weighted figure: its class's estimate and its own pull
         v = np.zeros(cols.shape[0])
         for c, est, psi, cf in parts:
             dev = est[cols][None, :] + psi - error[cols][None, :]
             v += (cf[:, None] * dev ** 2).sum(axis=0)
-        var = _spread_var(error, v / (total * total), cols, all_sizes, total)
-    return Fit("classes", members, all_sizes, error, var, class_error, class_var)
+        v /= total * total
+        var = _spread_var(error, v, cols, all_sizes, total) if share else _log_var(v, cols, all_sizes)
+    return Fit("classes", pr.members, all_sizes, error, var, class_error, class_var, measure)
+
+
+def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classes: int, members: int,
+                sample: int | None = None) -> Fit:
+    """The estimate from a class tally: votes (n, C), left_out (n,) or empty (hard votes).
+
+    sample: fit to every stride-th row only, so that about `sample` rows are read (a run's refits:
+    their cost does not grow with the table); the figures and their variance are then those of
+    that sample, a spread-out part of the table. None: every row (the finished ensemble)."""
+    return error_fit(class_priors(votes, left_out, y, n_classes, members, sample))
+
+
+def error_fit(pr: Priors) -> Fit:
+    """The error of the kept ensemble from the priors."""
+    all_sizes = sizes(MAX_SIZE_THREE if pr.three else MAX_SIZE)
+    n_classes = pr.n_classes
+
+    def tables(c):
+        if pr.three:
+            others = [o for o in range(n_classes) if o != c]
+            tie1, tie2 = (c < others[0], c < others[1]) if n_classes == 3 else (c == 0, c == 0)
+            return _g_three(all_sizes, tie1, tie2)
+        return _g_two(all_sizes, tie_wrong=c > 0)
+
+    return weighted_fit(pr, tables, all_sizes)
+
+
+def _log_var(v_at: np.ndarray, cols: np.ndarray, all_sizes: np.ndarray) -> np.ndarray:
+    """Variance at every stored size from its value at some, interpolated in log b (log of the
+    variance where positive); the last column, the limit, kept as computed."""
+    logb = np.log(all_sizes.astype(np.float64))
+    x = logb[cols[:-1]]
+    pos = v_at[:-1] > 0
+    out = np.empty(all_sizes.shape[0] + 1)
+    if pos.all():
+        out[:-1] = np.exp(np.interp(logb, x, np.log(v_at[:-1])))
+    else:
+        out[:-1] = np.interp(logb, x, v_at[:-1])
+    out[cols[:-1]] = v_at[:-1]
+    out[-1] = v_at[-1]
+    return out
 
 
 def _spread_var(est: np.ndarray, v_at: np.ndarray, cols: np.ndarray, all_sizes: np.ndarray, n: float) -> np.ndarray:
