@@ -40,12 +40,31 @@ def figures(r) -> dict:
     """The JSON part: measure, measures, class_measures, measure_curve and the importance lists."""
     oob = r.oob
     task = r.task
-    values = mc.follow_estimate(ms.of_oob(oob), task, oob.error, oob.interval)
+    raw = oob.raw_measures()            # the textbook OOB figures
+    values = oob.measures()             # the estimate for the kept ensemble where there is one
     names = [n for n in ms.task_measures(task) if n in values]
-    d = {"measure": chosen(r),
-         "measures": {n: dict(_pair(*values[n]), method=ms.METHODS[n]) for n in names},
-         "measure_labels": {n: ms.LABELS[n] for n in ms.task_measures(task)},
+    d = {"measure": chosen(r), "measures": {}, "measure_labels": {n: ms.LABELS[n] for n in ms.task_measures(task)},
          "measure_notes": [NOTES[n] for n in names if n in NOTES]}
+    for n in names:
+        # value/interval: the estimate for the kept ensemble; raw_*: the textbook OOB figure
+        m = dict(_pair(*values[n]), method=ms.METHODS[n])
+        if n in raw:
+            rv = _pair(*raw[n])
+            m.update(raw_value=rv["value"], raw_interval=rv["interval"])
+        est = oob.measure_estimate(n) if oob.corrected else None
+        m["corrected"] = est is not None
+        if est is not None:
+            m.update(limit=_f(est["limit"]), limit_interval=_pair(0, est["limit_interval"])["interval"],
+                     members_needed=est["members_needed"], tolerance=_f(est["tolerance"]))
+        d["measures"][n] = m
+    if any(not d["measures"][n]["corrected"] for n in names) and oob.corrected:
+        d["measure_notes"].append("A measure marked textbook has no estimate for the kept ensemble (the AUC of "
+                                  "three or more classes): its figure is the plain OOB one, which reads off for "
+                                  "small ensembles.")
+    ch = d["measures"].get(d["measure"])
+    if ch is not None:
+        d["measure_limit"], d["measure_limit_interval"] = ch.get("limit"), ch.get("limit_interval")
+        d["measure_members_needed"] = ch.get("members_needed")
     if len(names) < len(ms.task_measures(task)):
         d["measure_notes"].append("This model file was written before the targets were stored beside the OOB "
                                   "votes: only the error is available.")
@@ -57,6 +76,8 @@ def figures(r) -> dict:
     sizes, curves = mc.curve_of(oob)
     if sizes:
         d["measure_curve"] = {"sizes": sizes, **{n: [[_f(x) for x in row] for row in v] for n, v in curves.items()}}
+        # the textbook OOB figures at the same sizes
+        d["measure_curve"]["raw"] = {n: [[_f(x) for x in row] for row in v] for n, v in mc.curve_of(oob, raw=True)[1].items()}
     s = imp.summary(oob.arrays(), list(r.schema.names), list(r.schema.classes) if task == "classes" else None)
     if s is not None:
         d["importance"] = s["permutation"]

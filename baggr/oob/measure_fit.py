@@ -62,12 +62,23 @@ NODES = 8                 # Gauss-Legendre nodes per grid cell (log loss)
 _cache: dict = {}
 
 
+def has_estimate(measure: str, task: str, n_classes: int) -> bool:
+    """Whether the measure has an estimate for the kept ensemble (all but the AUC of three or more classes)."""
+    return not (task == "classes" and measure == "auc" and n_classes > 2)
+
+
 def class_fits(votes, left_out, y, n_classes: int, members: int, sample: int | None = None,
                names=None, error: cv.Fit | None = None) -> dict:
     """{measure: curve.Fit} of the kept ensemble for the class measures in `names` (default all);
     error: the error's fit when already made (the balanced error reads its class curves)."""
-    names = names or ("error", "balanced-error", "log-loss", "brier", "auc")
     pr = cv.class_priors(votes, left_out, y, n_classes, members, sample)
+    return from_priors(pr, names, error)
+
+
+def from_priors(pr: cv.Priors, names=None, error: cv.Fit | None = None) -> dict:
+    """class_fits from priors already fitted (a run's refit fits them once for the error and its measure)."""
+    names = names or ("error", "balanced-error", "log-loss", "brier", "auc")
+    n_classes = pr.n_classes
     out = {}
     if "error" in names or "balanced-error" in names:
         out["error"] = error if error is not None else cv.error_fit(pr)
@@ -166,8 +177,10 @@ def auc_fit(pr: cv.Priors) -> cv.Fit | None:
 
 
 # -- regression ----------------------------------------------------------------------------------
-def regression_fits(value_sum, value_m2, left_out, y, members: int, names=None, mse: cv.Fit | None = None) -> dict:
-    """{measure: curve.Fit} of the kept regression ensemble (mse, rmse, mae, r2, or those in names)."""
+def regression_fits(value_sum, value_m2, left_out, y, members: int, names=None, mse: cv.Fit | None = None,
+                    sample: int | None = None) -> dict:
+    """{measure: curve.Fit} of the kept regression ensemble (mse, rmse, mae, r2, or those in names);
+    sample: the MAE reads about this many evenly spread rows (a run's refits), else at most MAE_ROWS."""
     names = names or ("mse", "rmse", "mae", "r2")
     mse = mse if mse is not None else cv.fit_regression(value_sum, value_m2, left_out, y, members)
     out = {"mse": mse}
@@ -185,7 +198,7 @@ def regression_fits(value_sum, value_m2, left_out, y, members: int, names=None, 
         if "r2" in names:
             out["r2"] = _r2(e - s2 / kk, s2, yy, mse, members)
         if "mae" in names:
-            out["mae"] = _mae(e, s2, kk, members)
+            out["mae"] = _mae(e, s2, kk, members, sample or MAE_ROWS)
     return {n: f for n, f in out.items() if n in names}
 
 
@@ -212,11 +225,11 @@ def _r2(a, s2, yy, mse: cv.Fit, members: int) -> cv.Fit:
     return cv.Fit("regression", members, mse.sizes, r2, ss / (n * (n - 1)), none, none.copy(), "r2")
 
 
-def _mae(e, s2, kk, members: int) -> cv.Fit:
+def _mae(e, s2, kk, members: int, rows: int) -> cv.Fit:
     """The folded normal mean |N(delta_i, s_i^2 / b)| per row, averaged (module docstring)."""
     from scipy.special import erf
     all_sizes = cv.sizes(MAE_MAX_SIZE)
-    stride = max(1, e.shape[0] // MAE_ROWS)
+    stride = max(1, e.shape[0] // rows)
     e, s2, kk = e[::stride], s2[::stride], kk[::stride]
     n = e.shape[0]
     delta = np.sqrt(np.maximum(e - s2 / kk, 0.0))

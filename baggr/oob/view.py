@@ -160,9 +160,10 @@ class OOB:
     def tolerance(self) -> float:
         return self._fit.tolerance() if self._fit is not None else float("nan")
 
-    def figures(self, target: int | None = None) -> dict:
+    def figures(self, target: int | None = None, measure: str | None = None) -> dict:
         """The estimate as a run's journal carries it: error, interval, error_limit(_interval),
-        members_needed, class_error and the curve over sizes (empty without an estimate)."""
+        members_needed, class_error and the curve over sizes (empty without an estimate); with a
+        measure other than the error (MSE), also measure_estimate: that measure's."""
         f = self._fit
         if f is None or self.members == 0:
             return {}
@@ -171,6 +172,10 @@ class OOB:
                "curve": f.points(f.points_top(target or self.members, self.members))}
         if self.task == "classes":
             out["class_error"] = self.class_error.tolist()
+        mf = self.measure_fits().get(measure) if measure not in (None, "error", "mse") else None
+        if mf is not None:
+            out["measure_estimate"] = dict(self.measure_estimate(measure), name=measure,
+                                           curve=mf.points(mf.points_top(target or self.members, self.members)))
         return out
 
     def estimate_at(self, b: int) -> tuple:
