@@ -108,17 +108,22 @@ def _own_p(pr: cv.Priors) -> tuple[np.ndarray, float]:
     return pr.grid[:, 0], (1.0 / cv.GRID_THREE if pr.three else 1.0 / (cv.GRID_TWO - 1))
 
 
+def brier_table(grid: np.ndarray, all_sizes: np.ndarray) -> np.ndarray:
+    """(G, S + 1) expected Brier score of b votes at each grid point (rows: chances of each category,
+    the row's own class first): sum_c (p_c - y_c)^2 + p_c (1 - p_c) / b; last column b -> oo."""
+    y = np.zeros(grid.shape[1])
+    y[0] = 1.0
+    sq = ((grid - y[None, :]) ** 2).sum(axis=1)
+    spread = (grid * (1.0 - grid)).sum(axis=1)
+    x = np.concatenate([1.0 / all_sizes, [0.0]])
+    return np.ascontiguousarray(sq[:, None] + spread[:, None] * x[None, :])
+
+
 def brier_fit(pr: cv.Priors) -> cv.Fit:
     all_sizes = cv.sizes(cv.MAX_SIZE)
     key = ("brier", pr.three)
     if key not in _cache:
-        g = pr.grid                                   # (G, D + 1): own class first
-        y = np.zeros(g.shape[1])
-        y[0] = 1.0
-        sq = ((g - y[None, :]) ** 2).sum(axis=1)      # sum_c (p_c - y_c)^2
-        spread = (g * (1.0 - g)).sum(axis=1)          # sum_c p_c (1 - p_c)
-        x = np.concatenate([1.0 / all_sizes, [0.0]])
-        _cache[key] = np.ascontiguousarray(sq[:, None] + spread[:, None] * x[None, :])
+        _cache[key] = brier_table(pr.grid, all_sizes)
     table = _cache[key]
     return cv.weighted_fit(pr, lambda c: table, all_sizes, "brier")
 
