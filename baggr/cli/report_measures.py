@@ -54,6 +54,9 @@ def figures(r) -> dict:
         est = oob.measure_estimate(n) if oob.corrected else None
         m["corrected"] = est is not None
         if est is not None:
+            m["raw_method"] = m["method"]
+            m["method"] = ("kept ensemble: infinitesimal jackknife x 1.1, "
+                           + ("Wilson" if n in ("error", "balanced-error") else "normal"))
             m.update(limit=_f(est["limit"]), limit_interval=_pair(0, est["limit_interval"])["interval"],
                      members_needed=est["members_needed"], tolerance=_f(est["tolerance"]))
         d["measures"][n] = m
@@ -106,15 +109,29 @@ def measure_span(name: str, iv) -> str:
 
 
 def headline(d: dict):
-    """(label, Text) of the chosen measure for the estimate's lines, when it is not the error itself."""
+    """[(label, Text)] of the chosen measure for the estimate's lines, when it is not the error itself:
+    its estimate for the kept ensemble, the textbook figure, its limit and the members needed."""
     from rich.text import Text
     name = d.get("measure")
     m = (d.get("measures") or {}).get(name)
     if name in (None, "error", "mse") or not m:
         return None
+    label = d["measure_labels"].get(name, name)
     t = Text(measure_text(name, m["value"]), style="bold")
-    t.append(f"   95% interval {measure_span(name, m['interval'])}  (the measure this run is judged by)")
-    return d["measure_labels"].get(name, name), t
+    t.append(f"   95% interval {measure_span(name, m['interval'])}  (the measure this run is judged by"
+             + (", for the kept ensemble)" if m.get("corrected") else "; textbook OOB figure)"))
+    rows = [(label, t)]
+    if m.get("corrected"):
+        if m.get("raw_value") is not None:
+            rows.append((f"{label}, textbook", f"{measure_text(name, m['raw_value'])}   95% interval "
+                                               f"{measure_span(name, m.get('raw_interval'))}"))
+        if m.get("limit") is not None:
+            rows.append((f"{label}, limit", f"{measure_text(name, m['limit'])}   95% interval "
+                                            f"{measure_span(name, m.get('limit_interval'))}   (an unlimited ensemble)"))
+            need = m.get("members_needed")
+            near = f" (within {measure_text(name, m['tolerance'])} of its limit)" if m.get("tolerance") else ""
+            rows.append((f"{label}, members needed", (units.count(need) if need else "more than 4 million") + near))
+    return rows
 
 
 def render_measures(out, d: dict) -> None:

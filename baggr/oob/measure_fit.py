@@ -56,6 +56,7 @@ from baggr.oob import curve_kernels as ck
 from baggr.oob import measure_fit_kernels as k
 
 AUC_MAX_SIZE = 1024       # AUC sums cost O(b) per grid point and size; beyond, linear in 1/b to the limit
+AUC_EXACT, AUC_STEP = 32, 1.1   # every size up to AUC_EXACT, then pairs (b, b + 1) every 10%
 MAE_MAX_SIZE = 256
 MAE_ROWS = 100_000        # the MAE's per-row sums read at most about this many evenly spread rows
 NODES = 8                 # Gauss-Legendre nodes per grid cell (log loss)
@@ -151,12 +152,27 @@ def log_loss_fit(pr: cv.Priors) -> cv.Fit:
     return cv.weighted_fit(pr, lambda c: table, all_sizes, "log-loss")
 
 
+def auc_sizes() -> np.ndarray:
+    """The sizes the AUC is summed at (its sums cost O(b) each; between them, linear in 1/b)."""
+    if "auc_sizes" not in _cache:
+        out, b = list(range(1, AUC_EXACT + 1)), float(AUC_EXACT)
+        while True:
+            b *= AUC_STEP
+            s = int(round(b))
+            if s + 1 > AUC_MAX_SIZE:
+                break
+            if s > out[-1]:
+                out += [s, s + 1]
+        _cache["auc_sizes"] = np.array(out, np.int64)
+    return _cache["auc_sizes"]
+
+
 def auc_fit(pr: cv.Priors) -> cv.Fit | None:
     """The AUC of the kept two-class ensemble (the share of class 1 ranks the rows)."""
     parts = {part[0]: part for part in pr.parts}
     if 0 not in parts or 1 not in parts:
         return None
-    all_sizes = cv.sizes(AUC_MAX_SIZE)
+    all_sizes = auc_sizes()
     r = pr.grid[:, 0]                        # a chance of a vote for class 1, ascending 0..1
     pi1 = parts[1][5]
     pi0 = parts[0][5][::-1].copy()           # class 0's chance of a class-1 vote is 1 - q: the grid reversed
