@@ -9,6 +9,9 @@ each repeat); after M members (M in 25, 50, 100, 300, the same run: member m dep
            Carlo standard error); `true` the same against the kept ensemble's exact error where
            the generator gives it (label noise integrated out: P(class | x) of twonorm and
            threenorm, f(x) and noise variance 1 of Friedman #1), free of the test rows' own noise
+  +test    the 20,000-row test error within the interval widened by the test rows' own noise
+           (their 95% half-width added in quadrature): what a calibrated interval for the kept
+           ensemble's error holds it at
   bias     mean of estimate - test error, +- its standard error; `raw` the same for the textbook
            OOB error
   w/wil    mean interval width over the mean width of Wilson's interval at the estimate with the
@@ -158,7 +161,7 @@ def table(records):
     cells = {}
     for r in records:
         cells.setdefault((r["gen"], r["n"], r["M"]), []).append(r)
-    print(f"{'generator':10s} {'n':>5s} {'M':>4s} {'reps':>4s}  {'cover':>12s} {'true':>6s}  {'bias':>13s} "
+    print(f"{'generator':10s} {'n':>5s} {'M':>4s} {'reps':>4s}  {'cover':>12s} {'true':>6s} {'+test':>6s}  {'bias':>13s} "
           f"{'raw':>7s}  {'w/wil':>5s} {'w/now':>5s}  {'limit':>7s} {'need':>6s}")
     for key in sorted(cells, key=lambda k: (list(GENS).index(k[0]), k[1], k[2])):
         rs = cells[key]
@@ -166,11 +169,20 @@ def table(records):
         R = len(rs)
         cover = np.mean((a["lo"] <= a["test"]) & (a["test"] <= a["hi"]))
         cover_true = np.mean((a["lo"] <= a["true"]) & (a["true"] <= a["hi"]))
+        # the 20,000 test rows' own noise, added in quadrature to the interval's half-widths: what a
+        # calibrated interval for the kept ensemble's error should hold the test figure at
+        if key[0] != "friedman1":
+            se_test = np.sqrt(a["test"] * (1 - a["test"]) / TEST_ROWS)
+        else:  # ref_width = 2 * 1.96 * sd(squared error) / sqrt(n): back out the sd
+            se_test = a["ref_width"] * np.sqrt(key[1]) / (2 * 1.959964) / np.sqrt(TEST_ROWS)
+        lo_w = a["est"] - np.hypot(a["est"] - a["lo"], 1.959964 * se_test)
+        hi_w = a["est"] + np.hypot(a["hi"] - a["est"], 1.959964 * se_test)
+        cover_noise = np.mean((lo_w <= a["test"]) & (a["test"] <= hi_w))
         d = a["est"] - a["test"]
         scale = 100.0 if key[0] != "friedman1" else 1.0
         width = np.mean(a["hi"] - a["lo"])
         print(f"{key[0]:10s} {key[1]:5d} {key[2]:4d} {R:4d}  {cover * 100:5.1f}% +-{np.sqrt(cover * (1 - cover) / R) * 100:3.1f} "
-              f"{cover_true * 100:5.1f}%  {d.mean() * scale:+6.3f}+-{d.std(ddof=1) / np.sqrt(R) * scale:5.3f} "
+              f"{cover_true * 100:5.1f}% {cover_noise * 100:5.1f}%  {d.mean() * scale:+6.3f}+-{d.std(ddof=1) / np.sqrt(R) * scale:5.3f} "
               f"{np.mean(a['raw'] - a['test']) * scale:+7.3f}  {width / np.mean(a['ref_width']):5.2f} "
               f"{width / np.mean(a['now_width']):5.2f}  {np.nanmean(a['limit'] - a['test_last']) * scale:+7.3f} "
               f"{np.nanmedian(a['need']):6.0f}")
