@@ -37,9 +37,12 @@ that is a mean over rows is the prior's mean of the row's expected figure with b
   Var(y), variance from the per-row influence of the ratio; mae: a row's OOB mean m_i has mean
   mu_i and spread s_i^2 / k_i; the kept ensemble's mean of b has spread s_i^2 / b, so its error is
   |N(delta_i, s_i^2 / b)| with delta_i = mu_i - y_i, whose mean is the folded normal's
-  (Leone, Nelson & Nottingham 1961); delta_i^2 is estimated without bias by (m_i - y_i)^2 - s_i^2 / k_i
-  (cut at 0) and put in: a plug-in, approximate (no unbiased form exists: it would need a
-  normal of negative variance).
+  (Leone, Nelson & Nottingham 1961). delta_i is known only through |m_i - y_i| / s_i, a folded
+  normal around |delta_i| / s_i with spread 1 / sqrt(k_i) (the members' predictions taken as
+  normal): as for the classes, the distribution of |delta| / s over the rows is estimated on a grid
+  (the mixing distribution's EM, Laird 1978; empirical Bayes, Robbins 1956) and each row's figure
+  integrated over its posterior. Approximate: s_i is estimated, and the members' predictions are
+  not normal (tests/test_measure_honest.py --bench measures the bias).
 
 Intervals: the infinitesimal jackknife variance times curve.VARIANCE_FACTOR, as for the error;
 normal, cut to the measure's range (balanced error: Wilson's with the effective rows, as the
@@ -247,30 +250,65 @@ def _r2(a, s2, yy, mse: cv.Fit, members: int) -> cv.Fit:
 
 
 def _mae(e, s2, kk, members: int, rows: int) -> cv.Fit:
-    """The folded normal mean |N(delta_i, s_i^2 / b)| per row, averaged (module docstring)."""
-    from scipy.special import erf
+    """The mean over rows of E|N(delta_i, s_i^2 / b)| (the folded normal's mean), with delta_i
+    integrated over its empirical-Bayes posterior (module docstring)."""
     all_sizes = cv.sizes(MAE_MAX_SIZE)
     stride = max(1, e.shape[0] // rows)
     e, s2, kk = e[::stride], s2[::stride], kk[::stride]
     n = e.shape[0]
-    delta = np.sqrt(np.maximum(e - s2 / kk, 0.0))
-    out, var = np.full(all_sizes.shape[0] + 1, np.nan), np.full(all_sizes.shape[0] + 1, np.nan)
+    n_sizes = all_sizes.shape[0] + 1
+    none = np.zeros((n_sizes, 0))
     if n == 0:
-        none = np.zeros((out.shape[0], 0))
-        return cv.Fit("regression", members, all_sizes, out, var, none, none.copy(), "mae")
-    for i, b in enumerate(list(all_sizes) + [0]):
-        if b:
-            sd = np.sqrt(s2 / b)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                z = np.where(sd > 0, delta / (sd * math.sqrt(2.0)), np.inf)
-            row = np.where(sd > 0, sd * math.sqrt(2.0 / math.pi) * np.exp(-np.minimum(z * z, 700.0)), 0.0) + \
-                delta * erf(z)
-        else:
-            row = delta
-        out[i] = row.mean()
-        var[i] = row.var(ddof=1) / n if n > 1 else np.nan
-    none = np.zeros((out.shape[0], 0))
-    return cv.Fit("regression", members, all_sizes, out, var, none, none.copy(), "mae")
+        nan = np.full(n_sizes, np.nan)
+        return cv.Fit("regression", members, all_sizes, nan, nan.copy(), none, none.copy(), "mae")
+    s = np.sqrt(s2)
+    flat = s <= 0                      # no spread: the error is |d| at every size
+    z = np.where(flat, 0.0, np.sqrt(e) / np.where(flat, 1.0, s))
+    t = (np.arange(MAE_GRID) / (MAE_GRID - 1)) ** 2 * (float(z.max()) + 4.0)
+    like = _folded_like(z, np.sqrt(kk), t)
+    fit_rows = slice(None, None, max(1, n // MAE_PRIOR_ROWS))
+    pi = _npmle(like[fit_rows])
+    post = like * pi[None, :]
+    post /= np.maximum(post.sum(axis=1, keepdims=True), 1e-300)
+    x = np.concatenate([1.0 / all_sizes, [0.0]])
+    table = _folded_mean(t[:, None], np.sqrt(x)[None, :])            # (G, S + 1)
+    w = np.where(flat, 0.0, s)[:, None] * post                         # a row's weight on each grid point
+    est = (w.sum(axis=0) @ table + np.sqrt(e[flat]).sum()) / n
+    vi = cv.variance_sizes(all_sizes)
+    cols = np.concatenate([vi, [all_sizes.shape[0]]])
+    per_row = w @ table[:, cols] + np.where(flat, np.sqrt(e), 0.0)[:, None]
+    v_at = per_row.var(axis=0, ddof=1) / n if n > 1 else np.full(cols.shape[0], np.nan)
+    return cv.Fit("regression", members, all_sizes, est, cv._log_var(v_at, cols, all_sizes), none, none.copy(), "mae")
+
+
+MAE_GRID, MAE_PRIOR_ROWS, MAE_EM_STEPS = 160, 4000, 300
+
+
+def _folded_like(z, sqrt_k, t):
+    """(n, G) likelihood of |z_i| (the row's |OOB mean - target| over its spread, noise 1/sqrt(k_i)) at
+    each |delta| / spread t_j: the folded normal density, up to a factor per row."""
+    a = (z[:, None] - t[None, :]) * sqrt_k[:, None]
+    b = (z[:, None] + t[None, :]) * sqrt_k[:, None]
+    top = (-0.5 * np.minimum(a * a, b * b)).max(axis=1, keepdims=True)   # the row's largest exponent
+    return np.exp(-0.5 * a * a - top) + np.exp(-0.5 * b * b - top)
+
+
+def _npmle(like):
+    """The mixing distribution's EM (Laird 1978) on the grid from a flat start, a fixed number of steps."""
+    pi = np.full(like.shape[1], 1.0 / like.shape[1])
+    for _ in range(MAE_EM_STEPS):
+        f = like @ pi
+        pi = pi * (like.T @ (1.0 / np.maximum(f, 1e-300))) / like.shape[0]
+    return pi / pi.sum()
+
+
+def _folded_mean(mu, sd):
+    """E|N(mu, sd^2)| = sd sqrt(2/pi) exp(-mu^2 / 2 sd^2) + mu erf(mu / (sd sqrt 2)) (Leone et al. 1961)."""
+    from scipy.special import erf
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = np.where(sd > 0, mu / (sd * math.sqrt(2.0)), np.inf)
+        out = np.where(sd > 0, sd * math.sqrt(2.0 / math.pi) * np.exp(-np.minimum(r * r, 700.0)), 0.0) + mu * erf(r)
+    return np.where(sd > 0, out, np.abs(mu))
 
 
 def of_oob(oob) -> dict:
