@@ -156,3 +156,25 @@ def test_stop_rule_reads_the_chosen_measures_members_needed():
     assert "brier limit" in stop["why"]
     # it stops at members_needed, or at the refit where the estimate of it settled when that came later
     assert tr.next_member == max(need[-1][1], need[-1][0]) < 3000
+
+
+def test_journal_carries_the_measures_estimate_for_the_dashboard(tmp_path):
+    # the refit lines and the end line carry the chosen measure's estimate; RunState keeps the latest,
+    # and at the end it is the saved ensemble's own (oob.measure_estimate)
+    import json
+    from baggr.runs.run_state import RunState
+    X, y = twonorm(400, seed=19)
+    lines = []
+    ens = baggr.train(X, y, baggr.Config(members=70, seed=20, measure="log-loss"),
+                      on_member=lambda e: lines.append({"event": "member", **json.loads(json.dumps(e.journal_fields()))}))
+    st = RunState()
+    for ev in lines:
+        st.fold(ev)
+    assert [ev["member"] for ev in lines if "measure_estimate" in ev] == [32, 64]
+    assert st.measure_estimate["member"] == 64 and st.measure_estimate["name"] == "log-loss"
+    from baggr.events import MemberEvent
+    final = ens.oob.figures(70, "log-loss")
+    st.fold({"event": "end", "status": "finished", "member": 70, "estimate": MemberEvent.estimate_fields(final)})
+    want = ens.oob.measure_estimate("log-loss")
+    assert st.measure_estimate["member"] == 70 and st.measure_estimate["value"] == want["value"]
+    assert st.measure_estimate["members_needed"] == want["members_needed"]
