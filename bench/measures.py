@@ -3,7 +3,8 @@
 For R1 (twonorm 100,000 x 20, full trees, 4 features per split) and R3 (Friedman #1 100,000 x 10)
 prints the points computed, the seconds spent on them (main thread, between folds), per point,
 and their share of member time (the members' own grow seconds, summed over threads), at one and
-two threads. Also R1 with leaf-share votes, whose float vote sums take the sorting path.
+two threads. Also R1 with leaf-share votes: full trees' leaves are pure, so the shares are whole
+numbers counted like hard votes; with min_leaf 5 they are fractions, summed per row.
     python bench/measures.py [members ...]
 """
 import os
@@ -40,6 +41,7 @@ def main(members=(100, 300)):
     cfg = baggr.Config(features_per_split=4, seed=1)
     run("R1", X, y, cfg, members)
     run("R1 vote=shares", X, y, cfg.replace(vote="shares"), members[:1], (1,))
+    run("R1 vote=shares min_leaf=5", X, y, cfg.replace(vote="shares", min_leaf=5), members[:1], (1,))
     X, y = friedman1(100_000, seed=1)
     run("R3", X, y, baggr.Config(seed=1), members[:1], (1,))
     print(f"  load average {os.getloadavg()[0]:.2f}")

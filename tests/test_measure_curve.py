@@ -106,3 +106,62 @@ def test_model_file_keeps_the_curve_and_rejects_a_damaged_one(tmp_path):
     npzfile.write_atomic(tmp_path / "bad.npz", arrays, header)
     with pytest.raises(baggr.ModelFileError, match="not ascending"):
         baggr.load(tmp_path / "bad.npz")
+
+
+def _leaf_share_votes(n, n_classes, step, seed):
+    """OOB votes of leaf shares: each row left out by 0-39 members, each of which votes its leaf's
+    class shares; pure leaves (step 1) give whole numbers, leaves of five rows (step 5) fifths. The
+    shares lean toward the row's class, so the AUC is far from 1/2 and from 1."""
+    rng = np.random.default_rng(seed)
+    y = rng.integers(0, n_classes, n).astype(np.int32)
+    k = rng.integers(0, 40, n)
+    votes = np.zeros((n, n_classes))
+    for r in range(n):
+        p = np.full(n_classes, 0.4 / n_classes)
+        p[y[r]] += 0.6
+        votes[r] = rng.multinomial(k[r] * step, p) / step
+    return y, votes
+
+
+@pytest.mark.parametrize("n_classes", [2, 3])
+@pytest.mark.parametrize("step", [1, 5])
+def test_curve_measures_of_leaf_shares_equal_the_obvious_computation(n_classes, step):
+    # The curve counts whole leaf shares (pure leaves) per (k, v) cell and bins fractional ones in one
+    # pass; both must give what the definitions give row by row (tests/naive_measures.py, scipy).
+    from scipy import stats
+
+    import naive_measures as naive
+    y, votes = _leaf_share_votes(3000, n_classes, step, seed=10 * n_classes + step)
+    got = mc.curve_class_measures(y, votes)
+    ok, s = naive.shares_of(votes)
+    yy = y[ok]
+    wrong = np.argmax(s, axis=1) != yy                    # ties to the lowest class, as argmax
+    assert got["error"][0] == pytest.approx(wrong.mean(), rel=1e-12)
+    per_class = [wrong[yy == c].mean() for c in range(n_classes)]
+    assert got["balanced-error"][0] == pytest.approx(np.mean(per_class), rel=1e-12)
+    assert got["log-loss"][0] == pytest.approx(naive.log_loss(y, votes), rel=1e-12)
+    assert got["brier"][0] == pytest.approx(naive.brier(y, votes), rel=1e-12)
+    # AUC: Mann-Whitney U / (n1 n0) of each class's share (scipy), the macro mean for three classes
+    which = [1] if n_classes == 2 else range(n_classes)
+    aucs, bounds = [], []
+    for c in which:
+        pos, neg = s[yy == c, c], s[yy != c, c]
+        aucs.append(stats.mannwhitneyu(pos, neg).statistic / (pos.size * neg.size))
+        # shares binned at SHARE_BINS count as tied within a bin: the AUC moves by at most half the
+        # share of positive-negative pairs that share a bin (measures.class_measures' docstring)
+        bins = np.minimum((s[:, c] * mc.SHARE_BINS).astype(np.int64), mc.SHARE_BINS - 1)
+        same = np.bincount(bins[yy == c], minlength=mc.SHARE_BINS) @ np.bincount(bins[yy != c],
+                                                                               minlength=mc.SHARE_BINS)
+        bounds.append(0.5 * same / (pos.size * neg.size))
+    if step == 1:    # whole shares: counted exactly
+        assert got["auc"][0] == pytest.approx(np.mean(aucs), rel=1e-12)
+    else:
+        assert abs(got["auc"][0] - np.mean(aucs)) <= np.mean(bounds) + 1e-12
+    if n_classes == 2 and step == 1:    # DeLong's variance by its double loop (naive_measures)
+        pos, neg = s[yy == 1, 1], s[yy == 0, 1]
+        half = 1.959963984540054 * np.sqrt(naive.delong_variance(pos, neg))
+        np.testing.assert_allclose(got["auc"][1], (np.mean(aucs) - half, np.mean(aucs) + half), rtol=1e-9)
+    # the intervals of the per-row measures: the report's own computation (rows sorted exactly)
+    exact = M.class_measures(y, votes)
+    for name in ("error", "balanced-error", "log-loss", "brier"):
+        np.testing.assert_allclose(got[name][1], exact[name][1], rtol=1e-12)

@@ -1,5 +1,6 @@
 """`baggr report`: the measures in --json, the per-row export (--rows, --keep), the HTML report
 (--html, opened in a real headless browser) and --figures."""
+import html
 import json
 import os
 import re
@@ -67,6 +68,15 @@ def test_json_has_every_measure_with_value_and_interval(runs):
     assert json.loads(_run("report", runs / "classes", "--measure", "log-loss", "--json").stdout)["measure"] == "log-loss"
     bad = _run("report", runs / "classes", "--measure", "mae", ok=False)
     assert bad.returncode == 2 and "does not fit classes" in bad.stderr
+    # the text report shows the per-class importance too: the leading feature's rise for each class
+    text = _run("report", runs / "classes").stdout
+    top = max(d["importance"], key=lambda r: r["mean"])["feature"]
+    line = next(x for x in text.splitlines()[text.splitlines().index(next(x for x in text.splitlines()
+                                                                          if x.strip().startswith("by class"))):]
+                if x.split() and x.split()[0] == top)
+    for c in ("arc", "bump", "crest"):
+        w = next(r for r in d["importance_by_class"][c] if r["feature"] == top)
+        assert f"{w['mean']:.3f} ± {w['se']:.3f}" in line
     r = json.loads(_run("report", runs / "regression", "--json").stdout)
     assert r["measure"] == "mae" and list(r["measures"]) == ["mse", "rmse", "mae", "r2"]
     assert r["measures"]["mse"]["value"] == r["oob_error"]
@@ -142,29 +152,33 @@ def test_figures_are_written_as_png_and_svg(runs, tmp_path):
 
 
 # Run before the page's own content: records every resource the page fetches and every load a
-# content security rule stopped, then (on load) whether each image decoded, into the DOM.
+# content security rule stopped, then (on load) whether each image decoded and each table's scrolled
+# and shown widths, into the DOM.
 PROBE = """<script>
 var blocked = [];
 document.addEventListener('securitypolicyviolation', function (e) { blocked.push(e.blockedURI); });
 window.addEventListener('load', function () {
   var imgs = Array.prototype.map.call(document.images, function (i) { return [i.complete, i.naturalWidth]; });
   var fetched = performance.getEntriesByType('resource').map(function (r) { return r.name; });
-  document.body.setAttribute('data-probe', JSON.stringify({images: imgs, fetched: fetched, blocked: blocked}));
+  var wide = Array.prototype.map.call(document.querySelectorAll('div.wide'),
+                                      function (d) { return [d.scrollWidth, d.clientWidth]; });
+  document.body.setAttribute('data-probe', JSON.stringify({images: imgs, fetched: fetched, blocked: blocked,
+                                                           wide: wide}));
 });
 </script>"""
 
 
-@pytest.mark.skipif(not os.path.exists(CHROMIUM), reason="needs Debian's chromium at /usr/bin/chromium "
-                    "(.ci/run installs it: apt-get install -y chromium)")
-@pytest.mark.parametrize("run", ["classes", "regression"])
-def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
-    page = tmp_path / "report.html"
-    _run("report", runs / run, "--html", page)
+NEEDS_CHROMIUM = pytest.mark.skipif(not os.path.exists(CHROMIUM), reason="needs Debian's chromium at /usr/bin/chromium "
+                                    "(.ci/run installs it: apt-get install -y chromium)")
+
+
+def open_in_chromium(page, tmp_path) -> tuple[str, dict]:
+    """Check that a page loads nothing from outside its file, open it in headless chromium with a
+    probe first in <head>, and return (the rendered DOM, what the probe saw)."""
     text = page.read_text()
     # nothing outside the file: every src and href is a data: URI or an anchor, no url() in the style
     assert not re.search(r"""(src|href)=["'](?!data:|#)""", text)
     assert "url(" not in text and "@import" not in text
-    assert text.count('src="data:image/') == (5 if run == "classes" else 3)
     # the probe goes first in <head>; the page's own rules stay, with inline scripts allowed for it
     probed = text.replace("<head>", "<head>" + PROBE, 1).replace("default-src 'none';",
                                                                   "default-src 'none'; script-src 'unsafe-inline';")
@@ -172,17 +186,86 @@ def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
     profile = tmp_path / "profile"
     cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
            "--disable-background-networking", "--disable-component-update", "--disable-sync",
-           f"--user-data-dir={profile}", "--virtual-time-budget=10000", "--dump-dom",
+           f"--user-data-dir={profile}", "--virtual-time-budget=10000", "--window-size=1200,900", "--dump-dom",
            (tmp_path / "probed.html").as_uri()]
     r = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    shutil.rmtree(profile, ignore_errors=True)
     m = re.search(r"data-probe=\"([^\"]*)\"", r.stdout)
     assert m, r.stdout[:500] + r.stderr[-2000:]
     probe = json.loads(m.group(1).replace("&quot;", '"').replace("&amp;", "&"))
     assert len(probe["images"]) == text.count('src="data:image/')
     assert all(done and width > 0 for done, width in probe["images"]), probe["images"]
     assert probe["fetched"] == [] and probe["blocked"] == []
-    assert "Read with care" in r.stdout and "Measures of the OOB predictions" in r.stdout
-    shutil.rmtree(profile, ignore_errors=True)
+    # in a window 1200 pixels wide, no table scrolls sideways
+    assert all(scrolled <= shown for scrolled, shown in probe["wide"]), probe["wide"]
+    return r.stdout, probe
+
+
+@NEEDS_CHROMIUM
+@pytest.mark.parametrize("run", ["classes", "regression"])
+def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
+    page = tmp_path / "report.html"
+    _run("report", runs / run, "--html", page)
+    assert page.read_text().count('src="data:image/') == (5 if run == "classes" else 3)
+    dom, _ = open_in_chromium(page, tmp_path)
+    assert "Read with care" in dom and "Measures of the OOB predictions" in dom
+    d = json.loads(_run("report", runs / run, "--json").stdout)
+    if run == "classes":
+        # error-type figures as percentages, as the screens write them (baggr.units)
+        assert f"{100 * d['oob_error']:.2f}%" in dom
+        assert f"{100 * d['measures']['balanced-error']['value']:.2f}%" in dom
+        assert f"{100 * d['class_error'][0]:.2f}%" in dom
+        # per-class importance, compactly: mean and SE of each class's rise
+        assert "Permutation importance by class" in dom
+        top = max(d["importance"], key=lambda r: r["mean"])["feature"]
+        w = next(r for r in d["importance_by_class"]["bump"] if r["feature"] == top)
+        assert f"{w['mean']:.3f} <span class=\"ivl\">± {w['se']:.3f}</span>" in dom
+    else:
+        assert f"{d['oob_error']:.4g}" in dom
+
+
+@pytest.fixture(scope="module")
+def comparison(runs):
+    """Three candidates on the three-class table, ranked on log loss."""
+    out = runs / "cmp"
+    _run("compare", runs / "wave.csv", "--target", "shape", "--drop", "serial", "--features-per-split", "2,5,21",
+         "--members", "12", "--block", "6", "--measure", "log-loss", "--seed", "5", "--no-ui", "--run-dir", out)
+    return out
+
+
+@NEEDS_CHROMIUM
+def test_comparison_html_renders_offline_and_holds_the_ranked_table(comparison, tmp_path):
+    page = tmp_path / "cmp.html"
+    _run("report", comparison, "--html", page)
+    text = page.read_text()
+    assert text.count('src="data:image/') == 3          # the differences, the error curves, the log loss curves
+    dom, _ = open_in_chromium(page, tmp_path)
+    d = json.loads(_run("report", comparison, "--json").stdout)
+    ranked = re.search(r'<table class="ranked">(.*?)</table>', dom, re.S).group(1)
+    body = re.findall(r"<tr[^>]*>(.*?)</tr>", ranked.split("</thead>")[1], re.S)
+    assert len(body) == 3
+    for row, c in zip(body, d["candidates"]):
+        cells = [html.unescape(re.sub(r"<[^>]+>", "", x)) for x in re.findall(r"<td[^>]*>(.*?)</td>", row, re.S)]
+        # the JSON's figures, rounded as the page writes them (common practice, no source)
+        assert cells[1] == f"c{c['number']}" and cells[2] == str(c["settings"]["features_per_split"])
+        assert cells[4] == f"{c['value']:.4f}"
+        assert cells[5] == f"{c['interval'][0]:.4f} – {c['interval'][1]:.4f}"
+        assert cells[6] == (f"{c['members_needed']:,}" if c["members_needed"] else "-")
+        if c["difference"] is not None:
+            assert cells[8] == f"{c['difference']:+.4f}"
+            assert cells[10] == ("<0.0001" if c["p_value"] < 1e-4 else f"{c['p_value']:.4f}")
+            assert cells[11] == ("close" if c["close"] else "")
+    assert "best" in body[0] and 'class="chosen"' in ranked
+    assert "common random numbers" in dom and "winner&#x27;s curse" in text
+    assert "Holm" in dom and "SHA-256" in dom
+    sha = json.loads((comparison / "comparison.json").read_text())["data"]["sha256"]
+    assert sha in dom
+    # --figures: the same three, as PNG and SVG
+    _run("report", comparison, "--figures", tmp_path / "figs")
+    assert sorted(os.listdir(tmp_path / "figs")) == sorted(f"{n}.{e}" for n in ("curves", "measures", "differences")
+                                                           for e in ("png", "svg"))
+    bad = _run("report", comparison, "--rows", tmp_path / "r.csv", ok=False)
+    assert bad.returncode == 2 and "is a comparison" in bad.stderr
 
 
 def test_rows_number_the_file_and_keep_a_dropped_identifier(tmp_path):

@@ -231,6 +231,33 @@ def test_plain_progress_prints_every_n_members_or_ten_seconds():
     assert "2.00 members/s" in lines[1] and "coverage 10.0%" in lines[1]
 
 
+def test_plain_progress_shows_the_chosen_measure_at_its_latest_point():
+    out = io.StringIO()
+    p = PlainProgress(out, get_time=lambda: 0.0)
+    p.begin({"task": "classes", "classes": ["a", "b"], "members_target": 60, "rows": 10, "features": 2,
+             "threads": 1, "first_member": 0, "config": {"measure": "auc"}})
+    for m in range(1, 61):
+        f = _member(m, 60)
+        if m in (1, 40, 42):     # measures ride on the member lines at scheduled sizes only
+            f["measures"] = {"error": [0.15, 0.13, 0.17], "auc": [0.9 + m / 1000, 0.88, 0.93]}
+        p.member(f)
+    p.end({})
+    lines = out.getvalue().splitlines()
+    assert lines[0].endswith("1 threads, judged by AUC")
+    assert "OOB error 15.00% (95% 13.0-17.0%)  AUC 0.9010 (95% 0.8800-0.9300)  coverage" in lines[1]
+    # member 41's line: the latest point is member 40's, and says so; the last line has member 42's
+    at41 = next(ln for ln in lines if ln.startswith("member 41/"))
+    assert "AUC 0.9400 (95% 0.8800-0.9300) at 40 members" in at41
+    assert "AUC 0.9420 (95% 0.8800-0.9300) at 42 members" in lines[-1]
+    # the error (the default) is on every line already: no second figure
+    out = io.StringIO()
+    p = PlainProgress(out, get_time=lambda: 0.0)
+    p.begin({"task": "classes", "classes": ["a", "b"], "members_target": 5, "rows": 10, "features": 2,
+             "threads": 1, "first_member": 0, "config": {"measure": None}})
+    p.member({**_member(1, 5), "measures": {"error": [0.15, 0.13, 0.17], "auc": [0.9, 0.88, 0.93]}})
+    assert "AUC" not in out.getvalue() and "judged by" not in out.getvalue()
+
+
 def test_rich_progress_draws_the_bar():
     from rich.console import Console
     buf = io.StringIO()

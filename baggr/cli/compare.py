@@ -238,13 +238,26 @@ def watch(cmp) -> int:
 
 
 def cmd_report(args) -> int:
-    from baggr.cli import compare_report
+    from baggr.cli import compare_report, outputs
+    if getattr(args, "rows", None) or getattr(args, "keep", None):
+        raise ConfigError(f"--rows and --keep need a run directory: {args.dir} is a comparison; give one "
+                          f"candidate's folder inside it")
     r = compare_report.load(args.dir, measure=getattr(args, "measure", None))
+    files = []
+    if getattr(args, "html", None):
+        files.append(outputs.write_comparison_html(r, Path(args.html), args.force))
+    if getattr(args, "figures", None):
+        files.append(outputs.write_comparison_figures(r, Path(args.figures), args.force))
     if args.json:
         say(json.dumps(compare_report.to_json(r), allow_nan=False))
-        return 0
-    from rich.console import Console
-    compare_report.render(r, Console())
+    elif not files:
+        from rich.console import Console
+        compare_report.render(r, Console())
+    for line in files:    # with --json, stdout holds the JSON alone
+        if args.json:
+            sys.stderr.write(line + "\n")
+        else:
+            say(line)
     return 0
 
 

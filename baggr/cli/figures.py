@@ -61,6 +61,12 @@ def _sizes_axis(ax, m: int) -> None:
     ax.set_xlabel("members (ensemble size, log scale)")
 
 
+def percent_axis(ax, axis: str = "y") -> None:
+    """Tick labels as percentages (shares read as percentages, as on the screens)."""
+    from matplotlib.ticker import PercentFormatter
+    getattr(ax, f"{axis}axis").set_major_formatter(PercentFormatter(1.0, decimals=None))
+
+
 def _legend_below(fig, ax, n: int) -> None:
     """The legend under the plot, where it hides no line."""
     handles, labels = ax.get_legend_handles_labels()
@@ -87,6 +93,8 @@ def curve(d: dict):
         ax.plot(b, cc, color=class_colour(k), linewidth=1.0, alpha=0.9, label=f"class {name}")
     ax.plot(b, c, color=INK, linewidth=1.8, label=f"{what}, all rows" + (" (estimated)" if raw else ""))
     _sizes_axis(ax, c.shape[0])
+    if d["task"] == "classes":
+        percent_axis(ax)
     ax.set_ylabel(what)
     ax.set_title(f"{what} by ensemble size")
     _legend_below(fig, ax, 2 + len(d.get("classes") or []) + bool(raw))
@@ -111,6 +119,8 @@ def measure_curve(d: dict, name: str):
                 label=f"at {d['members']} members")
     _sizes_axis(ax, max(d["members"], s[-1]))
     label = d.get("measure_labels", {}).get(name, name)
+    if name in ("error", "balanced-error"):
+        percent_axis(ax)
     ax.set_ylabel(label)
     ax.set_title(f"{label} by ensemble size (the measure this run is judged by)" if name == d.get("measure")
                  else f"{label} by ensemble size")

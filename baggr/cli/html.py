@@ -10,6 +10,7 @@ import base64
 import html
 import math
 
+from baggr import units
 from baggr.cli import figures as F
 
 STYLE = """
@@ -18,10 +19,12 @@ STYLE = """
 body { margin: 0; background: var(--paper); color: var(--ink);
        font: 15px/1.5 "DejaVu Sans", "Segoe UI", Helvetica, Arial, sans-serif; }
 main { max-width: 60rem; margin: 0 auto; padding: 2rem 1.5rem 4rem; }
+main.broad { max-width: 70rem; }
 header { border-bottom: 3px solid var(--teal); padding-bottom: 0.8rem; margin-bottom: 1.2rem; }
 h1 { font-size: 1.55rem; margin: 0 0 0.2rem; letter-spacing: 0.01em; }
 h1 .mark { color: var(--teal); }
 h2 { font-size: 1.15rem; margin: 2.2rem 0 0.6rem; padding-bottom: 0.2rem; border-bottom: 1px solid var(--rule); }
+h3 { font-size: 1rem; margin: 1.4rem 0 0.4rem; }
 .sub { color: var(--slate); margin: 0; }
 .headline { display: flex; flex-wrap: wrap; gap: 0.8rem; margin: 1rem 0; }
 .tile { border: 1px solid var(--rule); border-left: 4px solid var(--teal); background: #fff; padding: 0.6rem 0.9rem;
@@ -36,12 +39,18 @@ td:first-child, th:first-child { text-align: left; }
 td.text, th.text { text-align: left; }
 .wide { overflow-x: auto; }
 td.iv { white-space: nowrap; }
+table.stacked td { line-height: 1.25; padding-top: 0.35rem; padding-bottom: 0.35rem; }
+td .ivl { color: var(--slate); font-size: 0.82em; }
 tr.chosen td { font-weight: bold; }
 figure { margin: 0.8rem 0 1.4rem; }
 figure img { max-width: 100%; height: auto; display: block; border: 1px solid var(--rule); }
 figcaption { color: var(--slate); font-size: 0.85rem; margin-top: 0.3rem; }
 .cautions { border-left: 4px solid var(--ochre); background: #fff; padding: 0.6rem 1rem 0.6rem 1.6rem; }
-.cautions li { margin: 0.3rem 0; }
+.cautions li, .notes li { margin: 0.3rem 0; }
+.verdict { border-left: 4px solid var(--teal); background: #fff; padding: 0.6rem 1rem; font-weight: bold; }
+table.ranked { font-size: 0.84rem; }
+table.ranked th, table.ranked td { padding: 0.28rem 0.45rem; }
+table.compact th, table.compact td { padding: 0.28rem 0.4rem; }
 code, .mono { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: 0.85em; word-break: break-all; }
 footer { margin-top: 3rem; color: var(--slate); font-size: 0.8rem; }
 @media print { main { max-width: none; padding: 0; } figure, table { break-inside: avoid; } }
@@ -82,17 +91,57 @@ def _iv(iv, task="classes", digits=4) -> str:
     return f"{_fmt(iv[0], task, digits)} – {_fmt(iv[1], task, digits)}"
 
 
-def _table(head, rows, classes=None, text_cols=()) -> str:
-    """A table; text_cols: columns aligned left; cells holding an interval do not wrap."""
-    out = ['<div class="wide"><table><thead><tr>',
-           *(f'<th class="text">{_e(h)}</th>' if j in text_cols else f"<th>{_e(h)}</th>" for j, h in enumerate(head)),
-           "</tr></thead><tbody>"]
+SHARES = ("error", "balanced-error")      # error-type measures: percentages, as on the screens (baggr.units)
+
+
+class Raw(str):
+    """A table cell already written as HTML (escaped where it holds data)."""
+
+
+def _err(v, task) -> str:
+    """An OOB error as the screens write it: a percentage of rows for classes, a figure for regression."""
+    return units.percent(v, 2) if task == "classes" and v is not None else _fmt(v, task)
+
+
+def _err_iv(iv, task) -> str:
+    if not iv or iv[0] is None:
+        return "-"
+    return f"{_err(iv[0], task)} – {_err(iv[1], task)}"
+
+
+def _measure(name, v, task) -> str:
+    return units.percent(v, 2) if name in SHARES and v is not None else _fmt(v, task)
+
+
+def _measure_iv(name, iv, task) -> str:
+    if not iv or iv[0] is None:
+        return "-"
+    return f"{_measure(name, iv[0], task)} – {_measure(name, iv[1], task)}"
+
+
+def _stacked(value: str, interval: str) -> Raw:
+    """A value with its interval below it, smaller: keeps a table of many intervals narrow."""
+    return Raw(f'<span class="v">{_e(value)}</span><br><span class="ivl">{_e(interval)}</span>')
+
+
+def _table(head, rows, classes=None, text_cols=(), nowrap=(), css="") -> str:
+    """A table; text_cols: columns aligned left; nowrap: columns that never wrap (cells holding an
+    interval never do); css: the table's class."""
+    nowrap = set(nowrap)
+    attr = f' class="{css}"' if css else ""
+    out = [f'<div class="wide"><table{attr}>']
+    if head:     # None: a table of label and value lines, no heads
+        out += ["<thead><tr>", *(f'<th class="text">{_e(h)}</th>' if j in text_cols else f"<th>{_e(h)}</th>"
+                                 for j, h in enumerate(head)), "</tr></thead>"]
+    out.append("<tbody>")
     for i, row in enumerate(rows):
         cls = f' class="{classes[i]}"' if classes and classes[i] else ""
         cells = []
         for j, c in enumerate(row):
-            kind = "text" if j in text_cols else ("iv" if " – " in str(c) else "")
-            cells.append(f'<td class="{kind}">{_e(c)}</td>' if kind else f"<td>{_e(c)}</td>")
+            kind = " ".join(k for k, on in (("text", j in text_cols),
+                                            ("iv", j in nowrap or " – " in str(c))) if on)
+            text = c if isinstance(c, Raw) else _e(c)
+            cells.append(f'<td class="{kind}">{text}</td>' if kind else f"<td>{text}</td>")
         out.append(f"<tr{cls}>" + "".join(cells) + "</tr>")
     out.append("</tbody></table></div>")
     return "".join(out)
@@ -104,7 +153,9 @@ def _img(fig, name: str, png: bool = False) -> str:
     else:
         data, kind = F.svg_bytes(fig), "image/svg+xml"
     uri = f"data:{kind};base64," + base64.b64encode(data).decode("ascii")
-    return f'<img src="{uri}" alt="{_e(name)}">'
+    # the column's width for a full-width figure, a narrower one (the confusion map) in proportion
+    share = min(100, round(100 * fig.get_figwidth() / F.WIDTH))
+    return f'<img src="{uri}" alt="{_e(name)}" style="width: {share}%">'
 
 
 def _figure(fig, name: str, caption: str, png: bool = False) -> str:
@@ -134,10 +185,11 @@ def _page(d: dict, figs: dict) -> str:
     measures = d.get("measures") or {}
     if chosen in measures:
         m = measures[chosen]
-        tiles.append((labels.get(chosen, chosen), _fmt(m["value"], task), "95% interval " + _iv(m["interval"], task)))
+        tiles.append((labels.get(chosen, chosen), _measure(chosen, m["value"], task),
+                      "95% interval " + _measure_iv(chosen, m["interval"], task)))
     if chosen not in ("error", "mse"):
         what = "OOB error" if task == "classes" else "OOB MSE"
-        tiles.append((what, _fmt(d["oob_error"], task), "95% interval " + _iv(d["interval"], task)))
+        tiles.append((what, _err(d["oob_error"], task), "95% interval " + _err_iv(d["interval"], task)))
     tiles.append(("members", f"{d['members']:,}", f"of {d['members_target']:,}" if d.get("members_target") else ""))
     tiles.append(("rows judged", f"{d['covered']:,} of {d['rows']:,}", f"{d['uncovered']:,} never left out"))
     parts.append('<div class="headline">' + "".join(
@@ -148,7 +200,8 @@ def _page(d: dict, figs: dict) -> str:
         parts.append("<h2>Measures of the OOB predictions</h2>")
         rows, marks = [], []
         for name, m in measures.items():
-            rows.append([labels.get(name, name), _fmt(m["value"], task), _iv(m["interval"], task), m.get("method", "")])
+            rows.append([labels.get(name, name), _measure(name, m["value"], task), _measure_iv(name, m["interval"], task),
+                         m.get("method", "")])
             marks.append("chosen" if name == chosen else "")
         parts.append(_table(["measure", "value", "95% interval", "interval method"], rows, marks, text_cols=(3,)))
         if d.get("measure_notes"):
@@ -161,7 +214,7 @@ def _page(d: dict, figs: dict) -> str:
         parts.append(_figure(figs["measure"], "measure", CAPTIONS["measure"]))
     if d.get("curve"):
         from baggr.cli.report import curve_sizes
-        rows = [[f"{m:,}", _fmt(d["curve"][m - 1], task), _iv(d["curve_interval"][m - 1], task)]
+        rows = [[f"{m:,}", _err(d["curve"][m - 1], task), _err_iv(d["curve_interval"][m - 1], task)]
                 for m in curve_sizes(d["members"])]
         parts.append(_table(["members", "OOB error" if task == "classes" else "OOB MSE", "95% interval"], rows))
 
@@ -172,15 +225,14 @@ def _page(d: dict, figs: dict) -> str:
         total = sum(d["class_rows"]) or 1
         for k, name in enumerate(d["classes"]):
             c = cm.get(str(name), {})
-            cells = []
-            for x in ("precision", "recall", "f1"):
-                cells += [_fmt((c.get(x) or {}).get("value"), digits=3),
-                          _iv((c.get(x) or {}).get("interval"), digits=3)]
+            cells = [_stacked(_fmt((c.get(x) or {}).get("value"), digits=3), _iv((c.get(x) or {}).get("interval"), digits=3))
+                     for x in ("precision", "recall", "f1")]
             rows.append([name, f"{d['class_rows'][k]:,}", f"{100 * d['class_rows'][k] / total:.1f}%",
-                         _fmt(d["class_error"][k], digits=3), _iv(d["class_interval"][k], digits=3), *cells])
-        parts.append(_table(["class", "rows", "share", "OOB error", "95%", "precision", "95%", "recall", "95%",
-                             "F1", "95%"], rows))
-        parts.append('<p class="sub">Precision and recall: Wilson intervals; F1: bootstrap over rows.</p>')
+                         _stacked(_err(d["class_error"][k], task), _err_iv(d["class_interval"][k], task)), *cells])
+        parts.append(_table(["class", "rows", "share", "OOB error", "precision", "recall", "F1"], rows,
+                            nowrap=range(7), css="stacked"))
+        parts.append('<p class="sub">Each figure with its 95% interval below it. Precision and recall: Wilson '
+                     'intervals; F1: bootstrap over rows.</p>')
         if "confusion" in figs:
             parts.append(_figure(figs["confusion"], "confusion", CAPTIONS["confusion"]))
     if "reliability" in figs:
@@ -198,6 +250,9 @@ def _page(d: dict, figs: dict) -> str:
                  _fmt((imp.get(r["feature"]) or {}).get("mean")), _fmt((imp.get(r["feature"]) or {}).get("se"))]
                 for r in sorted(d["importance"], key=lambda r: -(r["mean"] or 0.0))]
         parts.append(_table(["feature", "permutation: mean rise", "SE", "impurity decrease", "SE"], rows))
+        if d.get("importance_by_class"):
+            parts.append("<h3>Permutation importance by class</h3>")
+            parts.append(_class_importance(d))
 
     parts.append("<h2>Settings</h2>")
     # the settings with what the data chose in place of the unset ones (cli.settings_text.settings_json)
@@ -211,18 +266,54 @@ def _page(d: dict, figs: dict) -> str:
                  ["SHA-256", data.get("sha256")]]
     if d.get("version"):
         rows.append(["made by", f"baggr {d['version']}, {d.get('created')}"])
-    parts.append(_table(["", ""], rows, text_cols=(1,)))
+    parts.append(_table(None, rows, text_cols=(1,)))
 
     parts.append('<h2>Read with care</h2><ul class="cautions">' +
                  "".join(f"<li>{_e(c)}</li>" for c in d.get("cautions") or []) + "</ul>")
     parts.append('<footer>Made by baggr from the run\'s own files; this page loads nothing from anywhere.</footer>')
-    body = "\n".join(parts)
+    return page(title, "\n".join(parts))
+
+
+def _class_importance(d: dict, most: int = 15, widest: int = 8) -> str:
+    """Per class: the rise in that class's OOB error (mean over members, SE below), the features in the
+    overall table's order; '' when the run has no per-class figures."""
+    by = d.get("importance_by_class") or {}
+    if not by:
+        return ""
+    classes = list(by)[:widest]
+    order = [r["feature"] for r in sorted(d["importance"], key=lambda r: -(r["mean"] or 0.0))][:most]
+    look = {c: {r["feature"]: r for r in by[c]} for c in classes}
+    rows = [[f, *(_pm((look[c].get(f) or {}).get("mean"), (look[c].get(f) or {}).get("se")) for c in classes)]
+            for f in order]
+    more = []
+    if len(by) > len(classes):
+        more.append(f"{len(by) - len(classes)} more classes")
+    if len(d["importance"]) > len(order):
+        more.append(f"{len(d['importance']) - len(order)} more features")
+    note = ("By class: the rise in the class's own OOB error (the share of its rows judged wrong) when the "
+            "feature is shuffled, mean ± standard error over members"
+            + (f"; {' and '.join(more)} in --json." if more else "."))
+    return (_table(["feature", *(f"class {c}" for c in classes)], rows, nowrap=range(1, len(classes) + 1))
+            + f'<p class="sub">{_e(note)}</p>')
+
+
+def _pm(mean, se) -> Raw:
+    if mean is None:
+        return Raw("-")
+    tail = "" if se is None else f' <span class="ivl">± {se:.3f}</span>'
+    return Raw(f"{mean:.3f}{tail}")
+
+
+def page(title: str, body: str, broad: bool = False) -> str:
+    """The whole document around a body: the style inside, and a rule that lets the page load
+    nothing but its own data: images."""
+    main = '<main class="broad">' if broad else "<main>"
     return (f'<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
             f'<meta name="viewport" content="width=device-width, initial-scale=1">'
             f'<meta http-equiv="Content-Security-Policy" content="default-src \'none\'; img-src data:; '
             f'style-src \'unsafe-inline\'">'
             f"<title>{_e(title)}</title><style>{STYLE}</style></head>"
-            f"<body><main>\n{body}\n</main></body></html>\n")
+            f"<body>{main}\n{body}\n</main></body></html>\n")
 
 
 def write_figures(d: dict, oob, folder) -> list:

@@ -136,26 +136,47 @@ def write_rows(r, out: Path, keep: list[str] | None, force: bool) -> str:
 # ---------------------------------------------------------------- --html, --figures
 
 def write_html(r, d: dict, out: Path, force: bool) -> str:
-    if out.suffix.lower() not in (".html", ".htm"):
-        raise ConfigError(f"--html must end in .html or .htm, got {out.name!r}")
-    check_new(out, force)
     from baggr.cli import html
-    text = html.render(d, r.oob)
-    write_atomic(out, lambda tmp: Path(tmp).write_text(text, encoding="utf-8"))
-    return f"wrote the report to {out} ({len(text.encode('utf-8')) // 1024:,} KiB, self-contained)"
+    return _write_page(out, force, lambda: html.render(d, r.oob), "the report")
 
 
 def write_figures(r, d: dict, folder: Path, force: bool) -> str:
+    from baggr.cli import html
+    _figures_folder(folder, force, ("curve", "measure", "importance", "confusion", "reliability"))
+    paths = html.write_figures(d, r.oob, folder)
+    return f"wrote {len(paths)} figure files (PNG and SVG) to {folder}"
+
+
+def write_comparison_html(cr, out: Path, force: bool) -> str:
+    """A comparison's page (cr: cli.compare_report.ComparisonReport)."""
+    from baggr.cli import compare_html
+    return _write_page(out, force, lambda: compare_html.render(cr), "the comparison")
+
+
+def write_comparison_figures(cr, folder: Path, force: bool) -> str:
+    from baggr.cli import compare_html
+    _figures_folder(folder, force, ("curves", "measures", "differences"))
+    paths = compare_html.write_figures(cr, folder)
+    return f"wrote {len(paths)} figure files (PNG and SVG) to {folder}"
+
+
+def _write_page(out: Path, force: bool, make, what: str) -> str:
+    if out.suffix.lower() not in (".html", ".htm"):
+        raise ConfigError(f"--html must end in .html or .htm, got {out.name!r}")
+    check_new(out, force)
+    text = make()
+    write_atomic(out, lambda tmp: Path(tmp).write_text(text, encoding="utf-8"))
+    return f"wrote {what} to {out} ({len(text.encode('utf-8')) // 1024:,} KiB, self-contained)"
+
+
+def _figures_folder(folder: Path, force: bool, names) -> None:
+    """Make the folder for --figures; refuse one that holds figures of these names, unless force."""
     if folder.exists() and not folder.is_dir():
         raise BaggrError(f"--figures: {folder} is a file, not a folder")
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as e:
         raise BaggrError(f"cannot make the folder {folder}: {e.strerror or e}") from None
-    from baggr.cli import html
-    names = [f.name for f in folder.iterdir()]
-    if not force and any(n.split(".")[0] in ("curve", "measure", "importance", "confusion", "reliability")
-                         and n.endswith((".png", ".svg")) for n in names):
+    there = [f.name for f in folder.iterdir()]
+    if not force and any(n.split(".")[0] in names and n.endswith((".png", ".svg")) for n in there):
         raise BaggrError(f"{folder} already holds figures (use --force to replace them)")
-    paths = html.write_figures(d, r.oob, folder)
-    return f"wrote {len(paths)} figure files (PNG and SVG) to {folder}"

@@ -37,6 +37,30 @@ def estimate_text(fields: dict, task: str | None) -> str:
     return text
 
 
+def measure_of(start: dict) -> str | None:
+    """The measure a job is judged by (`--measure`), from its start line; None for the error (or the
+    MSE), which the lines show anyway."""
+    from baggr.runs.measure_points import chosen
+    config = start.get("config") if isinstance(start.get("config"), dict) else {}
+    name = chosen(config, start.get("task"))
+    return None if name in ("error", "mse") else name
+
+
+def measure_words(name: str, point) -> str:
+    """'AUC 0.9483 (95% 0.9403-0.9563)' from a member line's measures entry [value, lo, hi]."""
+    from baggr.runs.measure_points import LABELS
+
+    def num(v):
+        if name == "balanced-error":
+            return percent(v)
+        return value(v) if name in ("mae", "rmse") else ("-" if v is None else f"{v:.4f}")
+    v, lo, hi = (list(point) + [None, None, None])[:3]
+    text = f"{LABELS.get(name, name)} {num(v)}"
+    if lo is not None and hi is not None:
+        text += f" (95% {percent_span((lo, hi)) if name == 'balanced-error' else f'{num(lo)}-{num(hi)}'})"
+    return text
+
+
 def time_left(f: dict, target) -> float | None:
     """Seconds to the target at the latest pace; None when unknown or done."""
     rate, m = f.get("rate") or 0.0, f.get("member", 0)
@@ -53,6 +77,7 @@ class PlainProgress:
         self.last_member, self.last_t = None, None
         self.pending = None
         self.dead = False
+        self.measure, self.measured = None, None    # the chosen measure; its latest (member, [v, lo, hi])
 
     def _say(self, line: str) -> None:
         if self.dead:
@@ -71,8 +96,11 @@ class PlainProgress:
         self.last_member, self.last_t = self.first, self.get_time()
         what = f"{len(start.get('classes') or [])} classes" if self.task == "classes" else "regression"
         verb = f"resuming at member {start.get('first_member')}" if start.get("resumed") else "training"
+        self.measure = measure_of(start)
+        from baggr.runs.measure_points import LABELS
+        judged = f", judged by {LABELS.get(self.measure, self.measure)}" if self.measure else ""
         self._say(f"{verb}: {self.target} members on {start.get('rows')} rows x {start.get('features')} features "
-                  f"({what}), {start.get('threads')} threads")
+                  f"({what}), {start.get('threads')} threads{judged}")
 
     def line(self, f: dict) -> str:
         m, target = f.get("member"), self.target or 0
@@ -80,14 +108,24 @@ class PlainProgress:
         pct = f"{100.0 * m / target:3.0f}%" if target else ""
         left = time_left(f, target)
         cov = f.get("coverage")
-        parts = [f"member {m:>{width}}/{target} {pct}", estimate_text(f, self.task),
+        parts = [f"member {m:>{width}}/{target} {pct}", estimate_text(f, self.task), self._measure_text(m),
                  f"coverage {percent(cov, 1)}", pace(f.get("rate")) if f.get("rate") else "",
                  f"elapsed {fmt_seconds(f.get('elapsed'))}", f"left ~{fmt_seconds(left)}" if left is not None else ""]
         return "  ".join(p for p in parts if p)
 
+    def _measure_text(self, m: int) -> str:
+        """The chosen measure at its latest point (computed at log-spaced sizes: 'at N' when older)."""
+        if self.measure is None or self.measured is None:
+            return ""
+        at, point = self.measured
+        return measure_words(self.measure, point) + (f" at {at} members" if at != m else "")
+
     def member(self, f: dict) -> None:
         now = self.get_time()
         m = f.get("member", 0)
+        got = f.get("measures")
+        if self.measure and isinstance(got, dict) and got.get(self.measure) is not None:
+            self.measured = (m, got[self.measure])
         self.pending = f
         due = (self.last_member is None or m - self.last_member >= self.every or now - self.last_t >= self.seconds
                or m == self.target or m == self.first + 1)

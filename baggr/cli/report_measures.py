@@ -209,6 +209,7 @@ def render_importance(out, d: dict, most: int = 25) -> None:
         out.put(line)
     if len(d["importance"]) > most:
         out.put(Text(f"  ... {len(d['importance']) - most} more in --json", style="dim"))
+    _class_importance(out, d, [r["feature"] for r in rows][:12])
     out.hanging(Text("  "), "Permutation: each member's OOB rows sent down again with the feature's values "
                 "shuffled among them (Breiman 2001). Impurity decrease: from the nodes; biased toward features "
                 "with many distinct values (Strobl et al. 2007).", 2)
@@ -216,6 +217,47 @@ def render_importance(out, d: dict, most: int = 25) -> None:
 
 def _num(v) -> str:
     return "-" if v is None else f"{v:.4g}"
+
+
+def _class_importance(out, d: dict, features: list) -> None:
+    """The rise in each class's own OOB error, mean ± SE, for the leading features: as many classes
+    as the width holds (the rest in --json)."""
+    from rich.cells import cell_len
+    from rich.text import Text
+    by = d.get("importance_by_class") or {}
+    if not by or not features:
+        return
+    look = {c: {r["feature"]: r for r in rows} for c, rows in by.items()}
+    cells = {c: [_pm((look[c].get(f) or {}).get("mean"), (look[c].get(f) or {}).get("se")) for f in features]
+             for c in by}
+    fw = min(24, max(8, *(cell_len(f) for f in features)))
+    widths, used = [], 2 + fw
+    for c in by:
+        w = max(cell_len(c), *(cell_len(x) for x in cells[c]))
+        if used + 2 + w > out.width:
+            break
+        widths.append((c, w))
+        used += 2 + w
+    out.put()
+    head = Text(f"  {'by class'.ljust(fw)}", style="dim")
+    for c, w in widths:
+        head.append("  " + c[:w].rjust(w), style="dim")
+    out.put(head)
+    for i, f in enumerate(features):
+        line = Text("  ")
+        line.append(f[:fw].ljust(fw), style="bold")
+        for c, w in widths:
+            line.append("  " + cells[c][i].rjust(w))
+        out.put(line)
+    left = len(by) - len(widths)
+    out.hanging(Text("  "), "By class: the rise in the class's own OOB error, mean ± SE over members"
+                + (f"; {left} more classes in --json." if left else "."), 2)
+
+
+def _pm(mean, se) -> str:
+    if mean is None:
+        return "-"
+    return f"{mean:.3f}" + ("" if se is None else f" ± {se:.3f}")
 
 
 def cautions(d: dict) -> list[str]:

@@ -13,6 +13,7 @@ import time
 import numpy as np
 
 from baggr.errors import ModelFileError
+from baggr.oob import measure_kernels as mk
 from baggr.oob import measures as ms
 
 SHARE_BINS = 1 << 16     # leaf-share votes: shares ranked in this many bins for the curve's AUC
@@ -64,6 +65,15 @@ def follow_estimate(values: dict, task: str, error, interval) -> dict:
     return out
 
 
+def curve_class_measures(y, votes) -> dict:
+    """The class measures at a point of the curve. Leaf-share votes that are all whole numbers (every
+    leaf pure, as in full trees) are counts like hard votes: counted per (k, v) cell, exactly, at the
+    cost of hard votes, instead of per row with the shares binned for the AUC."""
+    if votes.dtype != np.int32 and votes.shape[0] and mk.whole_votes(votes, float(np.iinfo(np.int32).max)):
+        return ms.class_measures(y, votes.astype(np.int32))
+    return ms.class_measures(y, votes, share_bins=SHARE_BINS)
+
+
 class MeasureCurve:
     """The measures at the scheduled sizes of one run, filled in as members are folded."""
 
@@ -100,7 +110,7 @@ class MeasureCurve:
         """Every measure of the tally as it stands."""
         b = tally.members
         if self.task == "classes":
-            values = ms.class_measures(tally.y, tally.votes, share_bins=SHARE_BINS)
+            values = curve_class_measures(tally.y, tally.votes)
         else:
             values = ms.regression_measures(tally.y, tally.value_sum, tally.left_out)
         return follow_estimate(values, self.task, tally.curve[b - 1], tally.curve_interval[b - 1])

@@ -190,3 +190,16 @@ def r2_influence(y, value_sum, left_out, mse, mean_y, var_y):
         f = -(e * e - mse) / var_y + mse * (dy * dy - var_y) / (var_y * var_y)
         total += f * f
     return total
+
+
+@kernel
+def whole_votes(votes, most):
+    """True when every vote is a whole number from 0 to `most`: leaf-share votes of members whose
+    leaves are all pure (full trees), which then count like hard votes. Stops at the first that is not."""
+    for r in range(votes.shape[0]):
+        for c in range(votes.shape[1]):
+            v = votes[r, c]
+            if not (v >= 0.0 and v <= most and v == np.floor(v)):
+                return False
+    return True
+
