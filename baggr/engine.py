@@ -141,7 +141,7 @@ class Training:
             ev.class_error = live.get("class_error", ev.raw_class_error)
             ev.confusion = t.confusion.tolist()
         else:
-            ev.r2 = t.r2()
+            ev.r2 = t.r2(live.get("error"))   # with the estimated MSE where there is one, as `error`
         if t.est is not None and t.est.members == t.members:
             ev.curve = t.curve_points(self.config.members)
             if t.mest is not None:   # the chosen measure's estimate, refitted beside the error's

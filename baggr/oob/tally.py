@@ -169,13 +169,15 @@ class Tally:
     def class_interval(self) -> list:
         return [wilson(int(w), int(c)) for w, c in zip(self.class_wrong, self.class_covered)]
 
-    def r2(self) -> float:
-        """1 - MSE / variance of the covered rows' targets."""
+    def r2(self, mse: float | None = None) -> float:
+        """1 - MSE / variance of the covered rows' targets; mse: another MSE than the textbook one
+        (the estimate for the kept ensemble)."""
         n = self.sums[2]
         if n < 2:
             return float("nan")
         var = self.sums[4] / n - (self.sums[3] / n) ** 2
-        return float(1.0 - (self.sums[0] / n) / var) if var > 0 else float("nan")
+        m = self.sums[0] / n if mse is None else mse
+        return float(1.0 - m / var) if var > 0 else float("nan")
 
     # -- the estimated error of the kept ensemble ---------------------------------------------------
     def fit(self, sample: int | None = None) -> "est.Fit":

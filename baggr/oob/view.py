@@ -233,7 +233,22 @@ class OOB:
 
     @property
     def r2(self) -> float:
-        """1 - MSE / variance of the covered rows' targets (regression only)."""
+        """1 - MSE / variance of the covered rows' targets (regression only), with the MSE the estimate
+        for the kept ensemble (`error`); raw_r2 the textbook one."""
+        if self.task != "regression":
+            raise AttributeError("r2 is a regression figure")
+        if self._fit is None:
+            return self.raw_r2
+        s = self._a["sums"]
+        n = s[2]
+        if n < 2:
+            return float("nan")
+        var = s[4] / n - (s[3] / n) ** 2
+        return float(1.0 - self.error / var) if var > 0 else float("nan")
+
+    @property
+    def raw_r2(self) -> float:
+        """1 - the textbook OOB MSE / variance of the covered rows' targets."""
         if self.task != "regression":
             raise AttributeError("r2 is a regression figure")
         s = self._a["sums"]
@@ -345,6 +360,7 @@ class OOB:
             d["confusion"] = self.confusion.tolist()
         else:
             d["r2"] = _f(self.r2)
+            d["raw_r2"] = _f(self.raw_r2)
         return d
 
 
