@@ -76,6 +76,16 @@ def duration(s: float | None) -> str:
     return f"{d}d {h:02d}h"
 
 
+def short_time(s: float | None) -> str:
+    """A short span to three figures: 0.42 ms, 12.7 ms, 1.23 s ('-' when unknown)."""
+    if not _finite(s):
+        return "-"
+    s = float(s)
+    if s < 1.0:
+        return f"{s * 1000:.3g} ms"
+    return f"{s:.3g} s"
+
+
 def count(n) -> str:
     """A whole number with thousands separators ('-' when unknown)."""
     return "-" if n is None else f"{int(n):,}"

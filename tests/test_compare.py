@@ -1,6 +1,7 @@
 """`baggr compare`: a comparison directory of ordinary runs grown in interleaved blocks with the same
 seed, stopped and resumed as one, and a ranked report whose paired tests are checked against scipy
 and whose rankings are checked against 20,000 fresh rows of published generators."""
+import io
 import json
 import os
 import signal
@@ -461,3 +462,16 @@ def test_resume_of_a_comparison_on_a_cluster_is_refused_in_one_line(reference, c
     assert cli.main(["resume", str(reference), "--cluster", "local:2", "--no-ui"]) == 2
     err = capsys.readouterr().err
     assert err.startswith("baggr: error: a comparison grows its candidates on local threads") and err.count("\n") == 1
+
+
+def test_round_line_says_the_size_reached_when_the_last_block_stops_short():
+    # 60 members in blocks of 25: the last round is numbered 75 but the candidates stop at 60
+    # (common practice, no source: a progress line states what happened, not the schedule)
+    from baggr.cli.compare import CompareProgress
+    p = CompareProgress(stream=io.StringIO())
+    p.task = "classes"
+    f = {"until": 75, "candidates": [{"member": 60, "members": 60, "error": 0.1},
+                                     {"member": 60, "members": 60, "error": 0.12}]}
+    assert p.line(f).startswith("up to 60 members, OOB error: c1 60/60")
+    f["until"] = 50
+    assert p.line(f).startswith("up to 50 members")

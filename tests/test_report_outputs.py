@@ -212,12 +212,19 @@ def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
     assert page.read_text().count('src="data:image/') == (5 if run == "classes" else 3)
     dom, _ = open_in_chromium(page, tmp_path)
     assert "Read with care" in dom and "Measures of the OOB predictions" in dom
+    # settings in the command's words: yes/no and none, not Python's True/False/None (common practice, no source)
+    settings = dom[dom.index("<h2>Settings</h2>"):dom.index("<h2>Data</h2>")]
+    assert ">True<" not in settings and ">False<" not in settings and ">None<" not in settings
+    assert ">yes<" in settings
     d = json.loads(_run("report", runs / run, "--json").stdout)
     if run == "classes":
         # error-type figures as percentages, as the screens write them (baggr.units)
         assert f"{100 * d['oob_error']:.2f}%" in dom
         assert f"{100 * d['measures']['balanced-error']['value']:.2f}%" in dom
         assert f"{100 * d['class_error'][0]:.2f}%" in dom
+        # the size to choose and the limit, as report --json gives them (issue 12: shown in the report)
+        assert f'<div class="k">members needed</div><div class="v">{d["members_needed"]:,}</div>' in dom
+        assert f"error limit {100 * d['error_limit']:.2f}%" in dom
         # per-class importance, compactly: mean and SE of each class's rise
         assert "Permutation importance by class" in dom
         top = max(d["importance"], key=lambda r: r["mean"])["feature"]
@@ -254,6 +261,8 @@ def test_comparison_html_renders_offline_and_holds_the_ranked_table(comparison, 
         assert cells[4] == f"{c['value']:.4f}"
         assert cells[5] == f"{c['interval'][0]:.4f} – {c['interval'][1]:.4f}"
         assert cells[6] == (f"{c['members_needed']:,}" if c["members_needed"] else "-")
+        spm = c["seconds_per_member"]           # a short span in ms, to three figures
+        assert cells[7] == (f"{spm * 1000:.3g} ms" if spm < 1 else f"{spm:.3g} s")
         if c["difference"] is not None:
             assert cells[8] == f"{c['difference']:+.4f}"
             assert cells[10] == ("<0.0001" if c["p_value"] < 1e-4 else f"{c['p_value']:.4f}")

@@ -305,7 +305,12 @@ class CompareProgress:
                  for i, c in enumerate(f.get("candidates") or [], 1)]
         if len(parts) > 8:
             parts = parts[:8] + [f"... ({len(parts) - 8} more)"]
-        return f"up to {f.get('until')} members, OOB {what}: " + "  ".join(parts)
+        # the last block may stop short of its round number: say the size the candidates reached
+        sizes = [c.get("members") for c in f.get("candidates") or [] if c.get("members")]
+        until = f.get("until")
+        if until is not None and sizes:
+            until = min(until, max(sizes))
+        return f"up to {until} members, OOB {what}: " + "  ".join(parts)
 
     def round(self, f: dict) -> None:
         now = self.get_time()

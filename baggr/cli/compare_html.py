@@ -126,14 +126,14 @@ def _setting(settings: dict, k: str) -> str:
     """A candidate's value of a varied setting; '-' where it keeps the comparison's base value."""
     if k not in settings:
         return "-"
-    return "none" if settings[k] is None else str(settings[k])
+    return H.setting_text(settings[k])
 
 
 def _ranked_table(r) -> str:
     keys = sorted({k for c in r.candidates for k in c["settings"]},
                   key=lambda k: VARIED.index(k) if k in VARIED else 99)
     head = ["#", "candidate", *(TERSE.get(k, k) for k in keys), "members", _label(r), "95% interval",
-            "members needed", "s / member", "difference to best", "95% interval", "p (Holm)", ""]
+            "members needed", "time per member", "difference to best", "95% interval", "p (Holm)", ""]
     f = Fmt(r.measure, [c["value"] for c in r.candidates])
     rows, marks = [], []
     for rank, c in enumerate(r.candidates):
@@ -142,7 +142,7 @@ def _ranked_table(r) -> str:
         rows.append([str(rank + 1), f"c{c['number']}", *(_setting(c["settings"], k) for k in keys),
                      units.count(c["members"]), f(c["value"]), f.span(c["interval"]),
                      units.count(c["members_needed"]) if c["members_needed"] else "-",
-                     "-" if spm is None else f"{spm:.3g}",
+                     units.short_time(spm),
                      "-" if best else f(c["difference"], True),
                      "-" if best else f.span(c["difference_interval"], True),
                      "-" if best else CR._p(c["p_value"]),
@@ -202,7 +202,7 @@ def _page(r, runs: list, figs: dict) -> str:
     first = next((d for d in runs if d), None)
     if first is not None:
         varied = {k for c in r.candidates for k in c["settings"]}
-        shared = [[k.replace("_", " "), r.measure if k == "measure" else ("none" if v is None else v)]
+        shared = [[k.replace("_", " "), r.measure if k == "measure" else H.setting_text(v)]
                   for k, v in first["config"].items() if not any(k.startswith(x) for x in varied)]
         parts.append("<h2>Settings shared by all candidates</h2>")
         parts.append(H._table(["setting", "value"], shared, text_cols=(1,)))

@@ -223,13 +223,13 @@ def render(r: ComparisonReport, console) -> None:
                        + (f" ({legend})" if legend else "")))
     t = Table(box=box.SIMPLE_HEAD, padding=(0, 1), title="Ranked", title_justify="left", title_style="bold")
     for col, just in (("#", "right"), ("candidate", "left"), ("size", "right"), (r.measure, "right"),
-                      ("95% interval", "right"), ("needed", "right"), ("s/member", "right")):
+                      ("95% interval", "right"), ("needed", "right"), ("per member", "right")):
         t.add_column(col, justify=just, no_wrap=col != "candidate")
     for k, c in enumerate(r.candidates, 1):
         spm = c["seconds_per_member"]
         t.add_row(str(k), Text(f"c{c['number']} {c['terse']}"), str(c["members"]), _num(c["value"], r.measure),
                   _iv(c["interval"], r.measure), str(c["members_needed"] or "-"),
-                  "-" if spm is None else units.value(spm))
+                  units.short_time(spm))
     console.print(t)
     d = Table(box=box.SIMPLE_HEAD, padding=(0, 1), title="Paired with the best (candidate minus best, same rows)",
               title_justify="left", title_style="bold")

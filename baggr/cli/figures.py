@@ -70,7 +70,7 @@ def percent_axis(ax, axis: str = "y") -> None:
 def _legend_below(fig, ax, n: int) -> None:
     """The legend under the plot, where it hides no line."""
     handles, labels = ax.get_legend_handles_labels()
-    fig.legend(handles, labels, loc="outside lower center", ncols=min(n, 5), fontsize=8)
+    fig.legend(handles, labels, loc="outside lower center", ncols=min(n, 4), fontsize=8)
 
 
 def curve(d: dict):
@@ -92,12 +92,20 @@ def curve(d: dict):
         cc = np.array([row[k] if row[k] is not None else np.nan for row in d["class_curve"]], dtype=np.float64)
         ax.plot(b, cc, color=class_colour(k), linewidth=1.0, alpha=0.9, label=f"class {name}")
     ax.plot(b, c, color=INK, linewidth=1.8, label=f"{what}, all rows" + (" (estimated)" if raw else ""))
+    marks = 0
+    if d.get("error_limit") is not None:
+        ax.axhline(d["error_limit"], color=INK, linewidth=0.8, linestyle=(0, (1, 2)), label="limit (unlimited ensemble)")
+        marks += 1
+    if d.get("members_needed") is not None and d["members_needed"] <= c.shape[0]:
+        ax.axvline(d["members_needed"], color=SLATE, linewidth=0.9, linestyle=(0, (5, 3)),
+                   label=f"members needed: {d['members_needed']:,}")
+        marks += 1
     _sizes_axis(ax, c.shape[0])
     if d["task"] == "classes":
         percent_axis(ax)
     ax.set_ylabel(what)
     ax.set_title(f"{what} by ensemble size")
-    _legend_below(fig, ax, 2 + len(d.get("classes") or []) + bool(raw))
+    _legend_below(fig, ax, 2 + len(d.get("classes") or []) + bool(raw) + marks)
     return fig
 
 

@@ -57,8 +57,11 @@ footer { margin-top: 3rem; color: var(--slate); font-size: 0.8rem; }
 """
 
 CAPTIONS = {
-    "curve": "The OOB estimate after each number of members, all rows (dark) and each class, with the 95% "
-             "interval of all rows shaded. A small ensemble's OOB figure reads high: read the tail.",
+    "curve": "The estimated error of an ensemble of each size, all rows (dark) and each class, with the 95% "
+             "interval of all rows shaded; the dashed line is the textbook OOB figure, which reads high for small "
+             "sizes because each row is judged by only about 0.37 of the members. The dotted line is the "
+             "estimated limit of an unlimited ensemble; the vertical one marks the members needed to come "
+             "within the tolerance of it.",
     "measure": "The measure this run is judged by, computed while the run went at log-spaced ensemble sizes, "
                "with its 95% interval; the diamond is the final figure.",
     "importance": "Left: the rise in a member's OOB error when one feature's values are shuffled among the "
@@ -75,6 +78,15 @@ CAPTIONS = {
 
 def _e(v) -> str:
     return html.escape(str(v), quote=True)
+
+
+def setting_text(v) -> str:
+    """A setting's value in the command's words: none, yes/no, else as written."""
+    if v is None:
+        return "none"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    return str(v)
 
 
 def _fmt(v, task="classes", digits=4) -> str:
@@ -191,6 +203,13 @@ def _page(d: dict, figs: dict) -> str:
         what = "OOB error" if task == "classes" else "OOB MSE"
         tiles.append((what, _err(d["oob_error"], task), "95% interval " + _err_iv(d["interval"], task)))
     tiles.append(("members", f"{d['members']:,}", f"of {d['members_target']:,}" if d.get("members_target") else ""))
+    # the size to choose: the chosen measure's where the run fitted one, else the error's
+    m = measures.get(chosen) or {}
+    needed = m.get("members_needed") if m.get("members_needed") is not None else d.get("members_needed")
+    limit = m.get("limit") if m.get("limit") is not None else d.get("error_limit")
+    if needed is not None and limit is not None:
+        fmt = (lambda v: _measure(chosen, v, task)) if m.get("limit") is not None else (lambda v: _err(v, task))
+        tiles.append(("members needed", f"{needed:,}", f"error limit {fmt(limit)}" if not m.get("limit") else f"limit {fmt(limit)}"))
     tiles.append(("rows judged", f"{d['covered']:,} of {d['rows']:,}", f"{d['uncovered']:,} never left out"))
     parts.append('<div class="headline">' + "".join(
         f'<div class="tile"><div class="k">{_e(k)}</div><div class="v">{_e(v)}</div><div class="iv">{_e(s)}</div></div>'
@@ -256,7 +275,7 @@ def _page(d: dict, figs: dict) -> str:
 
     parts.append("<h2>Settings</h2>")
     # the settings with what the data chose in place of the unset ones (cli.settings_text.settings_json)
-    parts.append(_table(["setting", "value"], [[k.replace("_", " "), "none" if v is None else v] for k, v in d["config"].items()],
+    parts.append(_table(["setting", "value"], [[k.replace("_", " "), setting_text(v)] for k, v in d["config"].items()],
                         text_cols=(1,)))
     parts.append("<h2>Data</h2>")
     data = d.get("data") or {}
