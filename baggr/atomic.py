@@ -8,6 +8,11 @@ _UMASK = os.umask(0)
 os.umask(_UMASK)
 
 
+def ordinary_mode(path) -> None:
+    """Give a file made by mkstemp (0600) the mode an ordinary new file gets under the umask."""
+    os.chmod(path, 0o666 & ~_UMASK)
+
+
 def replace_atomic(path, write, *, mode: str = "wb", suffix: str = "", durable: bool = True) -> None:
     """Write a file through write(f) into a temp file beside path, fsync it and rename it over path.
 

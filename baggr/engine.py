@@ -19,7 +19,7 @@ from baggr.config import Config
 from baggr.errors import ConfigError, DataError, ModelFileError
 from baggr.events import MemberEvent
 from baggr.model.ensemble import Ensemble
-from baggr.model.forest import Forest
+from baggr.model.compact import Compact, kind_for
 from baggr.oob.importance import ImportanceTally
 from baggr.oob.measure_curve import MeasureCurve
 from baggr.oob.view import OOB
@@ -61,9 +61,8 @@ class Training:
         self._measured: dict | None = None
         self.importance = ImportanceTally(self.prep.codes.shape[0], self.prep.n_classes if self.prep.task == "classes"
                                           else 0) if config.importance else None
-        # kept trees, in member order: views into the arena, where each is copied once as it is folded;
-        # the trees of members before trees_base were set aside (stored by the caller, see set_aside)
-        self.trees: list = []
+        # kept trees, in member order, packed into the arena as each member is folded; the trees of
+        # members before trees_base were set aside (stored by the caller, see set_aside)
         self.trees_base = 0
         self._arena = self._new_arena()
         self.elapsed = 0.0
@@ -104,7 +103,7 @@ class Training:
                 self.stats["measure_seconds"] = self.measures.seconds
                 t1 = time.perf_counter()
                 if result.tree is not None:
-                    self.trees.append(self._keep(result.tree))
+                    self._arena.append(result.tree)
                     self.stats["keep_seconds"] += time.perf_counter() - t1
                 self.stats["grow_seconds"] += result.seconds
                 self.stats["visits"] += result.visits
@@ -185,68 +184,69 @@ class Training:
         """Values a node stores: one per class, or one for regression."""
         return max(1, self.prep.n_classes) if self.prep.task == "classes" else 1
 
+    @property
+    def kind(self) -> str:
+        """What the kept trees' leaves hold (compact.kind_for)."""
+        return kind_for(self.prep.task, self.config.vote)
+
     def _new_arena(self) -> Arena | None:
         """Room for every node the configured members could have (address space only)."""
         if not self.config.keep_members:
             return None
-        n = max(self.prep.n_rows, 1)
-        any_cat = bool(np.any(self.prep.binning.is_cat))
-        return Arena.reserve(self.config.members * (2 * n - 1), self.config.members * (n - 1) if any_cat else 0,
-                             self.n_out)
+        return Arena(self.kind, self.n_out, self.config.members, self.prep.n_rows,
+                     bool(np.any(self.prep.binning.is_cat)))
 
-    def _keep(self, tree):
-        """The tree to keep: copied into the arena where it fits (else kept as it is)."""
-        if self._arena is not None and self._arena.room(tree):
-            return self._arena.append(tree)
-        self._arena = None  # from here on, the trees are packed when an ensemble is made
-        return tree
+    def kept(self, a: int | None = None, b: int | None = None) -> Compact | None:
+        """The kept trees of members a..b-1 (default: all in memory, from trees_base on) as a Compact
+        of views into the arena; None when estimate-only."""
+        if not self.config.keep_members:
+            return None
+        a = self.trees_base if a is None else a
+        b = self.next_member if b is None else b
+        if a < self.trees_base or b > self.trees_base + self._arena.members:
+            raise ValueError(f"members {a}..{b - 1} are not in memory (from {self.trees_base} on)")
+        return self._arena.compact(a - self.trees_base, b - self.trees_base)
 
     def set_aside(self, upto: int) -> None:
         """Forget the kept trees of members before `upto`, which the caller has stored (a comparison
-        keeps in memory only the trees not yet in a checkpoint's files, candidate after candidate);
+        keeps in memory only the trees not yet in the run's trees file, candidate after candidate);
         the later ones move to a fresh arena, so the old one's memory is freed."""
         if not self.config.keep_members or upto <= self.trees_base:
             return
         if upto > self.next_member:
             raise ValueError("cannot set aside trees not grown yet")
-        later = self.trees[upto - self.trees_base:]
-        self.trees, self.trees_base = [], upto
+        later = self.kept(upto)
         self._arena = self._new_arena()
-        for t in later:
-            self.trees.append(self._keep(t))
+        self._arena.extend(later)
+        self.trees_base = upto
 
     def take_back(self, earlier) -> None:
-        """Take the trees set aside back into a fresh arena, in member order; earlier: the trees of
-        members 0..trees_base-1 (an iterable, read chunk by chunk: memory for one set of trees)."""
+        """Take the trees set aside back, in member order; earlier: the trees of members
+        0..trees_base-1 (a Compact or a Stack)."""
         if not self.trees_base:
             return
-        later, n = self.trees, 0
-        self.trees, self._arena = [], self._new_arena()
-        for t in earlier:
-            self.trees.append(self._keep(t))
-            n += 1
-        if n != self.trees_base:
-            raise ValueError(f"{self.trees_base} trees were set aside, {n} given back")
-        for t in later:
-            self.trees.append(self._keep(t))
+        if earlier.members != self.trees_base:
+            raise ValueError(f"{self.trees_base} trees were set aside, {earlier.members} given back")
+        later = self.kept()
+        self._arena = self._new_arena()
+        self._arena.extend(earlier)
+        self._arena.extend(later)
         self.trees_base = 0
 
-    def forest(self) -> Forest | None:
-        """The kept trees as a Forest: views of the arena, or (without one) packed now, a copy."""
-        if not self.config.keep_members:
-            return None
+    def forest(self) -> Compact | None:
+        """The kept trees as a Compact of views into the arena (None when estimate-only)."""
         if self.trees_base:
             raise ValueError("trees were set aside: take them back first (take_back)")
-        if self._arena is not None:
-            return self._arena.forest()
-        return Forest.pack(self.trees, self.n_out)
+        return self.kept()
 
-    def ensemble(self) -> Ensemble:
+    def ensemble(self, trees: bool = True) -> Ensemble:
+        """The Ensemble of the run so far; trees=False leaves the trees out (the caller has them
+        stored, e.g. in the run's trees file) and works with trees set aside."""
         p = self.prep
         stats = dict(self.stats, seconds=self.elapsed)
         oob = OOB.from_tally(self.tally, p.schema.classes, extra={"data_sha256": self.data_sha256()})
         oob.arrays().update(self._oob_extras())
-        return Ensemble(p.schema, p.binning, self.config, self.forest(), oob, stats)
+        return Ensemble(p.schema, p.binning, self.config, self.forest() if trees else None, oob, stats)
 
     def _oob_extras(self) -> dict:
         """Arrays the OOB view carries beside the tallies: the targets (the measures and the per-row
@@ -287,19 +287,15 @@ class Training:
                  if not k.startswith("final_") and k not in ("class_rows", "data_sha256")}
         header = {"next_member": ens.members, "elapsed": float(ens.stats.get("seconds", 0.0)),
                   "stats": {k: v for k, v in ens.stats.items() if k in tr.stats}}
-        trees = None
-        if tr.config.keep_members:
-            forest = ens.forest.to_forest() if hasattr(ens.forest, "to_forest") else ens.forest
-            trees = forest.unpack()
-        tr.restore(tally, header, trees)
+        tr.restore(tally, header, ens.compact if tr.config.keep_members else None)
         return tr
 
     # -- checkpoints -----------------------------------------------------------------------------
     def checkpoint(self) -> tuple[dict, dict]:
         """(tally arrays, header fields) that let a later process continue this run bit for bit.
 
-        Kept trees are not included: the caller stores them once each (e.g. in append-only chunk
-        files via Forest.pack(training.trees[a:b])), so a checkpoint costs O(rows), not O(trees).
+        Kept trees are not included: the caller stores them once each (e.g. appended to the run's
+        trees file from kept(a, b)), so a checkpoint costs O(rows), not O(trees).
         """
         arrays = {"tally_" + k: v for k, v in self.tally.arrays().items()}
         arrays.update(self._oob_extras())
@@ -307,8 +303,9 @@ class Training:
                   "stats": {k: float(v) for k, v in self.stats.items()}}
         return arrays, header
 
-    def restore(self, arrays: dict, header: dict, trees: list | None = None) -> None:
-        """Continue from checkpoint() output for the same data and config; trees: the kept members 0..m-1."""
+    def restore(self, arrays: dict, header: dict, trees=None) -> None:
+        """Continue from checkpoint() output for the same data and config; trees: the kept members
+        0..m-1 (a Compact or a Stack, checked)."""
         tally = {k[6:]: v for k, v in arrays.items() if k.startswith("tally_")}
         for name, a in self.tally.arrays().items():
             b = tally.get(name)
@@ -321,9 +318,9 @@ class Training:
         m = int(tally["members"][0])
         if m != header.get("next_member") or m > self.config.members or tally["curve"].shape[0] != m:
             raise ModelFileError("checkpoint member count is inconsistent")
-        trees = list(trees or [])
-        if self.config.keep_members and len(trees) != m:
-            raise ModelFileError(f"checkpoint has {m} members but {len(trees)} kept trees")
+        n_trees = trees.members if trees is not None else 0
+        if self.config.keep_members and n_trees != m:
+            raise ModelFileError(f"checkpoint has {m} members but {n_trees} kept trees")
         self.tally.restore(tally)
         bad = self.tally.est.check() if self.tally.est is not None else None
         if bad:
@@ -333,11 +330,10 @@ class Training:
             if "imp_sum" not in arrays:
                 raise ModelFileError("the checkpoint has no importance figures, but the run measures importance")
             self.importance.restore(arrays)
-        self.trees, self.trees_base = [], 0
+        self.trees_base = 0
         self._arena = self._new_arena()
         if self.config.keep_members:
-            for t in trees:
-                self.trees.append(self._keep(t))
+            self._arena.extend(trees)
         self.elapsed = float(header.get("elapsed", 0.0))
         for k, v in header.get("stats", {}).items():
             if k in self.stats:

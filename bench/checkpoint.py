@@ -19,7 +19,6 @@ from pathlib import Path
 from baggr.model import npzfile
 from baggr.config import Config
 from baggr.engine import Training
-from baggr.model.forest import Forest
 from baggr.runs import Checkpointer, RunDir, RunSettings
 from util import twonorm
 
@@ -75,12 +74,13 @@ def main(members: int = 120, rows: int = 100_000, repeats: int = 2) -> None:
         arrays, header = tr.checkpoint()
         npzfile.write_atomic(Path(tmp) / "tally-only.npz", arrays, {"next_member": header["next_member"]})
         t_tally = time.perf_counter() - t0
-        k = min(settings.checkpoint_members, len(tr.trees))
+        k = min(settings.checkpoint_members, tr.next_member)
         t0 = time.perf_counter()
-        npzfile.write_atomic(Path(tmp) / "chunk.npz", Forest.pack(tr.trees[:k], 2).arrays, {})
+        from baggr.model.file import part_arrays
+        npzfile.append(Path(tmp) / "trees.npz", part_arrays(tr.kept(0, k), 0), {}, end=0)
         t_chunk = time.perf_counter() - t0
-        size = (Path(tmp) / "chunk.npz").stat().st_size
-        print(f"one checkpoint's tallies written in the foreground: {1000 * t_tally:.1f} ms; a chunk of {k} trees: "
+        size = (Path(tmp) / "trees.npz").stat().st_size
+        print(f"one checkpoint's tallies written in the foreground: {1000 * t_tally:.1f} ms; a part of {k} trees: "
               f"{1000 * t_chunk:.1f} ms ({size / 1e6:.1f} MB, {size / k / 1e6:.2f} MB per tree)")
 
 

@@ -1,5 +1,6 @@
-"""Disk a run directory takes: at its peak (the final model write, sampled every 2 ms) and after a
-finished and a stopped run, against the size of model.npz.
+"""Disk a run directory takes: at its peak (sampled every 2 ms, the final model write included) and
+after a finished and a stopped run, against the size of model.npz; the model's tree parts (one a
+checkpoint) and what they cost against the same model saved in one part.
 
 Runs `baggr train` (a subprocess, --no-ui) on twonorm 30,000 x 20 with full trees; the stopped run
 is asked to stop (DIR/stop) once half its members are done.
@@ -49,7 +50,12 @@ def run(data: Path, rd: Path, members: int, stop_at: int | None):
     t.join()
     model = (rd / "model.npz").stat().st_size
     chunks = du(rd / "members") if (rd / "members").exists() else 0
-    return peak[0], du(rd), model, chunks
+    import baggr
+    from baggr.model import npzfile
+    parts = len(npzfile.read(rd / "model.npz")[0]["trees"]["parts"])
+    baggr.load(rd / "model.npz").save(rd.parent / "one-part.npz")
+    one = (rd.parent / "one-part.npz").stat().st_size
+    return peak[0], du(rd), model, chunks, parts, one
 
 
 def main(members=300):
@@ -60,10 +66,12 @@ def main(members=300):
         np.savetxt(data, np.column_stack([X, y]), delimiter=",", header=head, comments="", fmt="%.6g")
         print(f"{time.strftime('%Y-%m-%d %H:%M')} twonorm 30,000 x 20, full trees, {members} members")
         for what, stop in (("finished", None), ("stopped at half", members // 2)):
-            peak, after, model, chunks = run(data, Path(tmp) / what.replace(" ", "-"), members, stop)
-            print(f"  {what}: model.npz {model / 2**20:.1f} MiB; run directory at its peak {peak / 2**20:.1f} MiB "
-                  f"({peak / model:.2f}x the model), after {after / 2**20:.1f} MiB ({after / model:.2f}x), "
-                  f"chunk files left {chunks / 2**20:.1f} MiB")
+            t0 = time.perf_counter()
+            peak, after, model, chunks, parts, one = run(data, Path(tmp) / what.replace(" ", "-"), members, stop)
+            print(f"  {what} ({time.perf_counter() - t0:.0f} s): model.npz {model / 2**20:.1f} MiB in {parts} parts "
+                  f"(+{(model - one) / 2**10:.0f} KiB, {100 * (model - one) / one:.2f}% against one part); run directory "
+                  f"at its peak {peak / 2**20:.1f} MiB ({peak / model:.2f}x the model), after {after / 2**20:.1f} MiB "
+                  f"({after / model:.2f}x), files in members/ {chunks / 2**20:.1f} MiB")
 
 
 if __name__ == "__main__":

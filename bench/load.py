@@ -4,7 +4,8 @@ The model is P1's trees (twonorm 30,000 x 20, full trees, hard votes) repeated u
 reaches the size asked for (GiB; default 2): a real layout at a real size without hours of
 training. Loads run in fresh processes; "warm" has the file in the page cache (just written),
 "cold" drops the cache first where this process may (root on Linux), else says it could not.
-    python bench/load.py [GiB] [folder]
+parts: the trees stored in that many parts, as a run that checkpointed that often writes them.
+    python bench/load.py [GiB] [parts] [folder]
 """
 import os
 import subprocess
@@ -16,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 import baggr
-from baggr.model.compact import Compact
+from baggr.model.compact import Compact, Stack
 from baggr.model.ensemble import Ensemble
 from util import twonorm
 
@@ -39,7 +40,10 @@ print(f"{t2 - t1:.2f} {t3 - t2:.2f} {rss:.0f} {ens.forest.members} {cpu:.2f}")
 """
 
 
-def tiled(ens: Ensemble, copies: int) -> Ensemble:
+def tiled(ens: Ensemble, copies: int, parts: int = 1) -> Ensemble:
+    if parts > 1:
+        each = [tiled(ens, copies // parts + (p < copies % parts)).compact for p in range(parts)]
+        return Ensemble(ens.schema, ens.binning, ens.config, Stack(each), ens.oob, ens.stats)
     a = ens.compact.arrays
     m = a["offset"].shape[0] - 1
     reps = {"nodes": np.tile(a["nodes"], copies), "leaves": np.tile(a["leaves"], copies), "shares": a["shares"]}
@@ -60,12 +64,12 @@ def drop_caches() -> bool:
         return False
 
 
-def main(gib=2.0, folder=None):
+def main(gib=2.0, parts=1, folder=None):
     X, y = twonorm(30_000, seed=1)
     ens = baggr.train(X, y, baggr.Config(members=300, seed=1))
     per_copy = ens.compact.nbytes
     copies = max(1, int(gib * 2**30 / per_copy))
-    big = tiled(ens, copies)
+    big = tiled(ens, copies, int(parts))
     with tempfile.TemporaryDirectory(dir=folder) as tmp:
         path = Path(tmp) / "big.npz"
         t0 = time.perf_counter()
@@ -73,7 +77,8 @@ def main(gib=2.0, folder=None):
         t_save = time.perf_counter() - t0
         size = path.stat().st_size
         nodes = ens.compact.n_nodes * copies
-        print(f"{time.strftime('%Y-%m-%d %H:%M')} model of {big.forest.members:,} members, {nodes:,} nodes: "
+        print(f"{time.strftime('%Y-%m-%d %H:%M')} model of {big.forest.members:,} members in {int(parts)} "
+              f"part(s), {nodes:,} nodes: "
               f"{size / 2**30:.2f} GiB ({size / nodes:.2f} B/node), saved in {t_save:.1f} s")
         del big
         print(f"  load average {os.getloadavg()[0]:.1f}")
@@ -88,4 +93,4 @@ def main(gib=2.0, folder=None):
 
 
 if __name__ == "__main__":
-    main(*(float(a) if i == 0 else a for i, a in enumerate(sys.argv[1:])))
+    main(*(float(a) if i == 0 else int(a) if i == 1 else a for i, a in enumerate(sys.argv[1:])))

@@ -1,13 +1,15 @@
-"""Kept trees packed as they arrive (baggr/arena.py) against the plain concatenation of the trees."""
+"""Kept trees packed into the compact layout as they arrive (baggr/model/arena.py) against each
+member grown again on its own and packed with the plain concatenation of its node arrays."""
 import numpy as np
 import psutil
 import pyarrow as pa
 import pytest
 
 import baggr
-from baggr.model import arena
 from baggr.engine import Training
-from baggr.model.forest import NODE_FIELDS
+from baggr.model import arena
+from baggr.model.compact import Compact, Stack
+from baggr.model.forest import Forest
 
 
 def _table(n=400, seed=5):
@@ -19,50 +21,62 @@ def _table(n=400, seed=5):
     return pa.table({"x0": x[:, 0], "x1": x[:, 1], "x2": x[:, 2], "ground": level}), y
 
 
-def _reference(tr, members):
-    """Each member grown again on its own (a pure function of m), concatenated with numpy."""
+def _reference(tr, members) -> Compact:
+    """Each member grown again on its own (a pure function of m), its node arrays concatenated with
+    numpy (Forest.pack) and packed in one go."""
     trees = [tr.grower.grow_member(m).tree for m in range(members)]
-    ref = {name: np.concatenate([getattr(t, name) for t in trees]) for name in NODE_FIELDS}
-    ref["cat_masks"] = np.concatenate([t.cat_masks.reshape(-1, 4) for t in trees])
-    ref["node_offset"] = np.cumsum([0] + [len(t.left) for t in trees])
-    ref["mask_offset"] = np.cumsum([0] + [len(t.cat_masks) for t in trees])
-    return ref
+    return Compact.from_forest(Forest.pack(trees, tr.n_out), tr.kind)
 
 
-def _assert_forest(forest, ref):
-    assert set(forest.arrays) == set(ref)
-    for name, want in ref.items():
-        np.testing.assert_array_equal(forest.arrays[name], want, err_msg=name)
+def _assert_same(got, want: Compact):
+    assert got.members == want.members and got.kind == want.kind
+    for name, w in want.arrays.items():
+        np.testing.assert_array_equal(got.arrays[name], w, err_msg=name)
 
 
 @pytest.mark.parametrize("threads", [1, 2])
-def test_the_ensemble_holds_every_member_tree_in_order(threads):
+@pytest.mark.parametrize("vote", ["hard", "shares"])
+def test_the_ensemble_holds_every_member_tree_in_order(threads, vote):
     X, y = _table()
-    tr = Training(X, y, baggr.Config(members=6, seed=3, threads=threads))
+    tr = Training(X, y, baggr.Config(members=6, seed=3, threads=threads, vote=vote, min_leaf=4))
     ens = tr.run()
-    assert tr._arena is not None  # the arena path is the one under test
-    assert ens.forest.arrays["cat_masks"].shape[0] > 0  # the categorical feature was split on
-    _assert_forest(ens.forest, _reference(tr, 6))
+    assert ens.forest.has_cat   # the categorical feature was split on
+    if vote == "shares":
+        assert ens.forest.arrays["shares"].shape[0] > 0   # mixed leaves: share rows to number
+    _assert_same(ens.forest, _reference(tr, 6))
 
 
-def test_without_the_arena_the_trees_are_packed_the_same(monkeypatch):
+def test_an_arena_that_fills_moves_to_a_larger_home(monkeypatch):
     X, y = _table()
-    monkeypatch.setattr(arena, "_reserve", lambda shape, dtype: None)
-    tr = Training(X, y, baggr.Config(members=6, seed=3, threads=2))
+    real, calls = arena._reserve, []
+
+    def small_first(count, dtype, width=0):   # room for about two trees at first: a later one moves it
+        calls.append(count)
+        return real(min(count, 150) if len(calls) <= 3 else count, dtype, width)
+    monkeypatch.setattr(arena, "_reserve", small_first)
+    tr = Training(X, y, baggr.Config(members=6, seed=3, threads=1, vote="shares", min_leaf=4))
+    first = tr.run(until=2)
+    kept_first = {k: v.copy() for k, v in first.forest.arrays.items()}
     ens = tr.run()
-    assert tr._arena is None
-    _assert_forest(ens.forest, _reference(tr, 6))
+    _assert_same(ens.forest, _reference(tr, 6))
+    assert tr._arena._nodes.shape[0] > 150     # the arrays did move
+    for k, v in kept_first.items():     # the earlier views stay valid after the move
+        np.testing.assert_array_equal(first.forest.arrays[k], v)
 
 
-def test_a_full_arena_hands_over_to_packing(monkeypatch):
+def test_slices_and_parts_put_together_again_give_the_same_trees():
     X, y = _table()
-    small = arena.Arena.reserve
-    # room for about two trees: the third does not fit and the run packs at the end instead
-    monkeypatch.setattr(arena.Arena, "reserve", classmethod(lambda cls, nodes, masks, n_out: small(120, 60, n_out)))
-    tr = Training(X, y, baggr.Config(members=6, seed=3, threads=1))
+    tr = Training(X, y, baggr.Config(members=7, seed=3, threads=2, vote="shares", min_leaf=4))
     ens = tr.run()
-    assert tr._arena is None
-    _assert_forest(ens.forest, _reference(tr, 6))
+    parts = [tr.kept(0, 2), tr.kept(2, 3), tr.kept(3, 7)]
+    assert [p.members for p in parts] == [2, 1, 4]
+    for p in parts[1:]:       # a slice's share rows count from its own first
+        assert p.arrays["leaves"].max() < max(1, p.arrays["shares"].shape[0])
+    again = arena.Arena(tr.kind, tr.n_out, 7, 400, True)
+    again.extend(Stack(parts))
+    _assert_same(again.compact(), ens.forest)
+    np.testing.assert_array_equal(Stack(parts).head(5).to_forest().arrays["left"],
+                                  ens.forest.head(5).to_forest().arrays["left"])
 
 
 def test_an_ensemble_taken_earlier_does_not_change_as_the_run_goes_on():
@@ -73,17 +87,17 @@ def test_an_ensemble_taken_earlier_does_not_change_as_the_run_goes_on():
     last = tr.run()
     for k, v in before.items():
         np.testing.assert_array_equal(first.forest.arrays[k], v)
-    n3 = before["node_offset"][-1]
-    np.testing.assert_array_equal(last.forest.arrays["left"][:n3], before["left"])
+    n3 = before["offset"][-1]
+    np.testing.assert_array_equal(last.forest.arrays["nodes"][:n3], before["nodes"])
     np.testing.assert_array_equal(first.vote_shares(X), baggr.train(X, y, baggr.Config(members=3, seed=3)).vote_shares(X))
 
 
 def test_reserving_room_for_a_billion_nodes_takes_no_resident_memory():
     # Linux mmap(2) with MAP_NORESERVE: pages are allocated when first written (the manual page)
+    if not arena._NORESERVE:
+        pytest.skip("this system does not reserve address space without committing it")
     proc = psutil.Process()
     before = proc.memory_info().rss
-    a = arena.Arena.reserve(10**9, 10**8, 3)
-    if a is None:
-        pytest.skip("this system does not reserve address space without committing it")
+    a = arena.Arena("shares", 3, 1000, 10**6, False)
     assert proc.memory_info().rss - before < 16 * 2**20
-    assert a._a["value"].shape == (10**9, 3)
+    assert a._nodes.shape[0] >= 10**9 and a._shares.shape == (10**9, 3)

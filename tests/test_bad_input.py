@@ -48,7 +48,7 @@ def test_all_missing_and_constant_features_are_never_split_on():
     X, y = twonorm(400, seed=2)
     X = np.column_stack([np.full(400, np.nan), np.full(400, 3.0), X])
     ens = baggr.train(X, y, _cfg(members=10))
-    used = ens.forest.arrays["feature"]
+    used = ens.forest.to_forest().arrays["feature"]
     assert not np.any(np.isin(used, [0, 1]))
     assert ens.oob.error < 0.2
 

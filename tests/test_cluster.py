@@ -26,7 +26,7 @@ from baggr.config import Config  # noqa: E402
 from baggr.engine import Training  # noqa: E402
 from baggr.errors import ClusterError  # noqa: E402
 from baggr.cli import report  # noqa: E402
-from baggr.model import npzfile  # noqa: E402
+from model_files import read_joined  # noqa: E402
 from baggr.runs import MODEL, journal  # noqa: E402
 from generators import friedman1, noisy_halves, twonorm  # noqa: E402
 
@@ -98,7 +98,7 @@ def test_resumed_on_the_cluster_from_a_local_checkpoint(cluster):
     first.run(until=10)
     arrays, header = first.checkpoint()
     later = Training(X, y, cfg)
-    later.restore(arrays, header, first.trees)
+    later.restore(arrays, header, first.kept())
     assert_same(whole, later.run(backend=cluster))
 
 
@@ -245,8 +245,8 @@ def medium(tmp_path_factory):
 
 def same_run(rd, reference):
     """Model file (arrays bit for bit, header but times), report figures and journal curve."""
-    ha, aa = npzfile.read(rd / MODEL)
-    hb, ab = npzfile.read(reference / MODEL)
+    ha, aa = read_joined(rd / MODEL)
+    hb, ab = read_joined(reference / MODEL)
     assert sorted(aa) == sorted(ab)
     for k in aa:
         assert aa[k].dtype == ab[k].dtype and np.array_equal(aa[k], ab[k], equal_nan=True), k

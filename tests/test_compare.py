@@ -21,7 +21,7 @@ from scipy import stats
 from baggr.cli import main as cli
 from baggr.config import Config
 from baggr.engine import train
-from baggr.model import npzfile
+from model_files import read_joined
 from baggr.model.ensemble import load
 from baggr.oob import paired
 from baggr.runs import MODEL, journal
@@ -80,8 +80,8 @@ def quiet(*args) -> int:
 
 def assert_same_model(a, b):
     """The two model files hold the same arrays bit for bit and the same header apart from times."""
-    ha, aa = npzfile.read(a)
-    hb, ab = npzfile.read(b)
+    ha, aa = read_joined(a)
+    hb, ab = read_joined(b)
     assert sorted(aa) == sorted(ab)
     for k in aa:
         assert aa[k].dtype == ab[k].dtype and np.array_equal(aa[k], ab[k], equal_nan=True), k
@@ -415,18 +415,18 @@ def test_trees_set_aside_come_back_bit_identical():
     whole = Training(X, y, Config(members=20, seed=3, threads=2)).run()
     tr = Training(X, y, Config(members=20, seed=3, threads=2))
     tr.run(until=8)
-    earlier = list(tr.trees)
+    earlier = tr.kept()
     tr.set_aside(8)
-    assert tr.trees == [] and tr.trees_base == 8
-    assert tr.run() is None and len(tr.trees) == 12
-    tr.take_back(iter(earlier))
+    assert tr._arena.members == 0 and tr.trees_base == 8
+    assert tr.run() is None and tr._arena.members == 12
+    tr.take_back(earlier)
     a, b = whole.forest.arrays, tr.ensemble().forest.arrays
     assert sorted(a) == sorted(b) and all(np.array_equal(a[k], b[k]) for k in a)
 
 
 def test_a_comparison_holds_in_memory_only_the_trees_not_yet_on_disk(medium, reference, tmp_path):
     """After every round, the candidates hold at most two blocks of trees in memory (the rest are in
-    their chunk files), so a comparison needs about one candidate's trees of memory, not all of
+    their trees files), so a comparison needs about one candidate's trees of memory, not all of
     them; the models written at the end are still the uninterrupted comparison's."""
     from baggr.runs import RunSettings, comparison, fingerprint
     from baggr.runs.compare_job import ComparisonJob
@@ -448,7 +448,7 @@ def test_a_comparison_holds_in_memory_only_the_trees_not_yet_on_disk(medium, ref
             pass
 
         def round(self, f):
-            held.append(max(len(j.training.trees) for j in job.jobs))
+            held.append(max(j.training._arena.members for j in job.jobs))
 
     job = ComparisonJob(cmp, Probe(), verify=False)
     assert job.run().status == "finished"

@@ -11,7 +11,7 @@ import pyarrow.csv as pacsv
 import pytest
 
 import baggr
-from baggr.model import npzfile
+from model_files import read_joined
 from generators import friedman1, noisy_halves, waveform
 
 BAGGR = [sys.executable, "-m", "baggr.cli"]
@@ -20,8 +20,8 @@ TIMES = {"grow_seconds", "fold_seconds", "keep_seconds", "seconds", "measure_sec
 
 def _same_files(a, b):
     """Two model files hold the same arrays bit for bit and the same header apart from times."""
-    ha, aa = npzfile.read(a)
-    hb, ab = npzfile.read(b)
+    ha, aa = read_joined(a)
+    hb, ab = read_joined(b)
     assert sorted(aa) == sorted(ab)
     for k in aa:
         assert aa[k].dtype == ab[k].dtype and np.array_equal(aa[k], ab[k], equal_nan=True), k

@@ -110,7 +110,7 @@ def test_importance_is_bit_identical_across_threads_resume_and_estimate_only():
     t.run(until=11)
     arrays, header = t.checkpoint()
     again = Training(X, y, cfg.replace(threads=2))
-    again.restore({k: np.array(v) for k, v in arrays.items()}, header, list(t.trees))
+    again.restore({k: np.array(v) for k, v in arrays.items()}, header, t.kept())
     resumed = again.run().oob.arrays()
     for other in (two, lean.oob.arrays(), resumed):
         for name in I.ImportanceTally.NAMES:

@@ -72,7 +72,7 @@ def test_curve_is_bit_identical_across_threads_and_a_resume():
     t.run(until=23)
     arrays, header = t.checkpoint()
     again = Training(X, y, cfg.replace(threads=2))
-    again.restore({k: np.array(v) for k, v in arrays.items()}, header, list(t.trees))
+    again.restore({k: np.array(v) for k, v in arrays.items()}, header, t.kept())
     resumed = again.run().oob.arrays()
     for other in (two, resumed):
         for name in ("measure_sizes", "measure_values", "measure_names", "target"):

@@ -131,9 +131,9 @@ def test_hostile_version_1_trees_are_refused(tmp_path, what):
 
 
 def _tree0(a):
-    """(slot, record, is_inner) of every node of member 0 of a version-2 file, from its root (the
+    """(slot, record, is_inner) of every node of member 0 of a version-3 file (one part), from its root (the
     layout of baggr/model/compact_kernels.py decoded by hand: a leaf points at itself, threshold 255)."""
-    nodes = a["tree_nodes"]
+    nodes = a["tree0_nodes"]
     out, todo = [], [0]
     while todo:
         v = todo.pop()
@@ -147,8 +147,8 @@ def _tree0(a):
 
 
 def _set(a, v, r):
-    a["tree_nodes"] = a["tree_nodes"].copy()
-    a["tree_nodes"][v] = np.uint64(r)
+    a["tree0_nodes"] = a["tree0_nodes"].copy()
+    a["tree0_nodes"][v] = np.uint64(r)
 
 
 @pytest.mark.parametrize("what", ["child_out_of_range", "cycle", "self_loop", "feature_out_of_range", "shared_child",
@@ -177,8 +177,8 @@ def test_hostile_trees_are_refused(trained, tmp_path, what):
         elif what == "categorical_flag":
             _set(a, v, r | (1 << 32))
         elif what == "leaf_class":
-            a["tree_leaves"] = a["tree_leaves"].copy()
-            a["tree_leaves"][0] = 3
+            a["tree0_leaves"] = a["tree0_leaves"].copy()
+            a["tree0_leaves"][0] = 3
         elif what == "leaf_number":
             lv, lr = leaves[0]
             _set(a, lv, lr ^ (1 << 44))
@@ -186,19 +186,19 @@ def test_hostile_trees_are_refused(trained, tmp_path, what):
             lv, lr = leaves[0]
             _set(a, lv, (lr & ~0xFFFFFFFF) | (lv + 1))  # a leaf record that does not point at itself
         elif what == "wrong_dtype":
-            a["tree_nodes"] = a["tree_nodes"].astype(np.int64)
+            a["tree0_nodes"] = a["tree0_nodes"].astype(np.int64)
         elif what == "missing_array":
-            del a["tree_leaf_offset"]
+            del a["tree0_leaf_offset"]
         elif what == "offsets":
-            a["tree_offset"] = a["tree_offset"].copy()
-            a["tree_offset"][1] += 1
+            a["tree0_offset"] = a["tree0_offset"].copy()
+            a["tree0_offset"][1] += 1
         elif what == "leaf_offsets":
-            a["tree_leaf_offset"] = a["tree_leaf_offset"].copy()
-            a["tree_leaf_offset"][1] -= 1
+            a["tree0_leaf_offset"] = a["tree0_leaf_offset"].copy()
+            a["tree0_leaf_offset"][1] -= 1
         elif what == "orphan_slot":
-            n0 = int(a["tree_offset"][1])
-            a["tree_nodes"] = np.insert(a["tree_nodes"], n0, np.uint64(0))
-            a["tree_offset"] = a["tree_offset"] + (np.arange(a["tree_offset"].shape[0]) >= 1)
+            n0 = int(a["tree0_offset"][1])
+            a["tree0_nodes"] = np.insert(a["tree0_nodes"], n0, np.uint64(0))
+            a["tree0_offset"] = a["tree0_offset"] + (np.arange(a["tree0_offset"].shape[0]) >= 1)
         elif what == "kind":
             header["trees"]["kind"] = "values"
     bad = _damaged(tmp_path, trained[2], change)
@@ -247,8 +247,8 @@ def test_members_checked_in_spans_name_the_damaged_member(trained, tmp_path, mon
     monkeypatch.setattr(compact, "CHECK_SPAN", 3)   # 8 members: spans 0-2, 3-5, 6-7 over two threads
 
     def change(header, a):
-        s0 = int(a["tree_offset"][5])
-        r = int(a["tree_nodes"][s0])   # member 5's root, an inner node
+        s0 = int(a["tree0_offset"][5])
+        r = int(a["tree0_nodes"][s0])   # member 5's root, an inner node
         _set(a, s0, (r & ~0xFFFFFFFF) | 10 ** 6)
     bad = _damaged(tmp_path, trained[2], change)
     with pytest.raises(baggr.ModelFileError, match=r"member 5, slot 0"):

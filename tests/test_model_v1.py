@@ -33,3 +33,18 @@ def test_version_1_classes_score_as_they_did(name, expected):
 def test_version_1_regression_scores_as_it_did(expected):
     ens = baggr.load(DATA / "v1_regression.npz")
     np.testing.assert_array_equal(ens.predict(DATA / "v1_regression_rows.csv"), expected["v1_regression_predict"])
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_version_1_files_saved_again_score_the_same(expected, tmp_path, threads):
+    ens = baggr.load(DATA / "v1_hard.npz")
+    ens.save(tmp_path / "again.npz")
+    again = baggr.load(tmp_path / "again.npz")
+    assert npzfile.read(tmp_path / "again.npz")[0]["format_version"] > 1
+    np.testing.assert_array_equal(again.vote_shares(DATA / "v1_classes_rows.csv", threads=threads),
+                                  expected["v1_hard_shares"])
+    ens = baggr.load(DATA / "v1_regression.npz")
+    ens.save(tmp_path / "again_r.npz")
+    np.testing.assert_array_equal(baggr.load(tmp_path / "again_r.npz").predict(DATA / "v1_regression_rows.csv",
+                                                                                threads=threads),
+                                  expected["v1_regression_predict"])

@@ -17,7 +17,7 @@ def _oob_by_definition(ens, X, task):
     n = codes.shape[1]
     cfg = ens.config
     drawer = Drawer(cfg.draw, n, cfg.seed, fraction=cfg.draw_fraction)
-    trees = ens.forest.unpack()
+    trees = ens.forest.to_forest().unpack()
     n_out = ens.forest.n_out
     total = np.zeros((n, n_out))
     count = np.zeros(n, np.int64)

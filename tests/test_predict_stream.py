@@ -78,3 +78,21 @@ def test_missing_columns_are_named_before_reading(model, tmp_path):
     pq.write_table(t, tmp_path / "one.parquet")
     with pytest.raises(baggr.DataError, match="lacks 6 of the model's columns"):
         list(Batches(tmp_path / "one.parquet", model.schema.names, model.schema.kinds))
+
+
+def test_the_streamed_output_follows_the_umask(model, tmp_path):
+    # an ordinary new file gets 0666 less the umask (POSIX open(2), from memory); mkstemp's 0600 must not stay
+    import os
+    old = os.umask(0o022)
+    try:
+        import importlib
+        import baggr.atomic as atomic
+        importlib.reload(atomic)      # the module reads the umask once, at import
+        import baggr.cli.commands as commands
+        out = tmp_path / "out.csv"
+        batches = Batches(_rows(tmp_path), model.schema.names, model.schema.kinds, rows=100)
+        commands._predict_stream(model, batches, out, "csv")
+    finally:
+        os.umask(old)
+        importlib.reload(atomic)
+    assert out.stat().st_mode & 0o777 == 0o644

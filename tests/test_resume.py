@@ -24,6 +24,7 @@ import pytest
 
 from baggr.runs import journal
 from baggr.model import npzfile
+from model_files import read_joined
 from baggr.model.ensemble import load
 from baggr.runs import CHECKPOINT, Lock, MODEL, RunDir
 from generators import noisy_halves
@@ -68,8 +69,8 @@ def wait_members(rd, k, proc, timeout=60.0) -> int:
 
 def assert_same_model(a, b):
     """The two model files hold the same arrays bit for bit and the same header apart from times."""
-    ha, aa = npzfile.read(a)
-    hb, ab = npzfile.read(b)
+    ha, aa = read_joined(a)
+    hb, ab = read_joined(b)
     assert sorted(aa) == sorted(ab)
     for k in aa:
         assert aa[k].dtype == ab[k].dtype and np.array_equal(aa[k], ab[k], equal_nan=True), k
@@ -176,15 +177,24 @@ def _fragile(point):
     def run(data, rd, reference):
         r = baggr(*train_args(data, rd), env={"BAGGR_FAULT_KILL": point})
         assert r.returncode == -signal.SIGKILL
+        trees = rd / "members" / "trees.npz"
         if point == "chunk:2":
-            assert (rd / "members" / "000004-000008.npz").exists()   # written, but its checkpoint never was
+            # the second checkpoint's trees were appended, but its checkpoint never was written
+            end = npzfile.read(rd / CHECKPOINT)[0]["trees"]["end"]
+            size = trees.stat().st_size
+            assert size > end
+            # and a write torn half way through them (as by a kill or a power cut mid-write)
+            os.truncate(trees, (end + size) // 2)
+        if point in ("final:1", "final:2"):
+            # the last trees appended (final:1), or the whole model too but not yet renamed (final:2)
+            assert trees.exists() and not (rd / MODEL).exists()
         if point == "model":
             assert (rd / MODEL).exists() and not any(ev["event"] == "end" for ev in events(rd))
         check_resumes_identically(rd, reference)
     return run
 
 
-for _p in ("chunk:2", "model"):
+for _p in ("chunk:2", "final:1", "final:2", "model"):
     scenario(f"fragile {_p}")(_fragile(_p))
 
 
@@ -209,8 +219,8 @@ def _stop(how):
         assert load(rd / MODEL).members == m
         header = npzfile.read(rd / CHECKPOINT)[0]
         assert header["next_member"] == m
-        # one copy of the trees: the checkpoint takes them from the model, the chunk files are gone
-        assert header["chunks"] == [[0, m, MODEL]] and not any((rd / "members").glob("*"))
+        # one copy of the trees: the checkpoint takes them from the model, no other tree file is left
+        assert header["trees"]["parts"][-1][1] == m and not any((rd / "members").glob("*"))
         assert not (rd / "stop").exists()
         if how in ("SIGINT", "stop file"):            # the others leave the very same files behind
             check_resumes_identically(rd, reference)
@@ -268,9 +278,11 @@ def test_kill_9_then_resume_is_bit_identical(outcomes, at):
     outcomes[f"kill {at}"].result()
 
 
-@pytest.mark.parametrize("point", ["chunk:2", "model"])
+@pytest.mark.parametrize("point", ["chunk:2", "final:1", "final:2", "model"])
 def test_kill_at_fragile_points_then_resume(outcomes, point):
-    """SIGKILL between a chunk file and its checkpoint, and between the model file and the end line."""
+    """SIGKILL between trees appended and their checkpoint (then the append torn half way), in the
+    model's final write (after its last trees; after its rest, before the rename), and between the
+    model file and the end line."""
     outcomes[f"fragile {point}"].result()
 
 

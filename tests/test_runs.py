@@ -6,6 +6,8 @@ import json
 import os
 
 import numpy as np
+
+import baggr
 import pytest
 
 import naive
@@ -324,29 +326,31 @@ def test_watch_without_the_dashboard_follows_the_journal(tmp_path, monkeypatch, 
     assert "member 1/3" in out and "member 3/3 100%" in out and "OOB error 25.00%" in out
 
 
-def test_a_stop_folds_the_trees_into_the_model_and_resume_reads_them_back(tmp_path):
+def test_a_stop_turns_the_trees_file_into_the_model_and_resume_reads_them_back(tmp_path):
     full_ens = _training().run()
     rd = create(tmp_path / "run")
     extra = {"sha256": "x", "config": _training().config.to_dict()}
 
-    def stop_at(tr, ck, m, fold=True):
+    def stop_at(tr, ck, m):
         tr.run(until=m)
         ck.write(wait=True)
-        tr.ensemble().save(rd / "model.npz")
-        if fold:
-            ck.fold_into_model("model.npz")
+        ck.finish_model(tr.ensemble(trees=False))
 
     first = _training()
     ck = Checkpointer(rd, first, RunSettings(), extra, background=False)
     stop_at(first, ck, 7)
-    assert ck.chunks == [[0, 7, "model.npz"]] and not any((rd / "members").glob("*"))
+    # one copy of the trees: the model; the checkpoint's trees file is it, renamed
+    assert not any((rd / "members").glob("*")) and (rd / "model.npz").exists()
+    assert npzfile.read(rd / CHECKPOINT)[0]["trees"]["parts"] == [[0, 7]]
+    seven = baggr.load(rd / "model.npz")
+    X, _ = _xy()
+    np.testing.assert_array_equal(seven.vote_shares(X), full_ens.vote_shares(X, members=7))
     second = _training()
     ck2 = Checkpointer(rd, second, RunSettings(), extra, background=False)
     assert ck2.restore() and second.next_member == 7
-    # stopped again, killed after the model was replaced but before the fold: the checkpoint
-    # names the model for members 0-6 and a chunk for 7-12, and the model holds 13
-    stop_at(second, ck2, 13, fold=False)
-    assert ck2.chunks == [[0, 7, "model.npz"], [7, 13, "members/000007-000013.npz"]]
+    assert (rd / "model.npz").exists()          # the model stays until the resumed run appends
+    stop_at(second, ck2, 13)
+    assert npzfile.read(rd / CHECKPOINT)[0]["trees"]["parts"] == [[0, 7], [7, 13]]
     third = _training()
     ck3 = Checkpointer(rd, third, RunSettings(), extra, background=False)
     assert ck3.restore() and third.next_member == 13
@@ -361,14 +365,13 @@ def test_a_checkpoint_naming_a_model_with_too_few_members_is_refused(tmp_path):
     rd = create(tmp_path / "run")
     extra = {"sha256": "x", "config": _training().config.to_dict()}
     tr = _training()
-    ck = Checkpointer(rd, tr, RunSettings(), extra, background=False)
+    ck = Checkpointer(rd, tr, RunSettings(checkpoint_members=50), extra, background=False)
     tr.run(until=6)
     ck.write(wait=True)
-    tr.ensemble().save(rd / "model.npz")
-    ck.fold_into_model("model.npz")
+    ck.finish_model(tr.ensemble(trees=False))
     short = _training(members=24)
     short.run(until=4)
     short.ensemble().save(rd / "model.npz")       # replaced by a model of 4 members
     again = _training()
-    with pytest.raises(ModelFileError, match="fewer than the checkpoint's 6"):
+    with pytest.raises(ModelFileError, match="holds 4 members, the checkpoint 6"):
         Checkpointer(rd, again, RunSettings(), extra, background=False).restore()

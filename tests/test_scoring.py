@@ -32,7 +32,8 @@ def _table(n, seed, task, categorical):
 
 
 def _reference(ens, codes):
-    a = ens.forest.arrays
+    # the learner's node arrays as grown (kept by the fixture), else unpacked from the records
+    a = ens.wide.arrays if hasattr(ens, "wide") else ens.forest.to_forest().arrays
     hard = ens.task == "classes" and ens.config.vote == "hard"
     sums, votes = score_rows(codes, 0, codes.shape[1], a["left"], a["right"], a["feature"], a["threshold"], a["is_cat"],
                              a["missing_left"], a["cat_masks"], a["value"], a["node_offset"], a["mask_offset"], hard)
@@ -49,7 +50,12 @@ def model(request):
     X, y = _table(1500, 3, task, categorical)
     cfg = baggr.Config(members=7, seed=5, threads=1, vote=vote, min_leaf=2 if vote == "shares" else 1,
                        depth_limit=None if task == "classes" else 9)
-    ens = baggr.train(X, y, cfg)
+    from baggr.engine import Training
+    from baggr.model.forest import Forest
+    tr = Training(X, y, cfg)
+    ens = tr.run()
+    # each member grown again on its own (a pure function of m): the learner's own node arrays
+    ens.wide = Forest.pack([tr.grower.grow_member(m).tree for m in range(cfg.members)], tr.n_out)
     new, _ = _table(9000, 4, task, categorical)
     codes = data.encode(new, ens.schema, ens.binning)
     return ens, codes, _reference(ens, codes)
@@ -98,11 +104,12 @@ def test_save_and_load_keep_the_bits(model, tmp_path):
 def test_compact_counts_every_node(model):
     ens = model[0]
     c = ens.compact
-    n_nodes = ens.forest.arrays["left"].shape[0]
-    n_sets = ens.forest.arrays["cat_masks"].shape[0]
+    wide = ens.wide.arrays     # the learner's node arrays the records came from
+    n_nodes = wide["left"].shape[0]
+    n_sets = wide["cat_masks"].shape[0]
     assert c.n_nodes == n_nodes and c.has_cat == (n_sets > 0)
     assert c.arrays["nodes"].shape[0] == n_nodes + 4 * n_sets  # one slot a node, 4 a level set
-    assert c.arrays["leaves"].shape[0] == int(np.sum(ens.forest.arrays["left"] < 0))
+    assert c.arrays["leaves"].shape[0] == int(np.sum(wide["left"] < 0))
     fresh = type(c)(c.arrays, c.kind, c.n_out)  # counted from the records alone, as after a load
     assert fresh.n_nodes == n_nodes and fresh.has_cat == c.has_cat
 
@@ -125,7 +132,28 @@ def test_unpacked_forest_packs_to_the_same_records(model):
     back = c.to_forest()
     back.validate(len(ens.schema.names), c.n_out)
     for name in ("left", "right", "feature", "is_cat", "missing_left", "node_offset", "mask_offset"):
-        assert back.arrays[name].shape == ens.forest.arrays[name].shape, name
+        assert back.arrays[name].shape == ens.wide.arrays[name].shape, name
     again = Compact.from_forest(back, c.kind)
     for k, v in c.arrays.items():
         np.testing.assert_array_equal(again.arrays[k], v, err_msg=k)
+
+
+@pytest.mark.parametrize("threads", [1, 3])
+def test_a_model_in_parts_scores_as_one_and_keeps_the_bits_through_a_file(model, tmp_path, threads):
+    # a run's model holds one part per checkpoint: its trees add in member order, as one part's do
+    from baggr.model.arena import Arena
+    from baggr.model.compact import Stack
+    from baggr.model.ensemble import Ensemble
+    ens, codes, want = model
+    c = ens.compact
+    whole = Arena(c.kind, c.n_out, c.members, 1500, True)
+    whole.extend(c)
+    parts = Stack([whole.compact(0, 2), whole.compact(2, 3), whole.compact(3, c.members)])
+    np.testing.assert_array_equal(score(codes, parts, threads=threads), want)
+    split = Ensemble(ens.schema, ens.binning, ens.config, parts, ens.oob, ens.stats)
+    split.save(tmp_path / "parts.npz")
+    back = baggr.load(tmp_path / "parts.npz")
+    assert isinstance(back.forest, Stack) and [p.members for p in back.forest.parts] == [2, 1, c.members - 3]
+    np.testing.assert_array_equal(score(codes, back.compact, threads=threads), want)
+    np.testing.assert_array_equal(score(codes, back.compact.head(4), threads=threads),
+                                  score(codes, c.head(4), threads=1))

@@ -250,6 +250,7 @@ def _predict_stream(ens, batches, out: Path, kind: str, keep=(), unseen=None, me
 
     from baggr.data import unseen_levels
     classes = pa.array(list(ens.classes)) if ens.task == "classes" else None
+    from baggr.atomic import ordinary_mode
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=out.suffix, dir=out.parent.resolve())
     os.close(fd)
     writer, rows = None, 0
@@ -278,6 +279,7 @@ def _predict_stream(ens, batches, out: Path, kind: str, keep=(), unseen=None, me
             raise DataError(f"{batches.path} has no rows")
         writer.close()
         writer = None
+        ordinary_mode(tmp)    # mkstemp makes it private: the output is as shareable as any new file
         os.replace(tmp, out)
     except OSError as e:
         raise BaggrError(f"cannot write {out}: {e.strerror or e}") from None

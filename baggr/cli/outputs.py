@@ -6,6 +6,7 @@ import os
 import tempfile
 from pathlib import Path
 
+from baggr.atomic import ordinary_mode
 from baggr.errors import BaggrError, ConfigError
 
 OUT_KINDS = {".csv": "csv", ".tsv": "tsv", ".parquet": "parquet", ".pq": "parquet"}
@@ -33,9 +34,7 @@ def write_atomic(out: Path, write) -> None:
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=out.suffix, dir=out.parent.resolve())
     os.close(fd)
     try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)     # as an ordinary new file (mkstemp makes it private)
+        ordinary_mode(tmp)     # as an ordinary new file (mkstemp makes it private)
         write(tmp)
         os.replace(tmp, out)
     except OSError as e:

@@ -158,6 +158,11 @@ class Compact:
                   w["node_offset"], w["mask_offset"])
         return Forest(w)
 
+    @property
+    def n_sets(self) -> int:
+        """Categorical splits (each with a level set in 4 slots)."""
+        return self._count_sets()
+
     def _count_sets(self) -> int:
         if self._sets is None:
             self._sets = int(ck.count_sets(self.arrays["nodes"], self.arrays["offset"]))
@@ -172,3 +177,70 @@ class Compact:
     def has_cat(self) -> bool:
         """True if some split is on a categorical feature (scoring then takes the general step)."""
         return self._count_sets() > 0
+
+
+@dataclass
+class Stack:
+    """Compact forests of consecutive members, in member order: a model file a run wrote as it went
+    holds one part per checkpoint (file.py). Scoring adds the parts' trees in member order, so a
+    Stack scores bit for bit as the one Compact of all its members would."""
+
+    parts: list
+
+    @property
+    def kind(self) -> str:
+        return self.parts[0].kind
+
+    @property
+    def n_out(self) -> int:
+        return self.parts[0].n_out
+
+    @property
+    def members(self) -> int:
+        return sum(p.members for p in self.parts)
+
+    @property
+    def nbytes(self) -> int:
+        return sum(p.nbytes for p in self.parts)
+
+    @property
+    def n_nodes(self) -> int:
+        return sum(p.n_nodes for p in self.parts)
+
+    @property
+    def n_sets(self) -> int:
+        return sum(p.n_sets for p in self.parts)
+
+    @property
+    def has_cat(self) -> bool:
+        return any(p.has_cat for p in self.parts)
+
+    def validate(self, feature_is_cat: np.ndarray, n_out: int, threads: int | None = None) -> None:
+        at = 0
+        for p in self.parts:
+            try:
+                p.validate(feature_is_cat, n_out, threads)
+            except ModelFileError as e:
+                raise ModelFileError(f"tree part from member {at}: {e}") from None
+            at += p.members
+
+    def head(self, k: int) -> "Stack":
+        """The first k members (views)."""
+        out, left = [], k
+        for p in self.parts:
+            if left <= 0:
+                break
+            out.append(p if p.members <= left else p.head(left))
+            left -= p.members
+        return Stack(out)
+
+    def to_forest(self):
+        """The learner's node arrays of all parts' trees, one Forest (see Compact.to_forest)."""
+        from baggr.model.forest import Forest
+        forests = [p.to_forest().unpack() for p in self.parts]
+        return Forest.pack([t for f in forests for t in f], self.n_out)
+
+
+def parts_of(trees) -> list:
+    """The Compact parts of a Compact or a Stack, in member order."""
+    return list(trees.parts) if isinstance(trees, Stack) else [trees]

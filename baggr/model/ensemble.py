@@ -7,7 +7,7 @@ from baggr import data
 from baggr.config import Config
 from baggr.errors import BaggrError
 from baggr.model import file
-from baggr.model.compact import Compact, kind_for
+from baggr.model.compact import Compact, Stack, kind_for
 from baggr.model.forest import Forest
 from baggr.oob.view import OOB
 from baggr.model.scoring import score
@@ -16,18 +16,20 @@ from baggr.model.scoring import score
 class Ensemble:
     """A trained bagged tree ensemble. `oob` holds its out-of-bag estimate.
 
-    forest: the learner's node arrays (a Forest: after training, or read from a version-1 file),
-    or only the compact forest scoring walks (read from a version-2 file); None when estimate-only.
+    forest: the kept trees as scoring walks them (a Compact; a Stack of them, read from a model file
+    a run wrote as it went), or the learner's node arrays (a Forest, read from a version-1 file);
+    None when estimate-only.
     """
 
-    def __init__(self, schema, binning, config: Config, forest: Forest | Compact | None, oob: OOB, stats: dict):
+    def __init__(self, schema, binning, config: Config, forest: Forest | Compact | Stack | None, oob: OOB,
+                 stats: dict):
         self.schema, self.binning, self.config = schema, binning, config
         self.forest, self.oob, self.stats = forest, oob, stats
         oob.features = list(schema.names)
-        self._compact = forest if isinstance(forest, Compact) else None
+        self._compact = forest if isinstance(forest, (Compact, Stack)) else None
 
     @property
-    def compact(self) -> Compact | None:
+    def compact(self) -> Compact | Stack | None:
         """The trees as scoring walks them (packed from the Forest on first use)."""
         if self._compact is None and self.forest is not None:
             self._compact = Compact.from_forest(self.forest, kind_for(self.task, self.config.vote))
@@ -45,7 +47,7 @@ class Ensemble:
     def members(self) -> int:
         return self.oob.members
 
-    def _trees(self, members) -> Compact:
+    def _trees(self, members) -> Compact | Stack:
         """The kept members to score with: all, or the first `members` (as a run of that many)."""
         if self.forest is None or self.forest.members == 0:
             raise BaggrError("this ensemble was trained estimate-only (keep_members=False): "
@@ -58,7 +60,7 @@ class Ensemble:
                              f"(the members this ensemble keeps), got {members!r}")
         return self.compact.head(int(members))
 
-    def _scores(self, X, trees: Compact, threads: int | None) -> np.ndarray:
+    def _scores(self, X, trees: Compact | Stack, threads: int | None) -> np.ndarray:
         if isinstance(X, (str, bytes)) or hasattr(X, "__fspath__"):
             X = data.read_table(X)
         codes = data.encode(X, self.schema, self.binning)

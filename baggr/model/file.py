@@ -1,7 +1,10 @@
 """The model file: one .npz (no pickles) with a JSON header; validated in full on load.
 
-Version 2 stores the compact forest (compact.py: 8 bytes a node); version 1 stored the learner's
-node arrays (forest.py: about 50 bytes a node) and is still read.
+Version 3 stores the compact forest (compact.py: 8 bytes a node) in parts of consecutive members,
+arrays tree0_*, tree1_*, ...: a run appends one part to its trees file at each checkpoint and the
+OOB results and header at its end (runs/trees_file.py), so its model is written once, as it goes;
+ensemble.save writes one part. Version 2 stored one compact forest (tree_*); version 1 the
+learner's node arrays (forest.py: about 50 bytes a node). Both are still read.
 """
 from __future__ import annotations
 
@@ -15,14 +18,15 @@ from baggr import data
 from baggr.model import npzfile
 from baggr.config import Config
 from baggr.errors import BaggrError, ModelFileError
-from baggr.model.compact import Compact, kind_for
+from baggr.model.compact import Compact, Stack, kind_for, parts_of
 from baggr.model.forest import Forest
 from baggr.oob.importance import check_arrays as _check_importance
 from baggr.oob.measure_curve import check_arrays as _check_measures
 from baggr.oob.view import OOB
 
 FORMAT = "baggr-model"
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
+MAX_PARTS = 1 << 20
 
 # OOB arrays by task: name -> (dtype kinds allowed, ndim)
 OOB_FIELDS = {
@@ -36,21 +40,41 @@ OOB_FIELDS = {
 }
 
 
+def part_arrays(part: Compact, p: int) -> dict:
+    """The arrays of tree part p as the model file names them."""
+    return {f"tree{p}_{k}": v for k, v in part.arrays.items()}
+
+
+def trees_header(kind: str, n_out: int, parts: list[int]) -> dict:
+    """The header's description of the trees: their kind, outputs and the members of each part."""
+    return {"kind": kind, "n_out": int(n_out), "parts": [int(k) for k in parts]}
+
+
+def rest(ensemble, trees: dict | None) -> tuple[dict, dict]:
+    """(arrays, header) of everything but the trees: binning, OOB results, the header (whose
+    "trees" is `trees`, None for an estimate-only ensemble)."""
+    arrays = {"bin_" + k: v for k, v in ensemble.binning.to_arrays().items()}
+    arrays.update({"oob_" + k: v for k, v in ensemble.oob.arrays().items()})
+    header = {"format": FORMAT, "format_version": FORMAT_VERSION, "baggr_version": __version__,
+              "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+              "schema": ensemble.schema.to_json(), "config": ensemble.config.to_dict(),
+              "has_trees": trees is not None, "trees": trees, "oob": ensemble.oob.summary(),
+              "stats": {k: (float(v) if isinstance(v, (float, np.floating)) else int(v)) for k, v in ensemble.stats.items()}}
+    return arrays, header
+
+
 def save(ensemble, path, *, compress: bool = False) -> None:  # ensemble: a baggr.model.ensemble.Ensemble
     """Write the ensemble to path (atomically: a crash never leaves a torn model file).
     compress: deflate the arrays (see bench/README.md for what it saves and costs on load)."""
     arrays, trees = {}, None
     compact = ensemble.compact
     if compact is not None:
-        arrays.update({"tree_" + k: v for k, v in compact.arrays.items()})
-        trees = {"kind": compact.kind, "n_out": compact.n_out}
-    arrays.update({"bin_" + k: v for k, v in ensemble.binning.to_arrays().items()})
-    arrays.update({"oob_" + k: v for k, v in ensemble.oob.arrays().items()})
-    header = {"format": FORMAT, "format_version": FORMAT_VERSION, "baggr_version": __version__,
-              "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-              "schema": ensemble.schema.to_json(), "config": ensemble.config.to_dict(),
-              "has_trees": compact is not None, "trees": trees, "oob": ensemble.oob.summary(),
-              "stats": {k: (float(v) if isinstance(v, (float, np.floating)) else int(v)) for k, v in ensemble.stats.items()}}
+        parts = [p for p in parts_of(compact) if p.members] or parts_of(compact)[:1]
+        for i, part in enumerate(parts):
+            arrays.update(part_arrays(part, i))
+        trees = trees_header(compact.kind, compact.n_out, [p.members for p in parts])
+    more, header = rest(ensemble, trees)
+    arrays.update(more)
     try:
         npzfile.write_atomic(path, arrays, header, compress=compress)
     except OSError as e:
@@ -83,8 +107,12 @@ def read(path) -> tuple:
     n_out = max(1, len(schema.classes)) if schema.task == "classes" else 1
     forest = None
     if header.get("has_trees"):
-        tree_arrays = {k[5:]: v for k, v in arrays.items() if k.startswith("tree_")}
-        forest = (_forest_v1 if version == 1 else _compact)(tree_arrays, header, schema, config, binning, n_out, path)
+        if version < 3:
+            tree_arrays = {k[5:]: v for k, v in arrays.items() if k.startswith("tree_")}
+            forest = (_forest_v1 if version == 1 else _compact)(tree_arrays, header, schema, config, binning, n_out,
+                                                                path)
+        else:
+            forest = _parts(arrays, header, schema, config, binning, n_out, path)
     oob_arrays = {k[4:]: v for k, v in arrays.items() if k.startswith("oob_")}
     _check_oob(oob_arrays, schema, path)
     stats = header.get("stats") if isinstance(header.get("stats"), dict) else {}
@@ -101,6 +129,28 @@ def _forest_v1(tree_arrays, header, schema, config, binning, n_out, path) -> For
     if np.any((a["is_cat"] == 1) != binning.is_cat[np.maximum(a["feature"], 0)].astype(bool) & (a["feature"] >= 0)):
         raise ModelFileError(f"{os.fspath(path)}: a split's kind does not match its feature's kind")
     return forest
+
+
+def _parts(arrays, header, schema, config, binning, n_out, path) -> Compact | Stack:
+    """The trees of a version-3 file: its parts, each checked; one Compact, or a Stack of several."""
+    trees = header.get("trees")
+    parts = trees.get("parts") if isinstance(trees, dict) else None
+    if not isinstance(parts, list) or not 1 <= len(parts) <= MAX_PARTS \
+            or any(isinstance(k, bool) or not isinstance(k, int) or k < 0 for k in parts):
+        raise ModelFileError(f"{os.fspath(path)}: the header's list of tree parts is damaged")
+    names = {f"tree{p}_" for p in range(len(parts))}
+    stray = [k for k in arrays if k.startswith("tree") and k[:k.find("_") + 1] not in names]
+    if stray:
+        raise ModelFileError(f"{os.fspath(path)}: array {stray[0]!r} belongs to no tree part")
+    out = []
+    for p, k in enumerate(parts):
+        prefix = f"tree{p}_"
+        part = _compact({n[len(prefix):]: v for n, v in arrays.items() if n.startswith(prefix)}, header, schema,
+                        config, binning, n_out, path)
+        if part.members != k:
+            raise ModelFileError(f"{os.fspath(path)}: tree part {p} holds {part.members} members, the header says {k}")
+        out.append(part)
+    return out[0] if len(out) == 1 else Stack(out)
 
 
 def _compact(tree_arrays, header, schema, config, binning, n_out, path) -> Compact:

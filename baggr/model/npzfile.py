@@ -4,6 +4,13 @@ Written files are ordinary .npz archives (numpy.load reads them). Stored (uncomp
 start at a multiple of 64 bytes in the file (a padding record in the zip entry's extra field), so
 a reader can map them in place: opening a large model then costs neither a copy nor memory the
 system cannot take back. Compressed arrays are read and inflated.
+
+A mapped file that is cut short (truncated, or rewritten in place) while it is mapped would make
+the next access to a page past its new end fault (SIGBUS): the reader checks every entry's size
+against the file's before mapping, and reads files under MAP_FILE_BYTES into memory instead of
+mapping them, so only large files carry that risk, and only if something changes them in place
+while they are open (baggr itself only ever replaces a model file by renaming a new one over it,
+which leaves an open mapping intact).
 """
 from __future__ import annotations
 
@@ -22,7 +29,8 @@ from baggr.errors import ModelFileError
 ALLOWED_KINDS = "biuf"     # bool, ints, unsigned ints, floats: never objects
 MAX_HEADER = 16 << 20
 ALIGN = 64
-MAP_BYTES = 1 << 20        # arrays this large or larger are mapped, not read
+MAP_BYTES = 1 << 20        # arrays this large or larger are mapped, not read ...
+MAP_FILE_BYTES = 64 << 20  # ... in files this large or larger (smaller files are read whole)
 _PAD_ID = 0x6262           # the zip extra-field record that pads an entry's header (readers skip unknown ids)
 _CRC_CHUNK = 1 << 24
 
@@ -55,6 +63,41 @@ def write_atomic(path, arrays: dict, header: dict, *, compress: bool = False) ->
     replace_atomic(path, write, suffix=".npz")
 
 
+def append(path, arrays: dict, header: dict, *, end: int) -> int:
+    """Append arrays and a new header to the archive held by the first `end` bytes of path (a new
+    file when end is 0), fsync, and return the file's new length: a complete archive again.
+
+    The new central directory lists every earlier entry but the old header, and comes after the
+    new entries; the old header and central directory stay behind as dead bytes (a few hundred a
+    step). So a step killed half way leaves the archive of the step before intact in the first
+    `end` bytes: the caller records the length each step returns, durably, and passes it back.
+    """
+    blob = np.frombuffer(json.dumps(header, allow_nan=False).encode(), dtype=np.uint8)
+    with open(path, "r+b" if end else "wb") as f:
+        infos = []
+        if end:
+            if os.fstat(f.fileno()).st_size < end:
+                raise ModelFileError(f"{path} is shorter than its last complete step ({end} bytes): it was cut")
+            f.truncate(end)
+            try:
+                with zipfile.ZipFile(f) as old:
+                    infos = [i for i in old.infolist() if i.filename != "header.npy"]
+            except (zipfile.BadZipFile, OSError, ValueError, EOFError, NotImplementedError) as e:
+                raise ModelFileError(f"{path} is damaged ({type(e).__name__}: {e})") from None
+        f.seek(end)
+        zf = zipfile.ZipFile(f, "w", allowZip64=True)
+        for info in infos:
+            zf.filelist.append(info)
+            zf.NameToInfo[info.filename] = info
+        for name, a in arrays.items():
+            _entry(f, zf, name, a, False)
+        _entry(f, zf, "header", blob, False)
+        zf.close()
+        f.flush()
+        os.fsync(f.fileno())
+        return f.tell()
+
+
 def read(path, what: str = "model file", *, map_arrays: bool = True) -> tuple[dict, dict]:
     """(header, arrays) of an .npz written by write_atomic; every array's header is checked before
     reading. map_arrays: large stored arrays are mapped from the file (copy on write) after their
@@ -70,6 +113,7 @@ def read(path, what: str = "model file", *, map_arrays: bool = True) -> tuple[di
     try:
         with zf, open(path, "rb") as raw:
             size = os.fstat(raw.fileno()).st_size
+            map_arrays = map_arrays and size >= MAP_FILE_BYTES
             for info in zf.infolist():
                 name = info.filename
                 if not name.endswith(".npy") or "/" in name or name[:-4] in arrays:

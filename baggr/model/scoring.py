@@ -7,7 +7,7 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
-from baggr.model.compact import KINDS, Compact
+from baggr.model.compact import KINDS, Compact, Stack, parts_of
 from baggr.model.predict_kernels import score_compact
 
 BLOCK_BYTES = 1 << 18   # a block of rows' codes, row-major: it and one tree stay in L2
@@ -19,8 +19,9 @@ def all_threads() -> int:
     return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1
 
 
-def score(codes: np.ndarray, compact: Compact, *, threads: int | None = None) -> np.ndarray:
-    """Summed hard votes (kind "votes") or summed leaf values or shares of all members, (n, n_out) float64."""
+def score(codes: np.ndarray, compact: Compact | Stack, *, threads: int | None = None) -> np.ndarray:
+    """Summed hard votes (kind "votes") or summed leaf values or shares of all members, (n, n_out) float64.
+    A Stack's parts are added one after another into the same sums: members in order, as one Compact."""
     n, p = codes.shape[1], codes.shape[0]
     threads = max(1, threads or all_threads())
     kind, n_out = KINDS[compact.kind], compact.n_out
@@ -28,13 +29,13 @@ def score(codes: np.ndarray, compact: Compact, *, threads: int | None = None) ->
     sums = np.zeros((0 if kind == 0 else n, n_out), np.float64)
     width = 1 << max(0, int(p - 1).bit_length())
     block = int(min(8192, max(256, BLOCK_BYTES // width)))
-    a = compact.arrays
-    nodes = a["nodes"]
     has_cat = compact.has_cat
+    parts = [p.arrays for p in parts_of(compact) if p.members]
 
     def run(lo: int, hi: int) -> None:
-        score_compact(codes, lo, hi, block, nodes, a["offset"], a["leaf_offset"], a["leaves"], a["shares"], kind,
-                      has_cat, sums[lo:hi] if kind else sums, votes[lo:hi] if kind == 0 else votes)
+        for a in parts:
+            score_compact(codes, lo, hi, block, a["nodes"], a["offset"], a["leaf_offset"], a["leaves"], a["shares"],
+                          kind, has_cat, sums[lo:hi] if kind else sums, votes[lo:hi] if kind == 0 else votes)
 
     if n and compact.members:
         pieces = 1 if threads == 1 else min(threads * SPANS_PER_THREAD, -(-n // 1024))

@@ -3,7 +3,7 @@
 files       the names of a run directory's files; writing them atomically
 lock        the job's flock on DIR/lock
 rundir      a run directory, its settings (config.json), the data file's fingerprint
-checkpoint  checkpoints and kept-tree chunk files, written in the background; the fault hooks
+checkpoint  checkpoints and the kept trees appended to the trees file, written in the background; the fault hooks
 job         the training job: resume, train, stop on a signal or a settled curve, save
 detach      the job as its own process, and waiting for it to start
 comparison  a comparison directory: its candidates (one run directory each) and comparison.json

@@ -1,6 +1,7 @@
-"""Checkpoints of a run: the tallies in checkpoint.npz, the kept trees in append-only chunk files
-members/AAAAAA-BBBBBB.npz, written in the background and atomically; reading them back; the fault
-hooks the tests use to kill a job or fill its disk at a chosen point.
+"""Checkpoints of a run: the tallies in checkpoint.npz (written atomically), the kept trees appended
+to the run's trees file (trees_file.py), both in the background; reading them back; the fault hooks
+the tests use to kill a job or fill its disk at a chosen point. Checkpoints of format 1 kept the
+trees in chunk files members/AAAAAA-BBBBBB.npz, which a resume still reads.
 """
 from __future__ import annotations
 
@@ -19,14 +20,17 @@ from baggr.errors import BaggrError, ModelFileError
 from baggr.model import npzfile
 from baggr.runs.files import CHECKPOINT, CHECKPOINT_INFO, CONFIG, MEMBERS, MODEL, write_error, write_json_atomic
 from baggr.runs.rundir import RunDir, RunSettings
+from baggr.runs.trees_file import TreesFile
 
 CHECKPOINT_FORMAT = "baggr-checkpoint"
-CHECKPOINT_VERSION = 1
+CHECKPOINT_VERSION = 2   # 1: kept trees in chunk files; 2: in the trees file
 CHUNK_FORMAT = "baggr-members"
 CHUNK_VERSION = 2   # 1: the learner's node arrays; 2: the compact layout of model format 2
 
 FAULT_CHECKPOINT = "BAGGR_FAULT_CHECKPOINT"  # "enospc" or "enospc:N": the N-th checkpoint write fails
-FAULT_KILL = "BAGGR_FAULT_KILL"              # "member:N", "chunk:N" or "model": SIGKILL itself there
+# "member:N", "chunk:N" (after the N-th checkpoint's trees), "final:1" (after the model's last trees),
+# "final:2" (after its rest, before the rename) or "model" (saved): SIGKILL itself there
+FAULT_KILL = "BAGGR_FAULT_KILL"
 
 
 def _chunk_name(a: int, b: int) -> str:
@@ -60,7 +64,8 @@ class Checkpointer:
                  background: bool = True):
         self.rd, self.training, self.settings = rd, training, settings
         self.header_extra, self.journal, self.background = header_extra, journal, background
-        self.chunks: list = []                  # [a, b, name] of the kept trees written so far
+        self.chunks: list = []                  # [a, b, name] of chunk files a format-1 checkpoint names
+        self.trees_file = TreesFile(rd)         # the kept trees written so far
         self.member = training.next_member      # members covered by the latest durable checkpoint
         self.last_started = self.member         # members covered by the latest write begun
         self.t_last = time.monotonic()
@@ -98,18 +103,18 @@ class Checkpointer:
         m = tr.next_member
         self.writes += 1
         self.last_started = m
-        kept = self.chunks[-1][1] if self.chunks else 0
-        base = tr.trees_base          # trees before it were set aside: they are in chunk files already
+        kept = self.trees_file.stored
+        base = tr.trees_base          # trees before it were set aside: they are in the trees file already
         if tr.config.keep_members and kept < base:
             raise ValueError(f"trees from member {kept} on were set aside before a checkpoint stored them")
-        trees = list(tr.trees[kept - base:m - base]) if tr.config.keep_members and m > kept else []
+        trees = tr.kept(kept, m) if tr.config.keep_members and m > kept else None
         arrays, header = tr.checkpoint()
         arrays = {k: np.array(v, copy=True) for k, v in arrays.items()}   # the tallies move on meanwhile
         if tr.prep.task == "classes":
             arrays["class_rows"] = np.asarray(tr.tally.class_rows, np.int64).copy()
         header.update(self.header_extra, format=CHECKPOINT_FORMAT, format_version=CHECKPOINT_VERSION,
                       baggr_version=__version__, t=time.time())
-        job = (self.writes, m, kept, trees, arrays, header, list(self.chunks))
+        job = (self.writes, m, kept, trees, arrays, header)
         if self.background:
             import threading
             self._thread = threading.Thread(target=self._work, args=job, name="baggr-checkpoint", daemon=True)
@@ -123,22 +128,21 @@ class Checkpointer:
         if wait or not self.background:
             self.wait()
 
-    def _work(self, n, m, kept, trees, arrays, header, chunks) -> None:
+    def _work(self, n, m, kept, trees, arrays, header) -> None:
         """Write one checkpoint's files (any thread); the outcome waits in _result."""
         t0, c0 = time.monotonic(), time.thread_time()
         try:
-            if trees:
-                name = _chunk_name(kept, m)
-                self._write_chunk(kept, m, name, trees)
-                chunks.append([kept, m, name])
+            if trees is not None:
+                self.trees_file.append(trees, kept, m)
                 fault_kill("chunk", n)
             if _fault_due(n):
                 raise OSError(errno.ENOSPC, "No space left on device (simulated by " + FAULT_CHECKPOINT + ")")
-            header["chunks"] = chunks
+            record = self.trees_file.record() if self.training.config.keep_members else None
+            header["trees"] = record
             npzfile.write_atomic(self.rd / CHECKPOINT, arrays, header)
             write_json_atomic(self.rd / CHECKPOINT_INFO, {"member": m, "elapsed": header["elapsed"],
-                                                          "t": header["t"], "chunks": chunks})
-            self._result = (m, chunks, None, time.monotonic() - t0, time.thread_time() - c0)
+                                                          "t": header["t"], "trees": record})
+            self._result = (m, [], None, time.monotonic() - t0, time.thread_time() - c0)
         except BaseException as e:   # handed to the main thread
             self._result = (m, None, e, time.monotonic() - t0, time.thread_time() - c0)
 
@@ -168,38 +172,34 @@ class Checkpointer:
         self.chunks, self.member = chunks, m
         if self.journal is not None:
             self.journal.write("checkpoint", member=m)
+        self._drop_superseded()
 
-    def fold_into_model(self, model_name: str) -> None:
-        """After a stop has saved the model: the checkpoint takes its trees from the model file
-        (which holds at least the checkpoint's members, in the same records) and the chunk files
-        go, so a stopped run keeps one copy of its trees. Crash-safe: the checkpoint naming the
-        model is renamed into place before a chunk file is removed."""
+    def _drop_superseded(self) -> None:
+        """Once a checkpoint's trees file holds every stored tree: what it replaces goes (chunk files
+        of a format-1 checkpoint; the model a grown run or an older checkpoint started from)."""
+        if self.trees_file.parts and (self.rd / self.trees_file.file).exists() and self.trees_file.file != MODEL:
+            self._drop_unreferenced()
+            try:
+                (self.rd / MODEL).unlink()
+            except FileNotFoundError:
+                pass
+
+    def finish_model(self, ensemble) -> None:
+        """Write the run's model: the trees not stored yet appended to the trees file, then the rest
+        (binning, OOB results, header; ensemble: the run's Ensemble, its trees left out), and the
+        file renamed model.npz. The trees are never copied: the final write adds only what is new."""
+        from baggr.model import file
         self.wait()
-        if not self.training.config.keep_members or not self.chunks or not (self.rd / CHECKPOINT).exists():
-            return
-        header, arrays = npzfile.read(self.rd / CHECKPOINT, "checkpoint file")
-        chunks = [[0, self.member, model_name]]
-        header["chunks"] = chunks
-        npzfile.write_atomic(self.rd / CHECKPOINT, arrays, header)
-        write_json_atomic(self.rd / CHECKPOINT_INFO, {"member": self.member, "elapsed": header["elapsed"],
-                                                      "t": header["t"], "chunks": chunks})
-        self.chunks = chunks
-        self._drop_unreferenced()
+        tr, tf = self.training, self.trees_file
+        m = tr.next_member
+        if m > tf.stored:
+            tf.append(tr.kept(tf.stored, m), tf.stored, m)
+        fault_kill("final", 1)
+        arrays, header = file.rest(ensemble, file.trees_header(tr.kind, tr.n_out, [b - a for a, b in tf.parts]))
+        tf.finish(arrays, header, before_rename=lambda: fault_kill("final", 2))
 
     def _kind(self) -> str:
-        from baggr.model.compact import kind_for
-        return kind_for(self.training.prep.task, self.training.config.vote)
-
-    def _write_chunk(self, a: int, b: int, name: str, trees: list) -> None:
-        """Members a..b-1 in the model file's compact layout (chunk format 2; format 1 held the
-        learner's arrays, five times larger)."""
-        from baggr.model.compact import Compact
-        from baggr.model.forest import Forest
-        path = self.rd / name
-        path.parent.mkdir(exist_ok=True)
-        compact = Compact.from_forest(Forest.pack(trees, self.training.n_out), self._kind())
-        npzfile.write_atomic(path, compact.arrays, {"format": CHUNK_FORMAT, "format_version": CHUNK_VERSION,
-                                                    "first": a, "last": b, "kind": compact.kind})
+        return self.training.kind
 
     def restore(self) -> bool:
         """Continue the training from the checkpoint on disk, if any; True when one was loaded."""
@@ -216,13 +216,19 @@ class Checkpointer:
         if header.get("sha256") not in (None, self.header_extra.get("sha256")):
             raise ModelFileError(f"{path} was made from other data than the run's data file")
         chunks = header.get("chunks") or []
-        trees, expect = [], 0
+        trees, expect = None, 0
         if tr.config.keep_members:
-            trees = self._load_chunks(chunks, tr.prep.codes.shape[0])
-            expect = len(trees)
-        tr.restore(arrays, header, trees if tr.config.keep_members else None)
-        if tr.config.keep_members and expect != tr.next_member:
-            raise ModelFileError(f"{path}: chunk files hold {expect} members, the tallies {tr.next_member}")
+            if header.get("format_version") == 1:     # chunk files; the next checkpoint starts a trees file
+                trees = self._load_chunks(chunks, tr.prep.codes.shape[0])
+            else:
+                self.trees_file = TreesFile(self.rd, header.get("trees"))
+                trees = self.trees_file.read(tr.kind, tr.n_out, tr.prep.binning.is_cat)
+                chunks = []
+            expect = trees.members if trees is not None else 0
+        if tr.config.keep_members and expect != int(header.get("next_member", -1)):
+            raise ModelFileError(f"{path}: the stored trees hold {expect} members, the tallies "
+                                 f"{header.get('next_member')}")
+        tr.restore(arrays, header, trees)
         self.chunks, self.member = [list(c) for c in chunks], tr.next_member
         self.last_started = self.member
         self._drop_unreferenced()
@@ -230,34 +236,33 @@ class Checkpointer:
 
     def from_model(self, model_name: str) -> None:
         """The training was continued from the run's model file (a finished run grown to more
-        members): later checkpoints take its first members from that file, as after a stop."""
+        members): its first checkpoint stores all the trees in a new trees file (the model goes once
+        that checkpoint is on disk)."""
         m = self.training.next_member
-        self.chunks = [[0, m, model_name]] if self.training.config.keep_members and m else []
+        self.trees_file = TreesFile(self.rd)
+        self.chunks = []
         self.member = self.last_started = m
+        self.t_last = float("-inf")   # a checkpoint is due after the first new member
 
     def stored_trees(self, upto: int):
-        """The kept trees of members 0..upto-1, read back from the latest checkpoint's chunk files one
-        file at a time (a generator: a file's trees are let go once the caller has copied them)."""
-        n = 0
-        for c in self.chunks:
-            if n >= upto:
-                break
-            for t in self._chunk_trees(c, n, self.training.prep.codes.shape[0]):
-                if n >= upto:
-                    break
-                yield t
-                n += 1
-        if n < upto:
-            raise ModelFileError(f"{self.rd.path}: the chunk files hold fewer than {upto} members")
+        """The kept trees of members 0..upto-1 as the latest checkpoint stored them (a Compact or a Stack)."""
+        tr = self.training
+        trees = self.trees_file.read(tr.kind, tr.n_out, tr.prep.binning.is_cat)
+        if trees is None or trees.members < upto:
+            raise ModelFileError(f"{self.rd.path}: the trees file holds fewer than {upto} members")
+        return trees.head(upto)
 
-    def _load_chunks(self, chunks, n_features: int) -> list:
-        trees, at = [], 0
+    def _load_chunks(self, chunks, n_features: int):
+        """The trees a format-1 checkpoint's chunk files hold, as one Stack."""
+        from baggr.model.compact import Compact, Stack
+        parts, at = [], 0
         for c in chunks:
-            trees.extend(self._chunk_trees(c, at, n_features))
+            f = self._chunk_trees(c, at, n_features)
+            parts.append(f if isinstance(f, Compact) else Compact.from_forest(f, self._kind()))
             at = c[1]
-        return trees
+        return Stack(parts) if parts else None
 
-    def _chunk_trees(self, c, at: int, n_features: int) -> list:
+    def _chunk_trees(self, c, at: int, n_features: int):
         """The trees of one entry of the checkpoint's list (a chunk file, or the first members of
         the model a stop saved), checked against the list (the entry must start at member `at`)."""
         from baggr.model.forest import Forest
@@ -276,19 +281,19 @@ class Checkpointer:
             forest = self._compact_chunk(c[2], h, a)
         if forest.members != c[1] - c[0]:
             raise ModelFileError(f"{self.rd / c[2]} holds {forest.members} members, not {c[1] - c[0]}")
-        return forest.unpack()
+        return forest
 
     def _model_members(self, k: int) -> list:
         h, a = npzfile.read(self.rd / MODEL, "model file")
         if h.get("format") != "baggr-model" or h.get("format_version") != 2 or (h.get("trees") or {}).get("kind") != self._kind():
             raise ModelFileError(f"{self.rd / MODEL} is not the model the checkpoint takes its first {k} members from")
         compact = self._compact_chunk(MODEL, dict(h, format_version=CHUNK_VERSION, kind=self._kind()),
-                                      {n[5:]: v for n, v in a.items() if n.startswith("tree_")}, whole=False)
+                                      {n[5:]: v for n, v in a.items() if n.startswith("tree_")})
         if compact.members < k:
             raise ModelFileError(f"{self.rd / MODEL} holds {compact.members} members, fewer than the checkpoint's {k}")
-        return compact.head(k).to_forest().unpack()
+        return compact.head(k)
 
-    def _compact_chunk(self, name: str, h: dict, a: dict, whole: bool = True):
+    def _compact_chunk(self, name: str, h: dict, a: dict):
         from baggr.model.compact import Compact
         if h.get("format_version") != CHUNK_VERSION or h.get("kind") != self._kind():
             raise ModelFileError(f"{self.rd / name} is not a members file this baggr reads for this run")
@@ -297,12 +302,12 @@ class Checkpointer:
             compact.validate(self.training.prep.binning.is_cat, self.training.n_out)
         except ModelFileError as e:
             raise ModelFileError(f"{self.rd / name}: {e}") from None
-        return compact.to_forest() if whole else compact
+        return compact
 
     def _drop_unreferenced(self) -> None:
         """Remove what a killed job left half done: chunk files its checkpoint never named, temp files."""
         folder = self.rd / MEMBERS
-        keep = {Path(c[2]).name for c in self.chunks}
+        keep = {Path(c[2]).name for c in self.chunks} | ({Path(self.trees_file.file).name} if self.trees_file.parts else set())
         stale = list(self.rd.path.glob(".tmp-*"))
         if folder.is_dir():
             stale += [f for f in folder.iterdir() if f.name not in keep]

@@ -1,7 +1,7 @@
 """The files of a run directory: their names, and writing them so that nothing finished is lost.
 
 A run directory holds config.json, journal.jsonl, checkpoint.npz (+ checkpoint.json), the kept
-trees in append-only chunk files members/AAAAAA-BBBBBB.npz, model.npz at the end, a `lock` file
+trees appended to members/trees.npz (which becomes model.npz at the end: trees_file.py), a `lock` file
 (flock-ed by the job) and job.log for a detached job.
 """
 from __future__ import annotations

@@ -361,13 +361,18 @@ class Job:
             self.progress.begin(fields)
 
     def _save_model(self, tr) -> None:
-        if tr.trees_base:       # a comparison set them aside: back from the checkpoint's files, file by file
-            tr.take_back(self.checkpointer.stored_trees(tr.trees_base))
-        ens = tr.ensemble()
+        """Write model.npz: for kept trees, the trees file the checkpoints appended to gets the trees
+        not stored yet and the rest of the model, and is renamed (the trees are written once)."""
+        ens = tr.ensemble(trees=False)
         # the end line carries them (and the chosen measure's estimate)
         self._final = ens.oob.figures(tr.config.members, tr.config.resolved_measure(tr.prep.task))
         try:
-            ens.save(self.rd / MODEL)
+            if tr.config.keep_members:
+                self.checkpointer.finish_model(ens)
+            else:
+                ens.save(self.rd / MODEL)
+        except OSError as e:
+            raise write_error("the model file", self.rd / MODEL, e) from None
         except BaggrError as e:
             if "No space" in str(e) or "Disk quota" in str(e):
                 raise DiskFullError(f"disk full: {e}") from None
@@ -395,8 +400,7 @@ class Job:
             self.checkpointer.wait()
             if write_checkpoint and m > self.checkpointer.member:
                 self.checkpointer.write(wait=True)
-            self._save_model(tr)
-            self.checkpointer.fold_into_model(MODEL)   # one copy of the trees: the model's
+            self._save_model(tr)   # one copy of the trees: the model's (the checkpoint takes them from it)
         self._end("stopped", reason)
         if reason == "stop requested":
             try:
