@@ -134,7 +134,8 @@ def _notes(cmp, cands, configs, missing, other_draws) -> list:
                                                      for c in unfinished) + ".")
     notes.append("Each value and interval is the candidate's estimate for its kept ensemble (as baggr report "
                  "gives it), members_needed that of the measure; the paired tests compare the candidates' "
-                 "textbook per-row OOB outcomes on the rows both judged.")
+                 "textbook per-row OOB outcomes on the rows both judged, so a candidate close to the best "
+                 "can show a difference below zero.")
     return notes
 
 
