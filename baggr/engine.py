@@ -52,10 +52,11 @@ class Training:
             raise ConfigError("config must be a baggr.Config")
         self.config = config
         self.prep = prepared or prepare(X, y, config, target=target, missing_target=missing_target)
-        config.resolved_measure(self.prep.task)   # a measure that does not fit the target fails here
+        measure = config.resolved_measure(self.prep.task)   # a measure that does not fit the target fails here
         self.grower = Grower(self.prep, config)
         self.tally = Tally(self.prep.task, self.prep.y_class if self.prep.task == "classes" else self.prep.y_value,
                            max(1, self.prep.n_classes), config.vote, capacity=config.members)
+        self.tally.measure = measure     # refitted beside the error; --stop-when-stable reads its members_needed
         self.measures = MeasureCurve(self.prep.task)   # every measure at log-spaced sizes
         self._measured: dict | None = None
         self.importance = ImportanceTally(self.prep.codes.shape[0], self.prep.n_classes if self.prep.task == "classes"
@@ -139,9 +140,12 @@ class Training:
             ev.class_error = live.get("class_error", ev.raw_class_error)
             ev.confusion = t.confusion.tolist()
         else:
-            ev.r2 = t.r2()
+            ev.r2 = t.r2(live.get("error"))   # with the estimated MSE where there is one, as `error`
         if t.est is not None and t.est.members == t.members:
             ev.curve = t.curve_points(self.config.members)
+            if t.mest is not None:   # the chosen measure's estimate, refitted beside the error's
+                ev.measure_estimate = dict(t.measure_live(),
+                                           curve=t.mest.points(t.mest.points_top(self.config.members, t.members)))
         if self._measured is not None:
             ev.measures = self._measured
             if self.importance is not None:

@@ -35,6 +35,9 @@ class MemberEvent:
     error_limit_interval: tuple | None = None
     members_needed: int | None = None
     curve: dict | None = None       # {"b": sizes, "error", "lo", "hi": lists, "class_error": one per class}
+    # after a refit, when the run is judged by a measure other than the error (MSE): that measure's
+    # estimate {name, value, interval, limit, limit_interval, members_needed, curve} (baggr/oob/measure_fit.py)
+    measure_estimate: dict | None = None
 
     estimate_fields = staticmethod(lambda d: _estimate_fields(d))
 
@@ -54,6 +57,8 @@ class MemberEvent:
         d["members_needed"] = self.members_needed
         if self.curve is not None:
             d["curve"] = _estimate_fields({"curve": self.curve})["curve"]
+        if self.measure_estimate is not None:
+            d["measure_estimate"] = measure_fields(self.measure_estimate)
         if self.confusion is not None:
             d["confusion"] = self.confusion
         if self.r2 is not None:
@@ -66,6 +71,20 @@ class MemberEvent:
         return d
 
 
+def measure_fields(d: dict) -> dict:
+    """A measure's estimate (OOB.measure_estimate, Tally.measure_live) in strict JSON; its curve as
+    curve.Fit.points gives it ("error" there holds the measure's values)."""
+    iv = lambda x: None if x is None else [_num(v) for v in x]  # noqa: E731
+    out = {"name": d.get("name"), "value": _num(d.get("value")), "interval": iv(d.get("interval")),
+           "limit": _num(d.get("limit")), "limit_interval": iv(d.get("limit_interval")),
+           "members_needed": d.get("members_needed")}
+    c = d.get("curve")
+    if c is not None:
+        out["curve"] = {k: [int(v) for v in vs] if k == "b" else [_num(v) for v in vs]
+                        for k, vs in c.items() if k != "class_error"}
+    return out
+
+
 def _estimate_fields(d: dict) -> dict:
     """An estimate's figures (OOB.figures) in strict JSON."""
     out = {"error": _num(d.get("error")), "interval": None if d.get("interval") is None else
@@ -74,6 +93,8 @@ def _estimate_fields(d: dict) -> dict:
            [_num(v) for v in d["error_limit_interval"]], "members_needed": d.get("members_needed")}
     if "class_error" in d:
         out["class_error"] = [_num(v) for v in d["class_error"]]
+    if d.get("measure_estimate"):
+        out["measure_estimate"] = measure_fields(d["measure_estimate"])
     c = d.get("curve")
     if c is not None:
         out["curve"] = {k: ([int(v) for v in vs] if k == "b" else [[_num(v) for v in col] for col in vs]

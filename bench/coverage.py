@@ -24,8 +24,15 @@ each repeat); after M members (M in 25, 50, 100, 300, the same run: member m dep
 Generators (tests/generators.py): twonorm and threenorm (Breiman 1996), Friedman #1 (1991).
 
     python bench/coverage.py [--repeats R] [--n 300,1000,3000] [--gens twonorm,threenorm,friedman1]
-                             [--workers 2] [--out FILE.jsonl] [--table FILE.jsonl]
+                             [--sizes 25,50,100,300] [--measure NAME] [--workers 2]
+                             [--out FILE.jsonl] [--table FILE.jsonl]
 --table prints the tables of an earlier --out file without running anything.
+
+--measure NAME (brier, log-loss, auc, balanced-error; rmse, mae, r2): the same for that measure's
+estimate (baggr/oob/measure_fit.py, `oob.measures()`) against the kept ensemble's measure on the
+20,000 fresh rows, defined as the README defines it on the OOB shares (tests/test_measure_honest.py);
+`raw` is the textbook OOB figure, `true` and the widths are not computed, `limit` is against the
+largest size's test figure. Bias in the measure's units x 100 for classes.
 """
 if __name__ == "coverage":
     # another bench script's `import coverage` (numba looks for that package) found this file on
@@ -53,13 +60,67 @@ GENS = {"twonorm": (twonorm, twonorm_p1), "threenorm": (threenorm, threenorm_p1)
         "friedman1": (friedman1, friedman1_mean)}
 
 
+def one_measure(task):
+    """One run read at every size for one measure other than the error: a list of records."""
+    import baggr
+    from baggr.engine import Training
+    from test_measure_honest import _test_class_measures, _test_regression_measures
+
+    gen, n, rep, measures, sizes = task
+    make, _ = GENS[gen]
+    X, y = make(n, 10_000 * n + rep)
+    Xt, yt = make(TEST_ROWS, 900_000_000 + 10_000 * n + rep)
+    tr = Training(X, y, baggr.Config(members=max(sizes), seed=rep, threads=1))
+    out = []
+    t0 = time.perf_counter()
+    for m in sizes:
+        ens = tr.run(until=m)
+        o = ens.oob
+        tests = (_test_class_measures if ens.task == "classes" else _test_regression_measures)(ens, Xt, yt, m)
+        for measure in measures:
+            est = o.measure_estimate(measure)
+            raw = o.raw_measures()[measure]
+            out.append({"gen": gen, "n": n, "rep": rep, "M": m, "measure": measure, "est": est["value"],
+                        "lo": est["interval"][0], "hi": est["interval"][1], "raw": raw[0], "raw_lo": raw[1][0],
+                        "raw_hi": raw[1][1], "test": tests[measure], "limit": est["limit"],
+                        "need": est["members_needed"]})
+    for r in out:
+        r["test_last"] = [q for q in out if q["measure"] == r["measure"]][-1]["test"]
+        r["seconds"] = time.perf_counter() - t0
+    return out
+
+
+def measure_table(records):
+    cells = {}
+    for r in records:
+        cells.setdefault((r["measure"], r["gen"], r["n"], r["M"]), []).append(r)
+    print(f"{'measure':8s} {'generator':10s} {'n':>5s} {'M':>4s} {'reps':>4s}  {'cover':>12s} {'raw cover':>9s}  "
+          f"{'bias':>13s} {'raw':>13s}  {'width':>7s} {'limit':>7s} {'need':>6s}")
+    for key in sorted(cells):
+        rs = cells[key]
+        a = {k: np.array([r[k] if r[k] is not None else np.nan for r in rs], np.float64)
+             for k in rs[0] if k not in ("gen", "measure")}
+        R = len(rs)
+        cover = np.mean((a["lo"] <= a["test"]) & (a["test"] <= a["hi"]))
+        raw_cover = np.mean((a["raw_lo"] <= a["test"]) & (a["test"] <= a["raw_hi"]))
+        d, dr = a["est"] - a["test"], a["raw"] - a["test"]
+        sc = 100.0 if key[1] != "friedman1" else 1.0
+        print(f"{key[0]:8s} {key[1]:10s} {key[2]:5d} {key[3]:4d} {R:4d}  {cover * 100:5.1f}% +-{np.sqrt(cover * (1 - cover) / R) * 100:3.1f} "
+              f"{raw_cover * 100:8.1f}%  {d.mean() * sc:+6.3f}+-{d.std(ddof=1) / np.sqrt(R) * sc:5.3f} "
+              f"{dr.mean() * sc:+6.3f}+-{dr.std(ddof=1) / np.sqrt(R) * sc:5.3f}  {np.mean(a['hi'] - a['lo']) * sc:7.3f} "
+              f"{np.nanmean(a['limit'] - a['test_last']) * sc:+7.3f} {np.nanmedian(a['need']):6.0f}")
+    print("(bias, raw, width and limit x 100 for classes; limit: mean limit minus the largest size's test figure)")
+
+
 def one(task):
     """Train one run and read every size: a list of records."""
     import baggr
     from baggr.engine import Training
     from baggr.oob.intervals import normal_mean, wilson
 
-    gen, n, rep = task
+    gen, n, rep = task[:3]
+    if len(task) > 3 and task[3]:
+        return one_measure(task)
     make, truth = GENS[gen]
     X, y = make(n, 10_000 * n + rep)
     Xt, yt = make(TEST_ROWS, 900_000_000 + 10_000 * n + rep)
@@ -136,12 +197,18 @@ def main():
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--out", default=None)
     ap.add_argument("--table", default=None)
+    ap.add_argument("--measure", default=None, help="a measure other than the error (comma-separated for several)")
+    ap.add_argument("--sizes", default=",".join(str(s) for s in SIZES))
     args = ap.parse_args()
     if args.table:
         with open(args.table) as f:
-            table([json.loads(line) for line in f])
+            recs = [json.loads(line) for line in f]
+        (measure_table if recs and "measure" in recs[0] else table)(recs)
         return
-    tasks = [(g, int(n), rep) for n in args.n.split(",") for g in args.gens.split(",") for rep in range(args.repeats)]
+    sizes = tuple(int(s) for s in args.sizes.split(","))
+    measures = tuple(args.measure.split(",")) if args.measure else None
+    tasks = [(g, int(n), rep, measures, sizes) for n in args.n.split(",") for g in args.gens.split(",")
+             for rep in range(args.repeats)]
     records = []
     t0 = time.time()
     out = open(args.out, "a") if args.out else None
@@ -154,7 +221,7 @@ def main():
                 out.flush()
             if (i + 1) % 50 == 0:
                 print(f"{i + 1}/{len(tasks)} runs, {time.time() - t0:.0f} s", file=sys.stderr, flush=True)
-    table(records)
+    (measure_table if args.measure else table)(records)
 
 
 if __name__ == "__main__":

@@ -348,6 +348,21 @@ def test_ranking_agrees_with_fresh_rows_on_twonorm_with_noise_features(tmp_path,
         assert fig["candidates"][1]["close"] and "No clear winner" in fig["verdict"]
 
 
+def test_report_by_another_measure_gives_each_candidates_estimate_and_members_needed(reference):
+    # the candidates' figures are their runs' own estimates for the kept ensemble (baggr/oob/measure_fit.py,
+    # what `baggr report RUN` gives), members_needed that of the measure; ranked by it, lower Brier first
+    fig = cli_json("report", reference, "--json", "--measure", "brier")
+    assert fig["measure"] == "brier"
+    for c in fig["candidates"]:
+        ens = load(Path(c["run_dir"]) / MODEL)
+        est = ens.oob.measure_estimate("brier")
+        assert c["value"] == est["value"] and c["interval"] == pytest.approx(list(est["interval"]), abs=0)
+        assert c["value"] < ens.oob.raw_measures()["brier"][0]     # the textbook figure reads high (Lopes 2019)
+        assert c["members_needed"] == est["members_needed"] and "members_needed_from" not in c
+    values = [c["value"] for c in fig["candidates"]]
+    assert values == sorted(values)
+
+
 def test_ranking_agrees_with_fresh_rows_on_friedman1_over_min_leaf(tmp_path):
     """Friedman #1 (1991), 1,000 rows, 100 members. Measured first on 20,000 fresh rows (data seeds 1
     and 2): min leaf 10 loses clearly (MSE 5.1-5.2 against 4.3-4.5) and 40 more so (7.3); 1 and 3 are

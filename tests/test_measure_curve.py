@@ -32,20 +32,28 @@ def test_curve_points_equal_a_recount_of_a_run_of_that_size(vote):
     X, y = waveform(400, seed=1)
     cfg = baggr.Config(members=45, seed=2, vote=vote, threads=2)
     ens = baggr.train(X, y, cfg)
-    sizes, curves = mc.curve_of(ens.oob)
+    sizes, curves = mc.curve_of(ens.oob, raw=True)
     assert sizes == mc.sizes_up_to(45)
+    est_sizes, estimates = mc.curve_of(ens.oob)
+    assert est_sizes == sizes
     names = M.CLASS_MEASURES
-    curve, band = ens.oob.curve, ens.oob.curve_interval
+    curve, band = ens.oob.raw_curve, ens.oob.raw_curve_interval
     for b in (1, 7, 43):
         small = baggr.train(X, y, cfg.replace(members=b))
         got = np.array([curves[n][sizes.index(b)] for n in names])
         want = M.class_measures(small.oob.arrays()["target"], small.oob.arrays()["votes"],
                                 share_bins=mc.SHARE_BINS if vote == "shares" else None)
-        # every measure but the error is a recount of the tallies of b members ...
+        # the textbook figures: every measure but the error is a recount of the tallies of b members ...
         np.testing.assert_allclose(got[1:], _row(want, names)[1:], rtol=1e-12, atol=0)
-        # ... and the error is the run's own estimate of a b-member ensemble (oob.curve, which may be
-        # corrected for the kept ensemble), so it follows that curve
+        # ... and the error the textbook OOB curve at b
         np.testing.assert_array_equal(got[0], [curve[b - 1], *band[b - 1]])
+        # the estimates for the kept b-member ensemble: the view's curve of each measure at b (three
+        # classes: the AUC has none, its textbook point stands)
+        assert set(ens.oob.measure_fits()) == set(names) - {"auc"}
+        np.testing.assert_array_equal(estimates["auc"][sizes.index(b)], got[-1])
+        for n in names[:-1]:
+            e, iv = ens.oob.measure_curve(n)
+            np.testing.assert_array_equal(estimates[n][sizes.index(b)], [e[b - 1], *iv[b - 1]])
     # the final figures: the same functions on the whole run; the error is the view's own (estimated)
     # one in oob.measures(), the textbook one (share of rows whose OOB vote is wrong) in of_oob
     final = ens.oob.measures()

@@ -83,7 +83,10 @@ def test_json_has_every_measure_with_value_and_interval(runs):
     assert r["measures"]["r2"]["value"] == pytest.approx(r["r2"], rel=1e-9)   # two computations of one figure
     assert r["measures"]["rmse"]["value"] == pytest.approx(np.sqrt(r["oob_error"]))
     text = _run("report", runs / "regression").stdout
-    assert "MAE" in text and "delta method" in text
+    # the measures are the kept ensemble's estimates (their interval's method says so); the textbook
+    # figure's method stays in the JSON (raw_method)
+    assert "MAE" in text and "infinitesimal jackknife" in text
+    assert r["measures"]["r2"]["raw_method"] == "delta method, normal" and r["measures"]["r2"]["corrected"]
 
 
 def test_measure_must_fit_the_target(runs, tmp_path):

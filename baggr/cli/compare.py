@@ -98,7 +98,7 @@ def cmd_compare(args) -> int:
     cluster = _cluster(args)
     base, cands = _base_and_candidates(args)
     if args.measure is not None:
-        known = ranking.CLASS_MEASURES + ranking.REGRESSION_MEASURES
+        known = ranking.CLASS_MEASURES + ranking.REGRESSION_MEASURES   # baggr.oob.measures' names
         if args.measure not in known:
             raise ConfigError(f"--measure must be one of {', '.join(known)}, got {args.measure!r}")
     from baggr.cli.main import table_options

@@ -183,7 +183,8 @@ def _page(r, runs: list, figs: dict) -> str:
         (f"Settings: {legend}. " if legend else "") +
         f"The {label} and its interval are each candidate's own figure for its kept ensemble; "
         f"members needed: the fewest members whose figure comes within tolerance of an unlimited ensemble's; "
-        f"difference: candidate minus best on the rows both judged"
+        f"difference: candidate minus best on the rows both judged, from their textbook per-row OOB outcomes "
+        f"(so a candidate close to the best can show one below zero)"
         + (f" ({'; '.join(methods)})" if methods else "") +
         "; p-values adjusted across the comparisons with the best by Holm's method (Holm 1979).") + "</p>")
     if "differences" in figs:

@@ -25,15 +25,13 @@ class ComparisonReport:
     cautions: list = field(default_factory=list)
 
 
-def members_needed(r) -> tuple[int | None, str]:
-    """(members_needed, where it comes from). STAND-IN until the honest-curve issue's members_needed
-    is on main: the size from which the run's error curve stayed within its final 95% interval."""
-    got = getattr(r.oob, "members_needed", None)
-    if got is not None:
-        return int(got), "members_needed"
-    from baggr.cli.report import settled_at
-    iv = r.oob.interval
-    return (settled_at(r.oob.curve, *iv) if iv is not None else None), "settled_at"
+def members_needed(r, measure: str) -> int | None:
+    """The fewest members within tolerance of the measure's limit (baggr.oob.measure_fit; the error's
+    where the measure has no estimate, the AUC of three or more classes); None: not estimated."""
+    est = r.oob.measure_estimate(measure)
+    if est is None:
+        return r.oob.members_needed
+    return est["members_needed"]
 
 
 def _targets(path: Path):
@@ -80,7 +78,7 @@ def load(path, measure: str | None = None) -> ComparisonReport:
     out = []
     for f in ranked:
         c, r = cmp.candidates[f["index"]], runs[f["index"]]
-        needed, source = members_needed(r) if r is not None else (None, None)
+        needed = members_needed(r, measure) if r is not None else None
         members = r.oob.members if r is not None else 0
         spm = r.elapsed / members if r is not None and r.elapsed and members else None
         out.append({"number": c.number, "label": c.label(), "terse": c.terse(), "settings": c.settings,
@@ -91,7 +89,7 @@ def load(path, measure: str | None = None) -> ComparisonReport:
                     "close": bool(f["close"]), "members": members,
                     "members_target": r.members_target if r is not None else None,
                     "status": r.status if r is not None else "no figures yet",
-                    "members_needed": needed, "members_needed_from": source, "seconds_per_member": _f(spm)})
+                    "members_needed": needed, "seconds_per_member": _f(spm)})
     from baggr.runs.comparison import candidate_configs, draws_differ
     configs = candidate_configs(cmp)
     notes = _notes(cmp, out, configs, missing, draws_differ(configs))
@@ -134,8 +132,10 @@ def _notes(cmp, cands, configs, missing, other_draws) -> list:
     if unfinished:
         notes.append("Not finished: " + ", ".join(f"c{c['number']} ({c['status']}, {c['members']} members)"
                                                      for c in unfinished) + ".")
-    if any(c["members_needed_from"] == "settled_at" for c in cands):
-        notes.append("members_needed here is where each error curve settled within its final 95% interval.")
+    notes.append("Each value and interval is the candidate's estimate for its kept ensemble (as baggr report "
+                 "gives it), members_needed that of the measure; the paired tests compare the candidates' "
+                 "textbook per-row OOB outcomes on the rows both judged, so a candidate close to the best "
+                 "can show a difference below zero.")
     return notes
 
 
@@ -164,7 +164,7 @@ def _pair(iv):
 def to_json(r: ComparisonReport) -> dict:
     keys = ("settings", "run_dir", "measure", "value", "interval", "difference", "difference_interval",
             "p_value", "members_needed", "seconds_per_member", "number", "label", "members", "members_target",
-            "status", "close", "p_unadjusted", "paired_rows", "method", "members_needed_from")
+            "status", "close", "p_unadjusted", "paired_rows", "method")
     cands = [{k: c[k] for k in keys} for c in r.candidates]
     best = 0 if cands and cands[0]["value"] is not None else None
     return {"path": str(r.path), "status": r.status, "reason": r.reason, "task": r.task, "measure": r.measure,

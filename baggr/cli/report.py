@@ -226,7 +226,8 @@ def figures(r: RunReport) -> dict:
         d["raw_class_error"] = [_f(v) for v in oob.raw_class_error]
         d["raw_class_curve"] = [[_f(v) for v in row] for row in oob.raw_class_curve]
     else:
-        d["r2"] = _f(oob.r2)
+        d["r2"] = _f(oob.r2)          # with the kept ensemble's estimated MSE
+        d["raw_r2"] = _f(oob.raw_r2)  # the textbook one
     from baggr.cli import report_measures
     d.update(report_measures.figures(r))
     d["cautions"] += report_measures.cautions(d)

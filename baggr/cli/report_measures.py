@@ -40,12 +40,34 @@ def figures(r) -> dict:
     """The JSON part: measure, measures, class_measures, measure_curve and the importance lists."""
     oob = r.oob
     task = r.task
-    values = mc.follow_estimate(ms.of_oob(oob), task, oob.error, oob.interval)
+    raw = oob.raw_measures()            # the textbook OOB figures
+    values = oob.measures()             # the estimate for the kept ensemble where there is one
     names = [n for n in ms.task_measures(task) if n in values]
-    d = {"measure": chosen(r),
-         "measures": {n: dict(_pair(*values[n]), method=ms.METHODS[n]) for n in names},
-         "measure_labels": {n: ms.LABELS[n] for n in ms.task_measures(task)},
+    d = {"measure": chosen(r), "measures": {}, "measure_labels": {n: ms.LABELS[n] for n in ms.task_measures(task)},
          "measure_notes": [NOTES[n] for n in names if n in NOTES]}
+    for n in names:
+        # value/interval: the estimate for the kept ensemble; raw_*: the textbook OOB figure
+        m = dict(_pair(*values[n]), method=ms.METHODS[n])
+        if n in raw:
+            rv = _pair(*raw[n])
+            m.update(raw_value=rv["value"], raw_interval=rv["interval"])
+        est = oob.measure_estimate(n) if oob.corrected else None
+        m["corrected"] = est is not None
+        if est is not None:
+            m["raw_method"] = m["method"]
+            m["method"] = ("kept ensemble: infinitesimal jackknife x 1.1, "
+                           + ("Wilson" if n in ("error", "balanced-error") else "normal"))
+            m.update(limit=_f(est["limit"]), limit_interval=_pair(0, est["limit_interval"])["interval"],
+                     members_needed=est["members_needed"], tolerance=_f(est["tolerance"]))
+        d["measures"][n] = m
+    if any(not d["measures"][n]["corrected"] for n in names) and oob.corrected:
+        d["measure_notes"].append("A measure marked textbook has no estimate for the kept ensemble (the AUC of "
+                                  "three or more classes): its figure is the plain OOB one, which reads off for "
+                                  "small ensembles.")
+    ch = d["measures"].get(d["measure"])
+    if ch is not None:
+        d["measure_limit"], d["measure_limit_interval"] = ch.get("limit"), ch.get("limit_interval")
+        d["measure_members_needed"] = ch.get("members_needed")
     if len(names) < len(ms.task_measures(task)):
         d["measure_notes"].append("This model file was written before the targets were stored beside the OOB "
                                   "votes: only the error is available.")
@@ -57,6 +79,8 @@ def figures(r) -> dict:
     sizes, curves = mc.curve_of(oob)
     if sizes:
         d["measure_curve"] = {"sizes": sizes, **{n: [[_f(x) for x in row] for row in v] for n, v in curves.items()}}
+        # the textbook OOB figures at the same sizes
+        d["measure_curve"]["raw"] = {n: [[_f(x) for x in row] for row in v] for n, v in mc.curve_of(oob, raw=True)[1].items()}
     s = imp.summary(oob.arrays(), list(r.schema.names), list(r.schema.classes) if task == "classes" else None)
     if s is not None:
         d["importance"] = s["permutation"]
@@ -85,15 +109,29 @@ def measure_span(name: str, iv) -> str:
 
 
 def headline(d: dict):
-    """(label, Text) of the chosen measure for the estimate's lines, when it is not the error itself."""
+    """[(label, Text)] of the chosen measure for the estimate's lines, when it is not the error itself:
+    its estimate for the kept ensemble, the textbook figure, its limit and the members needed."""
     from rich.text import Text
     name = d.get("measure")
     m = (d.get("measures") or {}).get(name)
     if name in (None, "error", "mse") or not m:
         return None
+    label = d["measure_labels"].get(name, name)
     t = Text(measure_text(name, m["value"]), style="bold")
-    t.append(f"   95% interval {measure_span(name, m['interval'])}  (the measure this run is judged by)")
-    return d["measure_labels"].get(name, name), t
+    t.append(f"   95% interval {measure_span(name, m['interval'])}  (the measure this run is judged by"
+             + (", for the kept ensemble)" if m.get("corrected") else "; textbook OOB figure)"))
+    rows = [(label, t)]
+    if m.get("corrected"):
+        if m.get("raw_value") is not None:
+            rows.append((f"{label}, textbook", f"{measure_text(name, m['raw_value'])}   95% interval "
+                                               f"{measure_span(name, m.get('raw_interval'))}"))
+        if m.get("limit") is not None:
+            rows.append((f"{label}, limit", f"{measure_text(name, m['limit'])}   95% interval "
+                                            f"{measure_span(name, m.get('limit_interval'))}   (an unlimited ensemble)"))
+            need = m.get("members_needed")
+            near = f" (within {measure_text(name, m['tolerance'])} of its limit)" if m.get("tolerance") else ""
+            rows.append((f"{label}, members needed", (units.count(need) if need else "more than 4 million") + near))
+    return rows
 
 
 def render_measures(out, d: dict) -> None:

@@ -139,7 +139,7 @@ def render_text(r, d: dict, console, settings=None) -> None:
         est += _estimate_rows(task, head)
     chosen = report_measures.headline(d)
     if chosen is not None:
-        est.insert(0, chosen)
+        est[:0] = chosen
     if task == "regression":
         est.append(("R2", "-" if head.get("r2") is None else f"{head['r2']:.3f}"))
     if latest:

@@ -46,16 +46,9 @@ import numpy as np
 from baggr.oob import curve_kernels as k
 from baggr.oob.intervals import Z95, wilson
 
-EXACT_SIZES = 64          # every ensemble size up to here has its own value
-SIZE_STEP = 1.05          # above it, pairs (b, b + 1) every 5% (odd and even sizes differ by ties)
-MAX_SIZE = 1 << 22        # beyond the last stored size the curve runs to its limit like c / b
-MAX_SIZE_THREE = 128      # three or more classes: exact sums cost O(b) per grid point and size
-GRID_TWO = 101            # grid of a row's chance of voting right (two classes)
-GRID_THREE = 20           # steps per side of the triangle grid (three or more classes)
-PASSES_TWO, PASSES_THREE = 3, 1
-# the triangle's smoothing step scaled so that it spreads weight as far (in chance units) as the
-# line's three [1/4, 1/2, 1/4] passes over steps of 0.01: variance 1.5e-4 per axis
-STRENGTH_THREE = 1.5e-4 / (4 / 12 * (1 / GRID_THREE) ** 2)
+from baggr.oob.curve_tables import (  # noqa: F401  (the sizes, grids and tables, read through this module)
+    EXACT_SIZES, GRID_THREE, GRID_TWO, MAX_SIZE, MAX_SIZE_THREE, SIZE_STEP, _g_three, _g_two, _grid_three,
+    _grid_two, sizes, variance_sizes)
 TOL, MAX_ITER = 1e-9, 5000
 DROP = 1e-6              # grid points a cell's likelihood rules out (share below this) are skipped
 LIVE_ROWS = 1024          # during a run, the estimate is refitted on at most about this many rows
@@ -77,134 +70,6 @@ def refit_due(m: int) -> bool:
     return m >= FIRST_REFIT and m & (m - 1) == 0
 
 
-# -- ensemble sizes and the g tables -------------------------------------------------------------
-_cache: dict = {}
-
-
-def sizes(max_size: int) -> np.ndarray:
-    """Ensemble sizes with a stored value: 1..64, then pairs (b, b + 1) every 5% up to max_size."""
-    key = ("sizes", max_size)
-    if key not in _cache:
-        out = list(range(1, min(EXACT_SIZES, max_size) + 1))
-        b = float(EXACT_SIZES)
-        while True:
-            b *= SIZE_STEP
-            s = int(round(b))
-            if s + 1 > max_size:
-                break
-            if s > out[-1]:
-                out += [s, s + 1]
-        _cache[key] = np.array(out, np.int64)
-    return _cache[key]
-
-
-def variance_sizes(all_sizes: np.ndarray, step: float = math.sqrt(2)) -> np.ndarray:
-    """Indices into all_sizes where the influence is computed (sizes a factor `step` apart); the
-    design effect between them is interpolated in log b."""
-    key = ("vsizes", all_sizes.shape[0], int(all_sizes[-1]), step)
-    if key not in _cache:
-        picks, last = [], 0.0
-        for i, b in enumerate(all_sizes):
-            if b <= 2 or b >= last * step or i == all_sizes.shape[0] - 1:
-                picks.append(i)
-                last = float(b)
-        _cache[key] = np.array(picks, np.int64)
-    return _cache[key]
-
-
-def _grid_two() -> tuple[np.ndarray, np.ndarray]:
-    key = "grid2"
-    if key not in _cache:
-        p = np.linspace(0.0, 1.0, GRID_TWO)
-        _cache[key] = (np.ascontiguousarray(np.stack([p, 1.0 - p], axis=1)),
-                       _smoothing(_line_neighbours(GRID_TWO), 2, PASSES_TWO))
-    return _cache[key]
-
-
-def _grid_three() -> tuple[np.ndarray, np.ndarray]:
-    key = "grid3"
-    if key not in _cache:
-        h = GRID_THREE
-        pts = [(i, j) for i in range(h + 1) for j in range(h + 1 - i)]
-        index = {pt: n for n, pt in enumerate(pts)}
-        nbrs = []
-        for i, j in pts:
-            cand = [(i + 1, j), (i - 1, j), (i, j + 1), (i, j - 1), (i + 1, j - 1), (i - 1, j + 1)]
-            nbrs.append([index[c] for c in cand if c in index])
-        grid = np.array([(i / h, j / h, (h - i - j) / h) for i, j in pts])
-        _cache[key] = (np.ascontiguousarray(grid), _smoothing(nbrs, 6, PASSES_THREE, STRENGTH_THREE))
-    return _cache[key]
-
-
-def _line_neighbours(g: int) -> list:
-    return [[j for j in (i - 1, i + 1) if 0 <= j < g] for i in range(g)]
-
-
-def _smoothing(nbrs: list, degree: int, passes: int, strength: float = 1.0):
-    """S = I - strength L / (2 degree), L the grid graph's Laplacian: symmetric, keeps the total
-    weight, on a line the [1/4, 1/2, 1/4] kernel (EMS's smoothing step, Silverman et al. 1990);
-    as a sparse matrix (indptr, index, value)."""
-    g = len(nbrs)
-    s = np.eye(g)
-    w = strength / (2 * degree)
-    for i, nb in enumerate(nbrs):
-        for j in nb:
-            s[i, j] += w
-            s[i, i] -= w
-    s = np.linalg.matrix_power(s, passes)
-    s[np.abs(s) < 1e-15] = 0.0
-    ptr = np.concatenate([[0], np.cumsum((s != 0).sum(axis=1))]).astype(np.int64)
-    idx = np.ascontiguousarray(np.nonzero(s)[1].astype(np.int64))
-    return ptr, idx, np.ascontiguousarray(s[s != 0])
-
-
-def _g_two(all_sizes: np.ndarray, tie_wrong: bool) -> np.ndarray:
-    """(G, S + 1): chance that b votes with chance p each of being right elect a wrong class;
-    the last column is b -> oo (a tie at p = 1/2 counts half)."""
-    key = ("g2", all_sizes.shape[0], int(all_sizes[-1]), tie_wrong)
-    if key not in _cache:
-        from scipy.special import bdtr
-        p, _ = _grid_two()
-        p = p[:, 0]
-        b = all_sizes[None, :]
-        # right votes X ~ Bin(b, p); wrong when X < b/2, or X = b/2 with the tie going elsewhere
-        thr = np.where(all_sizes % 2 == 1, (all_sizes - 1) // 2, all_sizes // 2 - 1 + int(tie_wrong))[None, :]
-        with np.errstate(all="ignore"):
-            g = np.where(thr >= 0, bdtr(np.maximum(thr, 0), b, p[:, None]), 0.0)
-        limit = np.where(p < 0.5, 1.0, np.where(p > 0.5, 0.0, 0.5))
-        _cache[key] = np.ascontiguousarray(np.concatenate([g, limit[:, None]], axis=1))
-    return _cache[key]
-
-
-def _g_three(all_sizes: np.ndarray, tie_1: bool, tie_2: bool) -> np.ndarray:
-    """(G, S + 1) for three categories (own class, other 1, other 2); tie_c: a tie with other c
-    goes to the own class. Exact: P(own wins) = sum_x P(X_own = x) P(both others stay below x)."""
-    key = ("g3", all_sizes.shape[0], int(all_sizes[-1]), tie_1, tie_2)
-    if key not in _cache:
-        from scipy.special import bdtr
-        from scipy.stats import binom
-        grid, _ = _grid_three()
-        py, p1, p2 = grid[:, 0], grid[:, 1], grid[:, 2]
-        q = np.where(p1 + p2 > 0, p1 / np.where(p1 + p2 > 0, p1 + p2, 1.0), 0.5)
-        cols = []
-        for b in all_sizes:
-            x = np.arange(b + 1)[:, None]
-            rest = b - x
-            hi = np.minimum(rest, x - 1 + int(tie_1))
-            lo = np.maximum(0, rest - (x - 1 + int(tie_2)))
-            with np.errstate(all="ignore"):
-                upper = np.where(hi >= 0, bdtr(np.maximum(hi, 0), rest, q[None, :]), 0.0)
-                lower = np.where(lo >= 1, bdtr(np.maximum(lo - 1, 0), rest, q[None, :]), 0.0)
-            inside = np.where(hi >= lo, upper - lower, 0.0)
-            win = (binom.pmf(x, b, py[None, :]) * inside).sum(axis=0)
-            cols.append(1.0 - win)
-        # b -> oo: the own class wins when its chance is the largest (ties share)
-        top = np.maximum(p1, p2)
-        limit = np.where(py > top + 1e-12, 0.0, np.where(py < top - 1e-12, 1.0, 0.5))
-        _cache[key] = np.ascontiguousarray(np.clip(np.stack(cols + [limit], axis=1), 0.0, 1.0))
-    return _cache[key]
-
-
 # -- the fit ---------------------------------------------------------------------------------------
 @dataclass
 class Fit:
@@ -218,6 +83,8 @@ class Fit:
     var: np.ndarray           # (S + 1,) its variance
     class_error: np.ndarray   # (S + 1, C) or (S + 1, 0) for regression
     class_var: np.ndarray
+    measure: str = ""         # what `error` holds: "" the task's error (MSE), else a measure's name
+                              # (baggr/oob/measure_fit.py); its interval and tolerance follow it
 
     ARRAYS = ("members", "sizes", "error", "var", "class_error", "class_var")
 
@@ -256,7 +123,7 @@ class Fit:
 
     def interval(self, e: float, v: float):
         """95% interval of an estimate e with (jackknife) variance v (None while e is unknown)."""
-        return interval(self.task, e, VARIANCE_FACTOR * v)
+        return interval(self.task, e, VARIANCE_FACTOR * v, self.measure)
 
     @property
     def limit(self) -> float:
@@ -273,12 +140,19 @@ class Fit:
             return float(self.error[i]), float(self.var[i])
         return float(self.at(b)[0]), float(self.var_at(b)[0])
 
+    @property
+    def higher_is_better(self) -> bool:
+        return self.measure in HIGHER_IS_BETTER
+
     def tolerance(self) -> float:
-        """How close to the limit counts as there: 1% of it or (classes) 0.1 point, the larger."""
+        """How close to the limit counts as there: 1% of it or (classes) 0.1 point, the larger. For
+        a measure where higher is better (AUC, R2), 1% of its distance to a perfect 1 (for R2 the
+        same as 1% of the MSE limit, as a share of the targets' variance)."""
         lim = self.limit
+        loss = 1.0 - lim if self.higher_is_better else lim
         if self.task == "classes":
-            return max(TOLERANCE_REL * lim, TOLERANCE_ABS)
-        return TOLERANCE_REL * abs(lim)
+            return max(TOLERANCE_REL * abs(loss), TOLERANCE_ABS)
+        return TOLERANCE_REL * abs(loss)
 
     def points(self, top: int, count: int = 48) -> dict:
         """The curve at about `count` sizes from 1 to `top`, log-spaced, with its band (and per class),
@@ -309,8 +183,11 @@ class Fit:
     def _members_needed(self) -> int | None:
         if not np.isfinite(self.limit):
             return None
-        thr = self.limit + self.tolerance()
-        e = self.error[:-1]
+        # in loss form (lower is better): a measure where higher is better is turned round
+        sign = -1.0 if self.higher_is_better else 1.0
+        limit = sign * self.limit
+        thr = limit + self.tolerance()
+        e = sign * self.error[:-1]
         above = np.flatnonzero(~(e <= thr))
         if above.shape[0] == 0:
             return int(self.sizes[0])
@@ -318,11 +195,11 @@ class Fit:
         if i == e.shape[0] - 1:
             # beyond the last size the curve falls like c / b: solve lim + (e_last - lim) s / b <= thr
             s, el = int(self.sizes[-1]), float(e[-1])
-            need = int(math.ceil(s * (el - self.limit) / (thr - self.limit))) if thr > self.limit else None
+            need = int(math.ceil(s * (el - limit) / (thr - limit))) if thr > limit else None
             return need if need is not None and need < 1 << 40 else None
         lo, hi = int(self.sizes[i]) + 1, int(self.sizes[i + 1])
         cand = np.arange(lo, hi + 1, dtype=np.int64)
-        ok = self.at(cand) <= thr
+        ok = sign * self.at(cand) <= thr
         # from the first size after which every size up to hi is in
         bad = np.flatnonzero(~ok)
         return int(cand[bad[-1] + 1]) if bad.shape[0] else lo
@@ -333,12 +210,12 @@ class Fit:
                 "var": self.var, "class_error": self.class_error, "class_var": self.class_var}
 
     @classmethod
-    def from_arrays(cls, task: str, a: dict) -> "Fit":
+    def from_arrays(cls, task: str, a: dict, measure: str = "") -> "Fit":
         if np.asarray(a["members"]).shape != (1,):
             raise ValueError("a fit's member count is one number")
         return cls(task, int(a["members"][0]), np.asarray(a["sizes"], np.int64), np.asarray(a["error"], np.float64),
                    np.asarray(a["var"], np.float64), np.asarray(a["class_error"], np.float64),
-                   np.asarray(a["class_var"], np.float64))
+                   np.asarray(a["class_var"], np.float64), measure)
 
     def check(self) -> str | None:
         """What is wrong with stored fit arrays (None: nothing)."""
@@ -368,10 +245,21 @@ def _parity_tables(all_sizes: np.ndarray) -> list:
     return out
 
 
-def interval(task: str, e: float, v: float):
-    """Wilson's interval at e with e (1 - e) / v effective rows (classes); normal (regression)."""
+HIGHER_IS_BETTER = ("auc", "r2")
+# the range of each measure: a normal interval is cut to it
+BOUNDS = {"brier": (0.0, 2.0), "log-loss": (0.0, math.inf), "auc": (0.0, 1.0), "mse": (0.0, math.inf),
+          "rmse": (0.0, math.inf), "mae": (0.0, math.inf), "r2": (-math.inf, 1.0)}
+
+
+def interval(task: str, e: float, v: float, measure: str = ""):
+    """Wilson's interval at e with e (1 - e) / v effective rows (the error and the balanced error, both
+    shares of rows); otherwise normal, cut to the measure's range."""
     if not (e == e) or not (v == v):
         return None
+    if measure not in ("", "error", "balanced-error", "mse") or (task != "classes" and measure):
+        h = Z95 * math.sqrt(max(v, 0.0))
+        lo, hi = BOUNDS.get(measure, (-math.inf, math.inf))
+        return (max(lo, e - h), min(hi, e + h))
     if task == "classes":
         if v <= 0.0:
             return (e, e)
@@ -387,22 +275,28 @@ def interval(task: str, e: float, v: float):
     return (max(0.0, e - h), e + h)
 
 
-def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classes: int, members: int,
-                sample: int | None = None) -> Fit:
-    """The estimate from a class tally: votes (n, C), left_out (n,) or empty (hard votes).
+@dataclass
+class Priors:
+    """The estimated distribution of the rows' vote probabilities, per class (the smoothed-EM prior)
+    with what the influence of a row on a figure needs: per class c with covered rows, (c, the
+    cells' likelihood lp, li, lv, the cells' row counts cf, the prior pi)."""
 
-    sample: fit to every stride-th row only, so that about `sample` rows are read (a run's refits:
-    their cost does not grow with the table); the figures and their variance are then those of
-    that sample, a spread-out part of the table. None: every row (the finished ensemble)."""
+    n_classes: int
+    three: bool
+    grid: np.ndarray
+    smooth: tuple
+    parts: list
+    covered: np.ndarray
+    members: int
+    sample: bool
+
+
+def class_priors(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classes: int, members: int,
+                 sample: int | None = None) -> Priors:
+    """The prior of every class from a class tally (see fit_classes for the arguments)."""
     three = n_classes >= 3
-    all_sizes = sizes(MAX_SIZE_THREE if three else MAX_SIZE)
-    vi = variance_sizes(all_sizes, 2.0 if sample else math.sqrt(2))   # a run's refits: fewer
-    grid, (sp, si, sv) = _grid_three() if three else _grid_two()
-    n_grid = grid.shape[0]
-    cols = np.concatenate([vi, [all_sizes.shape[0]]])   # + the limit column
-    n_sizes = all_sizes.shape[0] + 1
-    class_error = np.full((n_sizes, n_classes), np.nan)
-    class_var = np.full((n_sizes, n_classes), np.nan)
+    grid, smooth = _grid_three() if three else _grid_two()
+    sp, si, sv = smooth
     covered = np.zeros(n_classes)
     stride = max(1, votes.shape[0] // sample) if sample else 1
     parts = []
@@ -413,33 +307,98 @@ def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classe
         covered[c] = nc
         if nc == 0:
             continue
-        if three:
-            others = [o for o in range(n_classes) if o != c]
-            tie1, tie2 = (c < others[0], c < others[1]) if n_classes == 3 else (c == 0, c == 0)
-            g = _g_three(all_sizes, tie1, tie2)
-        else:
-            g = _g_two(all_sizes, tie_wrong=c > 0)
         lp, li, lv = k.likelihood(cells, grid, DROP)
         cf = counts.astype(np.float64)
-        pi, _ = k.ems(lp, li, lv, cf, sp, si, sv, n_grid, TOL, MAX_ITER)
+        pi, _ = k.ems(lp, li, lv, cf, sp, si, sv, grid.shape[0], TOL, MAX_ITER)
+        parts.append((c, lp, li, lv, cf, pi))
+    return Priors(n_classes, three, grid, smooth, parts, covered, members, bool(sample))
+
+
+def class_influence(pr: Priors, part, gvals: np.ndarray) -> np.ndarray:
+    """(cells, B) influence of one more row in each of the part's cells on pi' gvals (columns: figures)."""
+    _, lp, li, lv, cf, pi = part
+    sp, si, sv = pr.smooth
+    return k.influence(lp, li, lv, cf, sp, si, sv, pi, np.ascontiguousarray(gvals))
+
+
+def weighted_fit(pr: Priors, tables, all_sizes: np.ndarray, measure: str = "") -> Fit:
+    """A figure that is a mean over rows of a function of the row's vote probabilities and the
+    ensemble size: tables(c) gives its (G, S + 1) values for a row of class c at each grid point and
+    size (last column b -> oo); the estimate per class is prior' table, overall the classes weighted
+    by their covered rows, its variance the infinitesimal jackknife (module docstring)."""
+    vi = variance_sizes(all_sizes, 2.0 if pr.sample else math.sqrt(2))   # a run's refits: fewer
+    cols = np.concatenate([vi, [all_sizes.shape[0]]])   # + the limit column
+    n_sizes = all_sizes.shape[0] + 1
+    n_classes = pr.n_classes
+    class_error = np.full((n_sizes, n_classes), np.nan)
+    class_var = np.full((n_sizes, n_classes), np.nan)
+    share = measure in ("", "error")
+    parts = []
+    for part in pr.parts:
+        c, cf, pi = part[0], part[4], part[5]
+        nc = float(pr.covered[c])
+        g = tables(c)
         est = pi @ g
-        psi = k.influence(lp, li, lv, cf, sp, si, sv, pi, np.ascontiguousarray(g[:, cols]))
+        psi = class_influence(pr, part, g[:, cols])
         parts.append((c, est, psi, cf))
         class_error[:, c] = est
-        class_var[:, c] = _spread_var(est, (cf[:, None] * psi ** 2).sum(axis=0) / (nc * nc), cols, all_sizes, nc)
-    total = covered.sum()
+        v_at = (cf[:, None] * psi ** 2).sum(axis=0) / (nc * nc)
+        class_var[:, c] = _spread_var(est, v_at, cols, all_sizes, nc) if share else _log_var(v_at, cols, all_sizes)
+    total = pr.covered.sum()
     error = np.full(n_sizes, np.nan)
     var = np.full(n_sizes, np.nan)
     if total > 0:
-        q = covered / total
+        q = pr.covered / total
         error = np.nansum(class_error * q[None, :], axis=1)
         # a row's influence on the class-weighted figure: its class's estimate and its own pull
         v = np.zeros(cols.shape[0])
         for c, est, psi, cf in parts:
             dev = est[cols][None, :] + psi - error[cols][None, :]
             v += (cf[:, None] * dev ** 2).sum(axis=0)
-        var = _spread_var(error, v / (total * total), cols, all_sizes, total)
-    return Fit("classes", members, all_sizes, error, var, class_error, class_var)
+        v /= total * total
+        var = _spread_var(error, v, cols, all_sizes, total) if share else _log_var(v, cols, all_sizes)
+    return Fit("classes", pr.members, all_sizes, error, var, class_error, class_var, measure)
+
+
+def fit_classes(votes: np.ndarray, left_out: np.ndarray, y: np.ndarray, n_classes: int, members: int,
+                sample: int | None = None) -> Fit:
+    """The estimate from a class tally: votes (n, C), left_out (n,) or empty (hard votes).
+
+    sample: fit to every stride-th row only, so that about `sample` rows are read (a run's refits:
+    their cost does not grow with the table); the figures and their variance are then those of
+    that sample, a spread-out part of the table. None: every row (the finished ensemble)."""
+    return error_fit(class_priors(votes, left_out, y, n_classes, members, sample))
+
+
+def error_fit(pr: Priors) -> Fit:
+    """The error of the kept ensemble from the priors."""
+    all_sizes = sizes(MAX_SIZE_THREE if pr.three else MAX_SIZE)
+    n_classes = pr.n_classes
+
+    def tables(c):
+        if pr.three:
+            others = [o for o in range(n_classes) if o != c]
+            tie1, tie2 = (c < others[0], c < others[1]) if n_classes == 3 else (c == 0, c == 0)
+            return _g_three(all_sizes, tie1, tie2)
+        return _g_two(all_sizes, tie_wrong=c > 0)
+
+    return weighted_fit(pr, tables, all_sizes)
+
+
+def _log_var(v_at: np.ndarray, cols: np.ndarray, all_sizes: np.ndarray) -> np.ndarray:
+    """Variance at every stored size from its value at some, interpolated in log b (log of the
+    variance where positive); the last column, the limit, kept as computed."""
+    logb = np.log(all_sizes.astype(np.float64))
+    x = logb[cols[:-1]]
+    pos = v_at[:-1] > 0
+    out = np.empty(all_sizes.shape[0] + 1)
+    if pos.all():
+        out[:-1] = np.exp(np.interp(logb, x, np.log(v_at[:-1])))
+    else:
+        out[:-1] = np.interp(logb, x, v_at[:-1])
+    out[cols[:-1]] = v_at[:-1]
+    out[-1] = v_at[-1]
+    return out
 
 
 def _spread_var(est: np.ndarray, v_at: np.ndarray, cols: np.ndarray, all_sizes: np.ndarray, n: float) -> np.ndarray:

@@ -106,24 +106,6 @@ class MeasureCurve:
         self.seconds += time.perf_counter() - t0
         return values
 
-    def stable(self, name: str, m: int, min_members: int, window: int, part: int) -> str | None:
-        """Why `name` counts as settled after m members (None if not): the rule of the error curve
-        (runs.job.stable_now) on this measure's points. m must be a size just computed; the points
-        of the last w = max(window, m // part) members, at least three of them, all lie within
-        +-h of the value at m, h the half-width of its 95% interval."""
-        if m < max(min_members, 1) or not self.sizes or self.sizes[-1] != m:
-            return None
-        i = self.names.index(name)
-        w = min(m, max(window, m // part))
-        pts = [row[i] for b, row in zip(self.sizes, self.rows) if b > m - w]
-        v, lo, hi = pts[-1]
-        if len(pts) < 3 or not (math.isfinite(v) and math.isfinite(lo) and math.isfinite(hi)):
-            return None
-        h = (hi - lo) / 2.0
-        if any(not math.isfinite(p[0]) or abs(p[0] - v) > h for p in pts):
-            return None
-        return f"stable: the {name} stayed within {v:.4g} +- {h:.2g} over the last {w} members"
-
     def compute(self, tally) -> dict:
         """Every measure of the tally as it stands."""
         b = tally.members
@@ -195,23 +177,42 @@ def check_arrays(a: dict, where, n_rows: int | None = None) -> None:
         raise ModelFileError(f"{where}: the measure curve's sizes are not ascending")
 
 
-def curve_of(oob) -> tuple[list, dict]:
-    """(sizes, {name: (P, 3) value, lo, hi}) of a run's OOB view; empty when it has none.
+def curve_of(oob, raw: bool = False) -> tuple[list, dict]:
+    """(sizes, {name: (P, 3) value, lo, hi}) of a run's OOB view at the measure curve's sizes; empty
+    when it has none.
 
-    The error (classes) or the MSE and RMSE (regression) are read off the view's own curve at those
-    sizes, as it stands now: where that curve is an estimate refitted as the run went on, a point
-    stored mid-run held the estimate of its time; the view holds the final one."""
+    Every measure with an estimate for the kept ensemble (baggr/oob/measure_fit.py; the error and the
+    MSE from the view's own curve) is read off that estimate at those sizes, as it stands at the end
+    (a point stored mid-run held the figures of its time). raw: the textbook OOB figures instead (the
+    points stored as the run went, the error (MSE) from the view's raw curve)."""
     a = oob.arrays()
     if "measure_sizes" not in a:
         return [], {}
     names = ms.task_measures(oob.task)
     v = _by_name(a, names)
     sizes = [int(x) for x in a["measure_sizes"]]
-    curve, band = np.asarray(oob.curve), np.asarray(oob.curve_interval)
+    if raw:
+        curve, band = np.asarray(oob.raw_curve), np.asarray(oob.raw_curve_interval)
+    else:
+        curve, band = np.asarray(oob.curve), np.asarray(oob.curve_interval)
     for j, b in enumerate(sizes):
         if b <= curve.shape[0]:
             now = follow_estimate({}, oob.task, curve[b - 1], band[b - 1])
             for name, (value, iv) in now.items():
+                if raw and name == "rmse":
+                    continue       # the stored textbook point
                 i = names.index(name)
                 v[j, i] = [value, *(iv if iv is not None else (np.nan, np.nan))]
+    if not raw and oob.corrected:
+        fits = oob.measure_fits()
+        bs = np.array(sizes, np.int64)
+        keep = bs <= oob.members
+        for name, fit in fits.items():
+            if name in ("error", "mse"):
+                continue
+            i = names.index(name)
+            e, var = fit.at(bs[keep]), fit.var_at(bs[keep])
+            for j, (x, w) in zip(np.flatnonzero(keep), zip(e.tolist(), var.tolist())):
+                iv = fit.interval(x, w)
+                v[j, i] = [x, *(iv if iv is not None else (np.nan, np.nan))]
     return sizes, {name: v[:, i] for i, name in enumerate(names)}

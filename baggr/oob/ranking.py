@@ -1,10 +1,11 @@
-"""Candidates ranked on one measure of their OOB estimates, each paired with the best on the rows
-both judged (baggr.oob.paired), with Holm's adjustment across the comparisons.
+"""Candidates ranked on one measure, each paired with the best on the rows both judged
+(baggr.oob.paired), with Holm's adjustment across the comparisons.
 
-The per-row figures come from the OOB arrays (votes, predictions, squared errors) and the rows'
-targets. STAND-IN: a candidate's value and interval for measures other than error and MSE are
-computed here (a normal interval on the per-row values, DeLong's for AUC) until baggr.oob.measures
-(the measures issue) is on main; switch `value_and_interval` to it then.
+A candidate's value and interval are its OOB view's measure (`oob.measures()`: baggr.oob.measures
+and, where there is one, the estimate for the kept ensemble of baggr.oob.measure_fit), so they are
+the figures `baggr report` gives for that run. The paired tests work on the textbook per-row OOB
+outcomes (each row's OOB vote, shares or squared error from the OOB arrays and the rows' targets):
+the estimate for the kept ensemble is a figure for the whole table, with no per-row outcome to pair.
 """
 from __future__ import annotations
 
@@ -14,11 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from baggr.oob import paired
-from baggr.oob.intervals import Z95
-
-CLASS_MEASURES = ("error", "balanced-error", "log-loss", "brier", "auc")
-REGRESSION_MEASURES = ("mse", "mae", "r2")
-HIGHER_IS_BETTER = ("auc", "r2")
+from baggr.oob.measures import CLASS_MEASURES, HIGHER_IS_BETTER, REGRESSION_MEASURES  # noqa: F401
 ALPHA = 0.05     # "close": the Holm-adjusted p-value of the difference to the best is at least this
 
 
@@ -75,7 +72,7 @@ def rows(oob, y: np.ndarray, measure: str) -> Rows:
             return Rows(covered, None, shares)
     else:
         sq = np.asarray(a["sq_err"], np.float64)
-        if measure in ("mse", "r2"):
+        if measure in ("mse", "rmse", "r2"):
             return Rows(covered, sq, None)
         if measure == "mae":
             return Rows(covered, np.sqrt(sq), None)
@@ -90,48 +87,11 @@ def _weights(y: np.ndarray, mask: np.ndarray) -> np.ndarray:
     return 1.0 / (present * counts[yc])
 
 
-def _auc(shares: np.ndarray, y: np.ndarray):
-    """(AUC, its DeLong standard error): two classes, or the macro one-vs-rest mean."""
-    C = shares.shape[1]
-    ks = [1] if C == 2 else range(C)
-    aucs, var = [], 0.0
-    for k in ks:
-        pos = y == k
-        m, n = int(pos.sum()), int((~pos).sum())
-        if m < 2 or n < 2:
-            continue
-        v10, v01, auc = paired.placements(shares[:, k], pos)
-        aucs.append(auc)
-        var += v10.var(ddof=1) / m + v01.var(ddof=1) / n   # each class's own; classes taken as independent
-    if not aucs:
-        return float("nan"), float("nan")
-    return float(np.mean(aucs)), math.sqrt(var) / len(aucs)
-
-
-def value_and_interval(oob, r: Rows, y: np.ndarray, measure: str):
-    """(value, 95% interval) of one candidate. Error and MSE: the run's own figures (oob.error and
-    oob.interval: the estimate the run reports); the others: STAND-IN, see the module's docstring."""
-    if measure in ("error", "mse"):
-        iv = oob.interval
-        return float(oob.error), (None if iv is None else (float(iv[0]), float(iv[1])))
-    mask = r.covered
-    if not mask.any():
-        return float("nan"), None
-    if measure == "auc":
-        v, se = _auc(r.shares[mask], np.asarray(y)[mask])
-        return v, (v - Z95 * se, v + Z95 * se)
-    loss = r.loss[mask]
-    if measure == "balanced-error":
-        w = _weights(y, mask)
-        d = paired.mean_difference(loss, np.zeros_like(loss), weights=w)
-    else:
-        d = paired.mean_difference(loss, np.zeros_like(loss))
-    if measure == "r2":
-        var_y = float(np.var(np.asarray(y, np.float64)[mask]))
-        if var_y <= 0:
-            return float("nan"), None
-        return 1.0 - d.difference / var_y, (1.0 - d.interval[1] / var_y, 1.0 - d.interval[0] / var_y)
-    return d.difference, d.interval
+def value_and_interval(oob, measure: str):
+    """(value, 95% interval) of one candidate: its OOB view's figure for the measure (the estimate for
+    the kept ensemble where there is one, else the textbook OOB figure)."""
+    v, iv = oob.measures().get(measure, (float("nan"), None))
+    return float(v), (None if iv is None else (float(iv[0]), float(iv[1])))
 
 
 def paired_difference(a: Rows, b: Rows, y: np.ndarray, measure: str) -> paired.Paired:
@@ -147,6 +107,11 @@ def paired_difference(a: Rows, b: Rows, y: np.ndarray, measure: str) -> paired.P
             return paired.auc_difference(a.shares[mask, 1], b.shares[mask, 1], yy == 1)
         return paired.macro_auc_difference(a.shares[mask], b.shares[mask], yy, a.shares.shape[1])
     d = paired.mean_difference(a.loss[mask], b.loss[mask])
+    if measure == "rmse":   # the MSE's paired test; the difference mapped through the square root at b's MSE
+        mb = float(np.mean(b.loss[mask]))
+        root = lambda x: math.sqrt(max(mb + x, 0.0)) - math.sqrt(mb)  # noqa: E731
+        return paired.Paired(root(d.difference), (root(d.interval[0]), root(d.interval[1])),
+                             d.se / (2 * math.sqrt(mb)) if mb > 0 else float("nan"), d.p_value, d.rows, d.method)
     if measure == "r2":    # R2 = 1 - MSE / var(y): a difference in MSE, scaled and turned round
         var_y = float(np.var(np.asarray(yy, np.float64)))
         s = -1.0 / var_y if var_y > 0 else float("nan")
@@ -166,7 +131,7 @@ def rank(oobs: list, y: np.ndarray, measure: str) -> list[dict]:
             figs.append({"index": i, "value": None, "interval": None})
             continue
         r = rows(oob, y, measure)
-        v, iv = value_and_interval(oob, r, y, measure)
+        v, iv = value_and_interval(oob, measure)
         figs.append({"index": i, "value": v if math.isfinite(v) else None, "interval": iv, "_rows": r})
     order = sorted(range(len(figs)), key=lambda i: (figs[i]["value"] is None,
                                                     better * (figs[i]["value"] or 0.0), i))

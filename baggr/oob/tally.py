@@ -7,6 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from baggr.oob import curve as est
+from baggr.oob import measure_fit
 from baggr.oob import tally_kernels as k
 from baggr.oob.intervals import normal_mean, wilson
 
@@ -61,6 +62,9 @@ class Tally:
         self.curve_interval = np.full((capacity, 2), np.nan)
         self.est: est.Fit | None = None
         self.live_fits = True   # False: nobody reads figures between members, so skip the refits
+        self.measure = ""       # the measure the run is judged by (set by the training): its estimate is
+                                # refitted beside the error's, and `needed` follows it
+        self.mest: est.Fit | None = None   # the latest refit of that measure (None: error / MSE, or none yet)
         self.needed: list = []  # [member, members_needed or -1] of every refit, for a stopping rule
         self.refit_seconds = 0.0  # time the refits took (bench/curve_cost.py reads it)
 
@@ -113,9 +117,9 @@ class Tally:
             self.curve_interval[m] = iv
         if self.live_fits and est.refit_due(self.members):
             t0 = time.perf_counter()
-            self.est = self.fit(sample=est.LIVE_ROWS)
+            self.est, self.mest = self.fits(sample=est.LIVE_ROWS)
             self.refit_seconds += time.perf_counter() - t0
-            need = self.est.members_needed()
+            need = (self.mest or self.est).members_needed()
             self.needed.append([self.members, -1 if need is None else need])
 
     def _grow_curve(self) -> None:
@@ -165,13 +169,15 @@ class Tally:
     def class_interval(self) -> list:
         return [wilson(int(w), int(c)) for w, c in zip(self.class_wrong, self.class_covered)]
 
-    def r2(self) -> float:
-        """1 - MSE / variance of the covered rows' targets."""
+    def r2(self, mse: float | None = None) -> float:
+        """1 - MSE / variance of the covered rows' targets; mse: another MSE than the textbook one
+        (the estimate for the kept ensemble)."""
         n = self.sums[2]
         if n < 2:
             return float("nan")
         var = self.sums[4] / n - (self.sums[3] / n) ** 2
-        return float(1.0 - (self.sums[0] / n) / var) if var > 0 else float("nan")
+        m = self.sums[0] / n if mse is None else mse
+        return float(1.0 - m / var) if var > 0 else float("nan")
 
     # -- the estimated error of the kept ensemble ---------------------------------------------------
     def fit(self, sample: int | None = None) -> "est.Fit":
@@ -179,6 +185,30 @@ class Tally:
         if self.task == "classes":
             return est.fit_classes(self.votes, self._left_out, self.y, self.n_classes, self.members, sample=sample)
         return est.fit_regression(self.value_sum, self.value_m2, self._left_out, self.y, self.members)
+
+    def fits(self, sample: int | None = None) -> tuple:
+        """(the error's fit, the chosen measure's fit or None): the measure's from the same priors
+        (classes); None for the error or MSE, or a measure without an estimate (AUC of three or more
+        classes: the error's members_needed then stands for it)."""
+        m = self.measure if self.measure not in ("", "error", "mse") else None
+        if self.task == "classes":
+            pr = est.class_priors(self.votes, self._left_out, self.y, self.n_classes, self.members, sample)
+            err = est.error_fit(pr)
+            return err, (measure_fit.from_priors(pr, (m,), err).get(m) if m else None)
+        err = self.fit(sample)
+        if m is None:
+            return err, None
+        return err, measure_fit.regression_fits(self.value_sum, self.value_m2, self._left_out, self.y, self.members,
+                                                (m,), mse=err, sample=sample).get(m)
+
+    def measure_live(self) -> dict | None:
+        """The chosen measure's estimate from the latest refit, at the current size (None: none)."""
+        f, b = self.mest, self.members
+        if f is None:
+            return None
+        e, v = f.point(b)
+        return {"name": self.measure, "value": e, "interval": f.interval(e, v), "limit": f.limit,
+                "limit_interval": f.limit_interval, "members_needed": f.members_needed()}
 
     def live(self) -> dict:
         """The estimate for the current size from the latest fit: error, interval, class_error,

@@ -160,9 +160,10 @@ class OOB:
     def tolerance(self) -> float:
         return self._fit.tolerance() if self._fit is not None else float("nan")
 
-    def figures(self, target: int | None = None) -> dict:
+    def figures(self, target: int | None = None, measure: str | None = None) -> dict:
         """The estimate as a run's journal carries it: error, interval, error_limit(_interval),
-        members_needed, class_error and the curve over sizes (empty without an estimate)."""
+        members_needed, class_error and the curve over sizes (empty without an estimate); with a
+        measure other than the error (MSE), also measure_estimate: that measure's."""
         f = self._fit
         if f is None or self.members == 0:
             return {}
@@ -171,6 +172,10 @@ class OOB:
                "curve": f.points(f.points_top(target or self.members, self.members))}
         if self.task == "classes":
             out["class_error"] = self.class_error.tolist()
+        mf = self.measure_fits().get(measure) if measure not in (None, "error", "mse") else None
+        if mf is not None:
+            out["measure_estimate"] = dict(self.measure_estimate(measure), name=measure,
+                                           curve=mf.points(mf.points_top(target or self.members, self.members)))
         return out
 
     def estimate_at(self, b: int) -> tuple:
@@ -228,7 +233,22 @@ class OOB:
 
     @property
     def r2(self) -> float:
-        """1 - MSE / variance of the covered rows' targets (regression only)."""
+        """1 - MSE / variance of the covered rows' targets (regression only), with the MSE the estimate
+        for the kept ensemble (`error`); raw_r2 the textbook one."""
+        if self.task != "regression":
+            raise AttributeError("r2 is a regression figure")
+        if self._fit is None:
+            return self.raw_r2
+        s = self._a["sums"]
+        n = s[2]
+        if n < 2:
+            return float("nan")
+        var = s[4] / n - (s[3] / n) ** 2
+        return float(1.0 - self.error / var) if var > 0 else float("nan")
+
+    @property
+    def raw_r2(self) -> float:
+        """1 - the textbook OOB MSE / variance of the covered rows' targets."""
         if self.task != "regression":
             raise AttributeError("r2 is a regression figure")
         s = self._a["sums"]
@@ -259,11 +279,51 @@ class OOB:
 
     # -- measures and importance (baggr.oob.measures, baggr.oob.importance) ------------------------
     def measures(self) -> dict:
-        """Every measure of the OOB predictions with its 95% interval, {name: (value, (lo, hi) or None)},
-        named as --measure spells them; the error (MSE) is this view's own `error` and `interval`."""
+        """Every measure with its 95% interval, {name: (value, (lo, hi) or None)}, named as --measure
+        spells them: the estimate for the kept ensemble (baggr/oob/measure_fit.py) where there is one,
+        else the textbook figure (raw_measures); the error (MSE) is this view's own `error`."""
         from baggr.oob.measure_curve import follow_estimate
+        out = dict(self.raw_measures())
+        for name, fit in self.measure_fits().items():
+            e, v = fit.point(self.members)
+            out[name] = (e, fit.interval(e, v))
+        return follow_estimate(out, self.task, self.error, self.interval)
+
+    def raw_measures(self) -> dict:
+        """The textbook OOB figure of every measure (each row judged by its OOB votes), with its interval."""
         from baggr.oob.measures import of_oob
-        return follow_estimate(of_oob(self), self.task, self.error, self.interval)
+        return self._cached("raw_measures", lambda: of_oob(self))
+
+    def measure_fits(self) -> dict:
+        """{name: baggr.oob.curve.Fit} of every measure with an estimate for the kept ensemble."""
+        from baggr.oob import measure_fit
+        return self._cached("measure_fits", lambda: measure_fit.of_oob(self))
+
+    def measure_estimate(self, name: str) -> dict | None:
+        """The estimate of one measure: value and interval at M, its limit (b -> oo) with interval,
+        members_needed and tolerance; None where the measure has no estimate (the textbook figure stands)."""
+        fit = self._fit if name in ("error", "mse") else self.measure_fits().get(name)
+        if fit is None or self.members == 0:
+            return None
+        e, v = fit.point(self.members)
+        return {"value": e, "interval": fit.interval(e, v), "limit": fit.limit, "limit_interval": fit.limit_interval,
+                "members_needed": fit.members_needed(), "tolerance": fit.tolerance()}
+
+    def measure_curve(self, name: str) -> tuple:
+        """(values (M,), intervals (M, 2)) of one measure's estimate for b = 1..M members (NaN where none)."""
+        fit = self._fit if name in ("error", "mse") else self.measure_fits().get(name)
+        m = self.members
+        if fit is None:
+            return np.full(m, np.nan), np.full((m, 2), np.nan)
+        b = self._sizes()
+        e = fit.at(b)
+        v = fit.var_at(b)
+        iv = np.full((m, 2), np.nan)
+        for i, (x, w) in enumerate(zip(e.tolist(), v.tolist())):
+            t = fit.interval(x, w)
+            if t is not None:
+                iv[i] = t
+        return e, iv
 
     @property
     def importance(self) -> dict | None:
@@ -300,6 +360,7 @@ class OOB:
             d["confusion"] = self.confusion.tolist()
         else:
             d["r2"] = _f(self.r2)
+            d["raw_r2"] = _f(self.raw_r2)
         return d
 
 

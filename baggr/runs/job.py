@@ -23,12 +23,13 @@ from baggr.runs.rundir import RunDir, RunSettings, check_data, table_options
 
 
 
-def stable_now(needed, m: int, settings: RunSettings) -> str | None:
+def stable_now(needed, m: int, settings: RunSettings, measure: str = "") -> str | None:
     """Why the run may stop after m members (None if not): it has reached members_needed, and the
     estimate of members_needed has itself settled.
 
-    needed: [member, members_needed (-1: beyond reach)] of each refit of the estimated curve (one
-    per doubling of the members, from 32). Rule: take the refits at or after stable_min_members
+    needed: [member, members_needed (-1: beyond reach)] of each refit of the estimated curve of the
+    run's measure (one per doubling of the members, from 32; the error's for the error and the MSE,
+    and for a measure without an estimate, the AUC of three or more classes). Rule: take the refits at or after stable_min_members
     members; the last stable_refits of them all give a members_needed within
     +-max(stable_spread N, stable_slack) of the latest one, N; and m >= N. So the run stops at N
     members when the estimate has settled by then, or as soon as it settles when N lies behind.
@@ -42,7 +43,8 @@ def stable_now(needed, m: int, settings: RunSettings) -> str | None:
     if n < 1 or any(b < 1 or abs(b - n) > room for _, b in last) or m < n:
         return None
     at = ", ".join(str(a) for a, _ in last)
-    return (f"stable: {n} members needed to come near the error limit (the estimate agreed within "
+    what = "error" if measure in ("", "error", "mse") else measure
+    return (f"stable: {n} members needed to come near the {what} limit (the estimate agreed within "
             f"{room:.0f} members at the refits after {at} members)")
 
 
@@ -296,12 +298,11 @@ class Job:
                     self.stop_reason = why
                     return True
             if settings.stop_when_stable:
-                measure = tr.config.resolved_measure(tr.prep.task)
-                if measure in ("error", "mse"):   # the estimated curve's members_needed (stable_now)
-                    why = stable_now(tr.tally.needed, tr.next_member, settings)
-                else:      # the chosen measure's points (baggr.oob.measure_curve)
-                    why = tr.measures.stable(measure, tr.next_member, settings.stable_min_members,
-                                             settings.stable_window, settings.stable_window_part)
+                # one rule for every measure: the chosen measure's members_needed at the refits
+                from baggr.oob.measure_fit import has_estimate
+                t = tr.tally
+                why = stable_now(t.needed, tr.next_member, settings,
+                                 t.measure if has_estimate(t.measure, t.task, t.n_classes) else "")
                 if why:
                     self.stop_reason = why
                     return True
@@ -362,7 +363,8 @@ class Job:
         """Write model.npz: for kept trees, the trees file the checkpoints appended to gets the trees
         not stored yet and the rest of the model, and is renamed (the trees are written once)."""
         ens = tr.ensemble(trees=False)
-        self._final = ens.oob.figures(tr.config.members)   # the end line carries them
+        # the end line carries them (and the chosen measure's estimate)
+        self._final = ens.oob.figures(tr.config.members, tr.config.resolved_measure(tr.prep.task))
         try:
             if tr.config.keep_members:
                 self.checkpointer.finish_model(ens)

@@ -82,6 +82,10 @@ class RunState:
         # the run's latest estimated curve over ensemble sizes, from its latest refit line:
         # {"member": m, "b": [...], "error": [...], "lo": [...], "hi": [...], "class_error": [[...], ...]}
         self.fit: dict | None = None
+        # the chosen --measure's estimate from the latest refit line (or the end line), when the run is
+        # judged by a measure other than the error (MSE): {name, value, interval, limit, limit_interval,
+        # members_needed, curve: {b, error (the measure's values), lo, hi}, member}
+        self.measure_estimate: dict | None = None
         self._drawn: dict = {}     # per series: extremes of complete buckets (see downsample)
         self.measures = MeasurePoints()   # the measures at the sizes the job computed them, and importance
         self.feature_names: list[str] = []
@@ -155,6 +159,8 @@ class RunState:
         self._drawn.clear()
         self.measures.truncate(member)
         self.members = member
+        if self.measure_estimate is not None and self.measure_estimate["member"] > member:
+            self.measure_estimate = None
         if self.fit is not None and self.fit["member"] > member:
             self.fit = None     # the member lines that follow bring the fit again
         # The latest figures now come from the curve; coverage and confusion are unknown until the next line.
@@ -203,6 +209,9 @@ class RunState:
         self.curve_raw.append(raw)
         if fit is not None:
             self.fit = fit
+        me = ev.get("measure_estimate")
+        if isinstance(me, dict):
+            self.measure_estimate = dict(me, member=m)
         k = len(ce)
         for j, c in enumerate(curves):
             c.append(ce[j] if j < k else NAN)
@@ -226,6 +235,9 @@ class RunState:
             self._last = {**self._last, **{k: v for k, v in est.items() if k != "curve"}}
             if fit is not None:
                 self.fit = fit
+            me = est.get("measure_estimate")
+            if isinstance(me, dict):
+                self.measure_estimate = dict(me, member=int(ev.get("member") or self.members))
 
     # -- the latest figures, from the last member line
 

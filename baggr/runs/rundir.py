@@ -41,9 +41,6 @@ class RunSettings:
     stable_refits: int = 3           # ... the last this many of them
     stable_spread: float = 0.1       # ... agree on members_needed to within this share of the latest
     stable_slack: int = 16           # ... or within this many members, whichever is more
-    # measures other than the error (--measure): their curve settles over a window (job.Job.advance)
-    stable_window: int = 25          # the window is max(stable_window, members // stable_window_part)
-    stable_window_part: int = 5
 
     @classmethod
     def from_dict(cls, d: dict | None) -> "RunSettings":
