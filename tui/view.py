@@ -54,6 +54,9 @@ class View:
     measure: str | None = None      # the measure shown (m cycles); the run's chosen one at first
     chosen_measure: str | None = None
     measure_value: tuple | None = None   # (value, lo, hi) of the shown measure at its latest point
+    # the shown measure's estimate for the kept ensemble (the latest refit's, or the saved ensemble's
+    # at the end): value, interval, limit, members_needed and its curve {b, error, lo, hi}; None before
+    measure_fit: dict | None = None
     importance: list = field(default_factory=list)   # (feature, mean, se), largest mean first
 
     @property
@@ -93,6 +96,13 @@ def make_view(state: RunState, *, run_name: str, status: str, now: float, width:
         xs, v, lo, hi = state.measures.curve(measure)     # a point a scheduled size: a few dozen
         curves["m"], curves["m_lo"], curves["m_hi"] = (xs, v), (xs, lo), (xs, hi)
     latest = state.measures.latest(measure)
+    me = state.measure_estimate
+    measure_fit = dict(me) if isinstance(me, dict) and me.get("name") == measure else None
+    if measure_fit is not None:
+        # the estimate read at the members so far, like the error's (its textbook points stay in curves)
+        at = _read_fit(measure_fit, state.members)
+        if at is not None:
+            latest = at
     imp = state.measures.importance
     names = state.feature_names
     importance = []
@@ -116,4 +126,23 @@ def make_view(state: RunState, *, run_name: str, status: str, now: float, width:
         error_limit_interval=state.error_limit_interval, members_needed=state.members_needed, show_raw=show_raw,
         resolved=dict(state.resolved) if isinstance(state.resolved, dict) else None,
         measure=measure, chosen_measure=the_chosen, measure_value=latest, importance=importance,
+        measure_fit=measure_fit,
     )
+
+
+def _read_fit(fit: dict, members: int) -> tuple | None:
+    """(value, lo, hi) of a fitted curve at `members`, linear between its sizes; None without one."""
+    iv = fit.get("interval") or (None, None)
+    if fit.get("value") is not None and fit.get("member") == members:
+        return fit["value"], iv[0], iv[1]          # fitted at this size: its own figures
+    c = fit.get("curve") or {}
+    b, e, lo, hi = c.get("b") or [], c.get("error") or [], c.get("lo") or [], c.get("hi") or []
+    if not b or not (len(b) == len(e) == len(lo) == len(hi)) or members < 1:
+        return None if fit.get("value") is None else (fit["value"], iv[0], iv[1])
+    if members <= b[0]:
+        return e[0], lo[0], hi[0]
+    for k in range(1, len(b)):
+        if members <= b[k]:
+            t = (members - b[k - 1]) / (b[k] - b[k - 1])
+            return tuple(a[k - 1] + t * (a[k] - a[k - 1]) for a in (e, lo, hi))
+    return e[-1], lo[-1], hi[-1]

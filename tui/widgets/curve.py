@@ -148,11 +148,37 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
         scale = 1.0
         if not len(v.curves.get("m", ((), ()))[0]):
             return [[(f"no {v.measure_label} yet", Style(italic=True))]]
-        put("m_lo", BAND, MONO_BAND)
-        put("m_hi", BAND, MONO_BAND)
-        put("m", OVERALL, MONO_OVERALL)
         xs = v.curves["error"][0]
-        return _plot(series, v, xs[0], xs[-1], width, height)
+        mf = v.measure_fit
+        c = (mf or {}).get("curve") or {}
+        if not c.get("b"):
+            put("m_lo", BAND, MONO_BAND)
+            put("m_hi", BAND, MONO_BAND)
+            put("m", OVERALL, MONO_OVERALL)
+            return _plot(series, v, xs[0], xs[-1], width, height)
+        # the estimate for the kept ensemble by size, with the textbook points faint beside it
+        top = float(max(v.members, 2))
+        need = mf.get("members_needed")
+        if need and need > top and (v.log_x or need <= 2 * top):
+            top = need * 1.1
+        if v.show_raw:
+            put("m", RAW, MONO_RAW)
+        b = np.asarray(c["b"], float)
+        keep = slice(0, min(b.shape[0], int(np.searchsorted(b, top, side="right")) + 1))
+        add(b[keep], np.asarray(c["lo"])[keep], BAND, MONO_BAND)
+        add(b[keep], np.asarray(c["hi"])[keep], BAND, MONO_BAND)
+        add(b[keep], np.asarray(c["error"])[keep], OVERALL, MONO_OVERALL)
+        if mf.get("limit") is not None:
+            x, y = _dashed(np.array([1.0, top]), np.array([mf["limit"], mf["limit"]]))
+            add(x, y, LIMIT, MONO_LIMIT)
+        if need and need <= top:
+            ys = [s.ys[np.isfinite(s.ys)] for s in series]
+            ys = [y for y in ys if y.size]
+            if ys:
+                y0, y1 = min(float(y.min()) for y in ys), max(float(y.max()) for y in ys)
+                x, y = _dashed(np.array([need, need], float), np.array([y0, y1]), pieces=max(3, height))
+                add(x, y, LIMIT, MONO_LIMIT)
+        return _plot(series, v, xs[0], top, width, height)
     top = x_top(v)
     fit = v.fit
     if v.show_raw:
@@ -220,6 +246,18 @@ def curve_key(v: View, mono: bool) -> Text:
     t.append("  ")
     t.append((MONO_BAND if mono else "─") + " 95%", style="" if mono else rgb(BAND))
     if not v.per_member:
+        mf = v.measure_fit
+        if mf is None or not (mf.get("curve") or {}).get("b"):
+            return t
+        if v.show_raw:
+            t.append("  ")
+            t.append((MONO_RAW if mono else "━") + " textbook", style="" if mono else rgb(RAW))
+        if mf.get("limit") is not None:
+            t.append("  ")
+            rate = v.measure in ("error", "balanced-error")
+            lim = f"{100 * mf['limit']:.2f}%" if rate else f"{mf['limit']:.4g}"
+            need = f"{mf['members_needed']:,}" if mf.get("members_needed") else "beyond reach"
+            t.append((MONO_LIMIT if mono else "╌") + f" limit {lim} · needed {need}", style="" if mono else rgb(LIMIT))
         return t
     if v.show_raw:
         t.append("  ")
@@ -268,8 +306,10 @@ class CurveKey(Panel):
     """
 
     def show(self, v: View, mono: bool) -> None:
+        mf = v.measure_fit or {}
         self.put((tuple(v.classes), v.highlight, mono, v.task, v.measure, v.show_raw, v.error_limit,
-                  v.members_needed, v.fit is not None), lambda: curve_key(v, mono), lines=1)
+                  v.members_needed, v.fit is not None, mf.get("limit"), mf.get("members_needed")),
+                 lambda: curve_key(v, mono), lines=1)
 
 
 class CurvePanel(Column):
