@@ -301,7 +301,7 @@ def test_bad_comparisons_give_one_line_and_leave_no_directory(tmp_path, capsys, 
     err = capsys.readouterr().err
     assert code == 2 and err.startswith("baggr: error: ") and err.count("\n") == 1, err
     assert {"seed": "shared by all candidates", "same": "lists 2 twice", "unknown": "unknown setting 'leaves'",
-            "measure": "does not fit a class target", "both": "give --min-leaf one value", "block": "--block",
+            "measure": "does not fit classes", "both": "give --min-leaf one value", "block": "--block",
             "empty": "lists no candidates"}[case] in err
     assert not rd.exists()
 
@@ -468,3 +468,16 @@ def test_round_line_says_the_size_reached_when_the_last_block_stops_short():
     assert p.line(f).startswith("up to 60 members, OOB error: c1 60/60")
     f["until"] = 50
     assert p.line(f).startswith("up to 50 members")
+
+
+def test_round_line_shows_the_chosen_measure_once_every_candidate_has_its_estimate():
+    # round events carry each candidate's estimate of the chosen measure after its first refit
+    # (common practice, no source: a progress line shows the figure the comparison ranks on)
+    from baggr.cli.compare import CompareProgress
+    p = CompareProgress(stream=io.StringIO())
+    p.task = "classes"
+    f = {"until": 64, "candidates": [{"member": 64, "members": 64, "error": 0.1, "measure": "log-loss", "value": 0.4339},
+                                     {"member": 64, "members": 64, "error": 0.12, "measure": "log-loss", "value": 0.41612}]}
+    assert p.line(f) == "up to 64 members, OOB log loss: c1 64/64 0.4339  c2 64/64 0.4161"
+    del f["candidates"][1]["measure"]         # one without it yet: the error for all
+    assert p.line(f).startswith("up to 64 members, OOB error: c1 64/64 10.00%")

@@ -21,7 +21,8 @@ def _base_and_candidates(args):
     from baggr.runs import comparison
     values = {k: getattr(args, k) for k in LISTED}
     firsts = {k: v[0] for k, v in values.items()}
-    base = Config(**firsts, task=args.task, seed=args.seed, threads=args.threads, keep_members=not args.estimate_only)
+    base = Config(**firsts, task=args.task, seed=args.seed, threads=args.threads, keep_members=not args.estimate_only,
+                  measure=args.measure)   # each candidate refits the chosen measure beside the error
     if args.candidates:
         many = [k.replace("_", "-") for k, v in values.items() if len(v) > 1]
         if many:
@@ -273,6 +274,11 @@ def cmd_report(args) -> int:
 
 # ---------------------------------------------------------------- progress lines
 
+def _count(n) -> str:
+    from baggr import units
+    return units.count(n) if isinstance(n, int) else str(n)
+
+
 def _num(v, task) -> str:
     from baggr import units
     return units.value(v) if task == "regression" else units.percent(v)
@@ -306,13 +312,25 @@ class CompareProgress:
         self.task = f.get("task")
         what = "regression" if self.task == "regression" else "classes"
         verb = "resuming" if f.get("first_member") else "comparing"
-        self._say(f"{verb}: {f.get('candidates')} candidates on {f.get('rows')} rows x {f.get('features')} features "
+        self._say(f"{verb}: {f.get('candidates')} candidates on {_count(f.get('rows'))} rows x {_count(f.get('features'))} features "
                   f"({what}), blocks of {f.get('block')} members, {where(f)}")
 
     def line(self, f: dict) -> str:
         what = "MSE" if self.task == "regression" else "error"
-        parts = [f"c{i} {c.get('member')}/{c.get('members')} {_num(c.get('error'), self.task)}"
-                 for i, c in enumerate(f.get("candidates") or [], 1)]
+        cands = f.get("candidates") or []
+        names = {c.get("measure") for c in cands}
+        if len(names) == 1 and None not in names:
+            # every candidate carries the chosen measure's estimate: the line shows it
+            from baggr.runs.measure_points import LABELS
+            name = names.pop()
+            rate = name in ("error", "balanced-error")
+            parts = [f"c{i} {c.get('member')}/{c.get('members')} "
+                     f"{_num(c['value'], 'classes') if rate else format(c['value'], '.4g')}"
+                     for i, c in enumerate(cands, 1)]
+            what = LABELS.get(name, name).removeprefix("OOB ")
+        else:
+            parts = [f"c{i} {c.get('member')}/{c.get('members')} {_num(c.get('error'), self.task)}"
+                     for i, c in enumerate(cands, 1)]
         if len(parts) > 8:
             parts = parts[:8] + [f"... ({len(parts) - 8} more)"]
         # the last block may stop short of its round number: say the size the candidates reached

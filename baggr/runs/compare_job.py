@@ -223,9 +223,15 @@ class ComparisonJob:
             if tr is None:
                 rows.append({"label": c.label(), "member": None, "error": None})
                 continue
-            rows.append({"label": c.label(), "member": tr.next_member, "members": tr.config.members,
-                         "error": tr.tally.error() if tr.next_member else None, "task": tr.prep.task,
-                         "elapsed": tr.elapsed})
+            row = {"label": c.label(), "member": tr.next_member, "members": tr.config.members,
+                   "error": tr.tally.error() if tr.next_member else None, "task": tr.prep.task,
+                   "elapsed": tr.elapsed}
+            # the chosen measure's estimate for the kept ensemble at this size, where the latest
+            # refit gives one (before the first refit, or without an estimate, the line keeps the error)
+            live = tr.tally.measure_live() if tr.next_member and self.cmp.measure else None
+            if live is not None and live.get("value") is not None:
+                row["measure"], row["value"] = live["name"], live["value"]
+            rows.append(row)
         return {"until": until, "candidates": rows}
 
     def _start(self) -> None:
