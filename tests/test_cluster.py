@@ -120,7 +120,9 @@ def test_workers_killed_mid_run_change_nothing(cluster):
     """One worker killed at member 8; at member 24 every worker, and with them every copy of the table:
     the lost chunks are grown again (the table shipped again to the workers the nannies start)."""
     X, y = twonorm(8000, seed=6)
-    cfg = Config(members=40, seed=4, threads=2, features_per_split=4)
+    # 120 members: when every worker dies at member 24 the workers are still busy with the chunks after
+    # it (the driver folds faster than two workers grow), so some are lost and grown again
+    cfg = Config(members=120, seed=4, threads=2, features_per_split=4)
     first = set(cluster.client.run(os.getpid).values())
     killed, notes = {}, []
 
@@ -498,7 +500,7 @@ def test_a_tls_cluster_grows_the_same_members(tmp_path):
     sec = Security(tls_ca_file=cert, tls_scheduler_cert=cert, tls_scheduler_key=key, tls_worker_cert=cert,
                    tls_worker_key=key, tls_client_cert=cert, tls_client_key=key, require_encryption=True)
     with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True, protocol="tls",
-                                  host="127.0.0.1", security=sec, dashboard_address=None,
+                                  host="127.0.0.1", security=sec, dashboard_address="127.0.0.1:0",
                                   env={"NUMBA_NUM_THREADS": "1"}) as local:
         address = local.scheduler_address
         assert address.startswith("tls://127.0.0.1:")

@@ -207,7 +207,9 @@ def _start_local(distributed, n: int, timeout: float):
             # worker again (after a kill) with the settings restored when this block ends
             local = distributed.LocalCluster(
                 n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
-                dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL,
+                # its HTTP endpoints on a free loopback port: two local clusters at once do not
+                # compete for the default one (8787)
+                dashboard_address="127.0.0.1:0", env=dict(WORKER_ENV), silence_logs=logging.CRITICAL,
                 config=copy.deepcopy(dask.config.config))
         # the driver reaches its own workers: results come straight from them, not through the scheduler
         return _client_class()(local, timeout=timeout, set_as_default=False, direct_to_workers=True), local
