@@ -220,7 +220,7 @@ class Tally:
         out = {"error": e, "interval": f.interval(e, v), "error_limit": f.limit,
                "error_limit_interval": f.limit_interval, "members_needed": f.members_needed()}
         if self.task == "classes":
-            out["class_error"] = f.class_at(b)[0].tolist()
+            out["class_error"] = f.class_point(b)
         return out
 
     def curve_points(self, target: int) -> dict:
