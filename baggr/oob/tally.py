@@ -79,7 +79,9 @@ class Tally:
     def pred(self) -> np.ndarray:
         """int32 current OOB class per row (ties to the lowest class; -1: never out of bag)."""
         if self._derived:
-            return np.where(self.votes.any(axis=1), np.argmax(self.votes, axis=1), -1).astype(np.int32)
+            pred = np.empty(self.votes.shape[0], np.int32)
+            k.hard_pred(self.votes, pred)
+            return pred
         return self._pred
 
     # -- folding ---------------------------------------------------------------------------------
