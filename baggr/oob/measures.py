@@ -175,10 +175,11 @@ def _from_cells(y, votes, kmin, kmax, covered, wrong):
     return ll, (float(brier[0]), float(brier[1])), auc
 
 
-def _cell_groups(cells, kmin, width):
+def _cell_groups(cells, kmin, width, nz=None):
     """(positives, negatives) per distinct share v / k in ascending order, from (cell, [neg, pos])
-    counts; plus the non-empty cells and the group of each."""
-    nz = np.flatnonzero(cells[:, 0] + cells[:, 1])
+    counts; plus the non-empty cells (nz: when already known) and the group of each."""
+    if nz is None:
+        nz = k.filled_cells(cells)
     values = (nz % width) / (kmin + nz // width)     # equal fractions give equal doubles
     uniq, inv = np.unique(values, return_inverse=True)
     pos = np.bincount(inv, weights=cells[nz, 1], minlength=uniq.shape[0])
@@ -191,7 +192,7 @@ def _two_from_cells(y, votes, kmin, kmax, covered, wrong):
     width = kmax + 1
     cells = np.zeros(((kmax - kmin + 1) * width, 2), np.int64)
     k.two_class_cells(y, votes, kmin, width, cells)
-    nz = np.flatnonzero(cells[:, 0] + cells[:, 1])
+    nz = k.filled_cells(cells)
     kk = (kmin + nz // width).astype(np.float64)
     v1 = (nz % width).astype(np.float64)
     neg, pos = cells[nz, 0].astype(np.float64), cells[nz, 1].astype(np.float64)
@@ -204,7 +205,7 @@ def _two_from_cells(y, votes, kmin, kmax, covered, wrong):
     b1 = 2.0 * (1.0 - v1 / kk) ** 2
     b0 = 2.0 * (v1 / kk) ** 2
     br = (float(_dot(pos, b1) + _dot(neg, b0)), float(_dot(pos, b1 ** 2) + _dot(neg, b0 ** 2)))
-    g = _cell_groups(cells, kmin, width)
+    g = _cell_groups(cells, kmin, width, nz)
     return ll, br, _auc(y, [1], [(g[0], g[1])], None)
 
 

@@ -79,7 +79,9 @@ class Tally:
     def pred(self) -> np.ndarray:
         """int32 current OOB class per row (ties to the lowest class; -1: never out of bag)."""
         if self._derived:
-            return np.where(self.votes.any(axis=1), np.argmax(self.votes, axis=1), -1).astype(np.int32)
+            pred = np.empty(self.votes.shape[0], np.int32)
+            k.hard_pred(self.votes, pred)
+            return pred
         return self._pred
 
     # -- folding ---------------------------------------------------------------------------------
@@ -220,7 +222,7 @@ class Tally:
         out = {"error": e, "interval": f.interval(e, v), "error_limit": f.limit,
                "error_limit_interval": f.limit_interval, "members_needed": f.members_needed()}
         if self.task == "classes":
-            out["class_error"] = f.class_at(b)[0].tolist()
+            out["class_error"] = f.class_point(b)
         return out
 
     def curve_points(self, target: int) -> dict:

@@ -161,3 +161,15 @@ def fold_regression(rows, row_values, y, value_sum, value_m2, left_out, sq_err, 
         sums[0] += e
         sums[1] += e * e
         sq_err[r] = e
+
+
+@kernel
+def hard_pred(votes, pred):
+    """pred[r] = the class with the most hard votes for row r (ties to the lowest), -1 without votes:
+    what np.where(votes.any(1), np.argmax(votes, 1), -1) gives, in one pass and no temporaries."""
+    for r in range(votes.shape[0]):
+        any_vote = False
+        for c in range(votes.shape[1]):
+            if votes[r, c] != 0:
+                any_vote = True
+        pred[r] = _argmax_row(votes, r) if any_vote else -1
