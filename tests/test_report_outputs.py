@@ -216,6 +216,8 @@ def test_html_report_renders_offline_in_a_headless_browser(runs, tmp_path, run):
     settings = dom[dom.index("<h2>Settings</h2>"):dom.index("<h2>Data</h2>")]
     assert ">True<" not in settings and ">False<" not in settings and ">None<" not in settings
     assert ">yes<" in settings
+    # the measure the run was judged by (these runs chose one; without, the page names the default)
+    assert (">auc<" if run == "classes" else ">mae<") in settings and "(the default)" not in settings
     d = json.loads(_run("report", runs / run, "--json").stdout)
     if run == "classes":
         # error-type figures as percentages, as the screens write them (baggr.units)

@@ -278,7 +278,10 @@ def _page(d: dict, figs: dict) -> str:
 
     parts.append("<h2>Settings</h2>")
     # the settings with what the data chose in place of the unset ones (cli.settings_text.settings_json)
-    parts.append(_table(["setting", "value"], [[k.replace("_", " "), setting_text(v)] for k, v in d["config"].items()],
+    default_measure = "mse" if task == "regression" else "error"
+    parts.append(_table(["setting", "value"], [[k.replace("_", " "), f"{default_measure} (the default)"
+                                                if k == "measure" and v is None else setting_text(v)]
+                                               for k, v in d["config"].items()],
                         text_cols=(1,)))
     parts.append("<h2>Data</h2>")
     data = d.get("data") or {}
