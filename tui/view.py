@@ -3,6 +3,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from baggr.runs.journal import MEASURE_LABELS as LABELS, RunState, chosen_measure as chosen
 
 
@@ -139,10 +141,5 @@ def _read_fit(fit: dict, members: int) -> tuple | None:
     b, e, lo, hi = c.get("b") or [], c.get("error") or [], c.get("lo") or [], c.get("hi") or []
     if not b or not (len(b) == len(e) == len(lo) == len(hi)) or members < 1:
         return None if fit.get("value") is None else (fit["value"], iv[0], iv[1])
-    if members <= b[0]:
-        return e[0], lo[0], hi[0]
-    for k in range(1, len(b)):
-        if members <= b[k]:
-            t = (members - b[k - 1]) / (b[k] - b[k - 1])
-            return tuple(a[k - 1] + t * (a[k] - a[k - 1]) for a in (e, lo, hi))
-    return e[-1], lo[-1], hi[-1]
+    # np.interp holds the ends beyond the fitted sizes
+    return tuple(float(np.interp(members, b, a)) for a in (e, lo, hi))

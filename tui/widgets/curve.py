@@ -106,11 +106,29 @@ class CurvePlot(Painted):
 def x_top(v: View) -> float:
     """The member axis runs to the members so far, or on to members_needed when that is near
     enough (within 2x, or any distance on a log axis)."""
-    top = float(max(v.members, 2))
-    need = v.members_needed
-    if v.fit is not None and need and need > top and (v.log_x or need <= 2 * top):
+    return _top(v.members, v.members_needed if v.fit is not None else None, v.log_x)
+
+
+def _top(members: int, need: int | None, log_x: bool) -> float:
+    top = float(max(members, 2))
+    if need and need > top and (log_x or need <= 2 * top):
         top = need * 1.1
     return top
+
+
+def _upto(b: np.ndarray, top: float) -> slice:
+    """The sizes up to the axis' end and one past it, so that a line reaches the edge."""
+    return slice(0, min(b.shape[0], int(np.searchsorted(b, top, side="right")) + 1))
+
+
+def _needed_line(series: list, need: int, height: int, scale: float):
+    """A dashed upright at members_needed across the drawn series' range (None: nothing drawn)."""
+    ys = [s.ys[np.isfinite(s.ys)] for s in series]
+    ys = [y for y in ys if y.size]
+    if not ys:
+        return None
+    y0, y1 = min(float(y.min()) for y in ys), max(float(y.max()) for y in ys)
+    return _dashed(np.array([need, need], float), np.array([y0, y1]) / scale, pieces=max(3, height))
 
 
 def _dashed(xs: np.ndarray, ys: np.ndarray, pieces: int = 24) -> tuple[np.ndarray, np.ndarray]:
@@ -157,27 +175,20 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
             put("m", OVERALL, MONO_OVERALL)
             return _plot(series, v, xs[0], xs[-1], width, height)
         # the estimate for the kept ensemble by size, with the textbook points faint beside it
-        top = float(max(v.members, 2))
         need = mf.get("members_needed")
-        if need and need > top and (v.log_x or need <= 2 * top):
-            top = need * 1.1
+        top = _top(v.members, need, v.log_x)
         if v.show_raw:
             put("m", RAW, MONO_RAW)
         b = np.asarray(c["b"], float)
-        keep = slice(0, min(b.shape[0], int(np.searchsorted(b, top, side="right")) + 1))
+        keep = _upto(b, top)
         add(b[keep], np.asarray(c["lo"])[keep], BAND, MONO_BAND)
         add(b[keep], np.asarray(c["hi"])[keep], BAND, MONO_BAND)
         add(b[keep], np.asarray(c["error"])[keep], OVERALL, MONO_OVERALL)
         if mf.get("limit") is not None:
-            x, y = _dashed(np.array([1.0, top]), np.array([mf["limit"], mf["limit"]]))
-            add(x, y, LIMIT, MONO_LIMIT)
-        if need and need <= top:
-            ys = [s.ys[np.isfinite(s.ys)] for s in series]
-            ys = [y for y in ys if y.size]
-            if ys:
-                y0, y1 = min(float(y.min()) for y in ys), max(float(y.max()) for y in ys)
-                x, y = _dashed(np.array([need, need], float), np.array([y0, y1]), pieces=max(3, height))
-                add(x, y, LIMIT, MONO_LIMIT)
+            add(*_dashed(np.array([1.0, top]), np.array([mf["limit"], mf["limit"]])), LIMIT, MONO_LIMIT)
+        line = _needed_line(series, need, height, scale) if need and need <= top else None
+        if line is not None:
+            add(*line, LIMIT, MONO_LIMIT)
         return _plot(series, v, xs[0], top, width, height)
     top = x_top(v)
     fit = v.fit
@@ -198,8 +209,7 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
         put("error", OVERALL, MONO_OVERALL)
     else:
         b = np.asarray(fit["b"], float)
-        # the sizes up to the axis' end and one past it, so that the line reaches the edge
-        keep = slice(0, min(b.shape[0], int(np.searchsorted(b, top, side="right")) + 1))
+        keep = _upto(b, top)
         bx = b[keep]
         add(bx, np.asarray(fit["lo"])[keep], BAND, MONO_BAND)
         add(bx, np.asarray(fit["hi"])[keep], BAND, MONO_BAND)
@@ -214,13 +224,9 @@ def render_curves(v: View, mono: bool, width: int, height: int) -> list:
             x, y = _dashed(np.array([1.0, top]), np.array([lim, lim]))
             add(x, y, LIMIT, MONO_LIMIT)
     need = v.members_needed
-    if fit is not None and need and need <= top:
-        ys = [s.ys[np.isfinite(s.ys)] for s in series]
-        ys = [y for y in ys if y.size]
-        if ys:
-            y0, y1 = min(float(y.min()) for y in ys), max(float(y.max()) for y in ys)
-            x, y = _dashed(np.array([need, need], float), np.array([y0, y1]) / scale, pieces=max(3, height))
-            add(x, y, LIMIT, MONO_LIMIT)
+    line = _needed_line(series, need, height, scale) if fit is not None and need and need <= top else None
+    if line is not None:
+        add(*line, LIMIT, MONO_LIMIT)
     return _plot(series, v, v.curves["error"][0][0], top, width, height)
 
 
