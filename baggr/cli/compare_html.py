@@ -64,19 +64,7 @@ def render(r) -> str:
 
 def write_figures(r, folder) -> list:
     """Write every figure of the comparison as PNG and SVG into folder; returns the paths written."""
-    from pathlib import Path
-    folder = Path(folder)
-    figs = figures(r, runs_figures(r))
-    out = []
-    try:
-        for name, fig in figs.items():
-            for ext, data in (("svg", F.svg_bytes(fig)), ("png", F.png_bytes(fig, dpi=150))):
-                p = folder / f"{name}.{ext}"
-                p.write_bytes(data)
-                out.append(p)
-    finally:
-        F.close(figs.values())
-    return out
+    return H.save_figures(figures(r, runs_figures(r)), folder)
 
 
 def shared_draws(r) -> str:

@@ -343,9 +343,13 @@ def page(title: str, body: str, broad: bool = False) -> str:
 
 def write_figures(d: dict, oob, folder) -> list:
     """Write every figure as PNG and SVG into folder; returns the paths written."""
+    return save_figures(F.all_figures(d, oob), folder)
+
+
+def save_figures(figs: dict, folder) -> list:
+    """Write each {name: figure} as PNG and SVG into folder and close them; returns the paths written."""
     from pathlib import Path
     folder = Path(folder)
-    figs = F.all_figures(d, oob)
     out = []
     try:
         for name, fig in figs.items():
